@@ -1,0 +1,141 @@
+package online
+
+// Features summarise one unit's estimated field.
+type Features struct {
+	PeakLag   int   `json:"peak_lag"`   // lag index (0 = frame on screen during the bin) with the largest energy
+	LatencyMS Float `json:"latency_ms"` // PeakLag times the frame period, in milliseconds
+	// Map is the spatial map at the peak lag, row-major height×width.
+	Map Floats `json:"map"`
+	// Centre and extent from the fit to |map| (pixels; column x, row y).
+	CentreX Float `json:"centre_x"`
+	CentreY Float `json:"centre_y"`
+	SigmaX  Float `json:"sigma_x"` // along the fitted major axis
+	SigmaY  Float `json:"sigma_y"` // along the fitted minor axis
+	Angle   Float `json:"angle"`   // radians, of the major axis from the x (column) axis
+	// The same in degrees of visual angle, when the screen geometry is known.
+	CentreXDeg Float `json:"centre_x_deg"`
+	CentreYDeg Float `json:"centre_y_deg"`
+	SigmaXDeg  Float `json:"sigma_x_deg"`
+	SigmaYDeg  Float `json:"sigma_y_deg"`
+	// Polarity is +1 for a bright-preferring peak, −1 for dark-preferring.
+	Polarity int `json:"polarity"`
+	// Separability is σ₁²/Σσᵢ² of the space×time matrix.
+	Separability Float `json:"separability"`
+	// Spatial (height×width) and Temporal (lags) profiles of the separable
+	// approximation σ₁u₁v₁ᵀ, scaled so Spatial⊗Temporal reproduces it.
+	Spatial  Floats `json:"spatial"`
+	Temporal Floats `json:"temporal"`
+}
+
+// STCResult is the spike-triggered covariance analysis of one unit in the
+// reduced space (the spatial frame at a few lags).
+type STCResult struct {
+	Lags        []int  `json:"lags"`        // the lags of the reduced space
+	Eigenvalues Floats `json:"eigenvalues"` // descending
+	// NullLow and NullHigh bound the eigenvalues expected without any
+	// stimulus dependence; eigenvalues outside are significant.
+	NullLow  Float `json:"null_low"`
+	NullHigh Float `json:"null_high"`
+	// Filters are the significant eigenvectors (each len(Lags)·height·width,
+	// lag-major), most excitatory first, then suppressive.
+	Filters     []Floats `json:"filters"`
+	Significant []Float  `json:"significant_eigenvalues"`
+	Spikes      int64    `json:"spikes"`
+}
+
+// UnitSummary is the per-second summary of one unit.
+type UnitSummary struct {
+	ID     string `json:"id"`
+	Spikes int64  `json:"spikes"` // spikes of this unit in used bins of the block
+	Status Status `json:"status"`
+	// Reliability is the Spearman–Brown corrected split-half correlation.
+	Reliability Float `json:"reliability"`
+	// Significance is −log10 of the p-value of the field against the null.
+	Significance Float `json:"significance"`
+	PValue       Float `json:"p_value"`
+	// ETA is the projected seconds until Reliability reaches the target;
+	// null while it is too early to project, 0 once reached.
+	ETA       Float  `json:"eta_s"`
+	Rate      Float  `json:"rate_hz"`
+	PeakLag   int    `json:"peak_lag"`
+	LatencyMS Float  `json:"latency_ms"`
+	CentreX   Float  `json:"centre_x"`
+	CentreY   Float  `json:"centre_y"`
+	SigmaX    Float  `json:"sigma_x"`
+	SigmaY    Float  `json:"sigma_y"`
+	Polarity  int    `json:"polarity"`
+	Map       Floats `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
+	HasSTC    bool   `json:"has_stc"`
+	Flagged   bool   `json:"flagged"`
+}
+
+// UnitDetail is everything known about one unit.
+type UnitDetail struct {
+	UnitSummary
+	Shape       [3]int     `json:"shape"` // lags, height, width
+	FramePeriod Float      `json:"frame_period_s"`
+	STA         Floats     `json:"sta"`   // flattened row-major (lag, row, column)
+	Ridge       Floats     `json:"ridge"` // the exact ridge weights, same layout
+	Intercept   Float      `json:"intercept"`
+	Z           Floats     `json:"z"` // ridge weight / posterior standard deviation
+	Features    Features   `json:"features"`
+	STC         *STCResult `json:"stc,omitempty"`
+	// History of reliability over the block, one point per update.
+	History []HistoryPoint `json:"history"`
+}
+
+// HistoryPoint is one past value of a unit's reliability.
+type HistoryPoint struct {
+	T           Float `json:"t"` // seconds since block start
+	Spikes      int64 `json:"spikes"`
+	Reliability Float `json:"reliability"`
+}
+
+// BlockSummary tells the experimenter whether the block can stop and where
+// the next stimulus should go.
+type BlockSummary struct {
+	Units       int   `json:"units"`
+	Significant int   `json:"significant"`
+	Reliable    int   `json:"reliable"`
+	Target      Float `json:"target"`   // target reliability
+	Fraction    Float `json:"fraction"` // fraction of significant units that must be reliable
+	// ETA is the projected seconds until Fraction of the significant units
+	// reach the target (null when too early, 0 when reached).
+	ETA   Float `json:"eta_s"`
+	Ready bool  `json:"ready"` // the block criterion holds now
+	// Population of the reliable units' centres (pixels).
+	CentreX Float `json:"centre_x"`
+	CentreY Float `json:"centre_y"`
+	SpreadX Float `json:"spread_x"`
+	SpreadY Float `json:"spread_y"`
+	// Suggested stimulus centre and aperture (a square side in pixels)
+	// covering ApertureFraction of the reliable units' fields.
+	SuggestX         Float `json:"suggest_x"`
+	SuggestY         Float `json:"suggest_y"`
+	Aperture         Float `json:"aperture"`
+	ApertureFraction Float `json:"aperture_fraction"`
+	ApertureDeg      Float `json:"aperture_deg"`
+}
+
+// Snapshot is an immutable picture of a mapper after one update. It is safe
+// to share between goroutines.
+type Snapshot struct {
+	Block       string        `json:"block"`
+	T           Float         `json:"t"` // seconds of data in the block (used bins × frame period)
+	Bins        int64         `json:"bins"`
+	Shape       [3]int        `json:"shape"`
+	FramePeriod Float         `json:"frame_period_s"`
+	Lambda      Float         `json:"lambda"`
+	Summary     BlockSummary  `json:"summary"`
+	Units       []UnitSummary `json:"units"`
+	details     map[string]*UnitDetail
+}
+
+// Detail returns the full estimate of one unit, if the unit is known.
+func (s *Snapshot) Detail(id string) (*UnitDetail, bool) {
+	if s == nil {
+		return nil, false
+	}
+	d, ok := s.details[id]
+	return d, ok
+}
