@@ -438,8 +438,12 @@ func (b *lockedBuffer) lock() {
 	b.mu <- struct{}{}
 }
 
-func (b *lockedBuffer) Write(p []byte) (int, error) { b.lock(); defer func() { <-b.mu }(); return b.buf.Write(p) }
-func (b *lockedBuffer) Len() int                    { b.lock(); defer func() { <-b.mu }(); return b.buf.Len() }
+func (b *lockedBuffer) Write(p []byte) (int, error) {
+	b.lock()
+	defer func() { <-b.mu }()
+	return b.buf.Write(p)
+}
+func (b *lockedBuffer) Len() int { b.lock(); defer func() { <-b.mu }(); return b.buf.Len() }
 
 func TestNextDoesNotAllocate(t *testing.T) {
 	recs := testRecords()[:4]
