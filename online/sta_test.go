@@ -1,0 +1,206 @@
+package online
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"testing"
+)
+
+// staGoldenFile is testdata/golden/sta_golden.json, written by sta_golden.py
+// (numpy, computed from the dense arrays).
+type staGoldenFile struct {
+	Pixels   int         `json:"pixels"`
+	Lags     int         `json:"lags"`
+	Frames   [][]float64 `json:"frames"`
+	HalfA    []bool      `json:"half_a"`
+	Counts   [][]float64 `json:"counts"`
+	STA      [][]float64 `json:"sta"`
+	HalfASTA [][]float64 `json:"half_a_sta"`
+	HalfBSTA [][]float64 `json:"half_b_sta"`
+	Cross    [][]float64 `json:"cross"`
+	Autocov  [][]float64 `json:"autocov"`
+}
+
+// staLoadJSON decodes the golden file testdata/golden/name into v.
+func staLoadJSON(t *testing.T, name string, v any) {
+	t.Helper()
+	b, err := os.ReadFile("../testdata/golden/" + name)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(b, v); err != nil {
+		t.Fatalf("%s: %v", name, err)
+	}
+}
+
+// staLagged writes x = [s_k; s_{k−1}; …] (lag-major) from frames.
+func staLagged(x []float64, frames [][]float64, k, lags int) {
+	p := len(frames[0])
+	for t := 0; t < lags; t++ {
+		copy(x[t*p:(t+1)*p], frames[k-t])
+	}
+}
+
+func staCloseTo(t *testing.T, what string, got, want []float64, tol float64) {
+	t.Helper()
+	if len(got) != len(want) {
+		t.Fatalf("%s: len %d, want %d", what, len(got), len(want))
+	}
+	for i := range got {
+		if d := math.Abs(got[i] - want[i]); d > tol*(1+math.Abs(want[i])) {
+			t.Fatalf("%s[%d] = %.15g, want %.15g (numpy)", what, i, got[i], want[i])
+		}
+	}
+}
+
+// TestSTAGolden compares the running sums with numpy's direct computation
+// (testdata/golden/sta_golden.py). Unit 2's counts are fed split in two
+// entries per bin, units in reverse order, to check that counts add.
+func TestSTAGolden(t *testing.T) {
+	var g staGoldenFile
+	staLoadJSON(t, "sta_golden.json", &g)
+	s := NewSTA(g.Pixels, g.Lags)
+	D := g.Pixels * g.Lags
+	x := make([]float64, D)
+	var counts []Count
+	for k := range g.HalfA {
+		staLagged(x, g.Frames, k+g.Lags-1, g.Lags)
+		counts = counts[:0]
+		for u := len(g.Counts) - 1; u >= 0; u-- {
+			y := g.Counts[u][k]
+			if y == 0 {
+				continue
+			}
+			if u == 2 && y > 1 {
+				counts = append(counts, Count{Unit: u, N: 1}, Count{Unit: u, N: y - 1})
+				continue
+			}
+			counts = append(counts, Count{Unit: u, N: y})
+		}
+		s.AddBin(x, g.HalfA[k], counts)
+	}
+	if s.Units() != 3 || s.Bins() != int64(len(g.HalfA)) {
+		t.Fatalf("Units, Bins = %d, %d; want 3, %d", s.Units(), s.Bins(), len(g.HalfA))
+	}
+	a, b := make([]float64, D), make([]float64, D)
+	ac := make([]float64, g.Lags)
+	for u := range g.Counts {
+		var total float64
+		for _, y := range g.Counts[u] {
+			total += y
+		}
+		if s.Spikes(u) != total {
+			t.Errorf("Spikes(%d) = %g, want %g", u, s.Spikes(u), total)
+		}
+		s.STATo(a, u)
+		staCloseTo(t, fmt.Sprintf("STA unit %d", u), a, g.STA[u], 1e-12)
+		s.HalvesTo(a, b, u)
+		staCloseTo(t, fmt.Sprintf("half A unit %d", u), a, g.HalfASTA[u], 1e-12)
+		staCloseTo(t, fmt.Sprintf("half B unit %d", u), b, g.HalfBSTA[u], 1e-12)
+		s.CrossTo(a, u)
+		staCloseTo(t, fmt.Sprintf("cross unit %d", u), a, g.Cross[u], 1e-12)
+		s.AutocovTo(ac, u)
+		staCloseTo(t, fmt.Sprintf("autocov unit %d", u), ac, g.Autocov[u], 1e-12)
+	}
+}
+
+func TestSTARejectsBadCounts(t *testing.T) {
+	x := []float64{1, -1}
+	for _, tc := range []struct {
+		name  string
+		c     Count
+		bad   int64
+		spike float64
+	}{
+		{"negative unit", Count{Unit: -1, N: 2}, 1, 0},
+		{"negative count", Count{Unit: 0, N: -1}, 1, 0},
+		{"NaN", Count{Unit: 0, N: math.NaN()}, 1, 0},
+		{"Inf", Count{Unit: 0, N: math.Inf(1)}, 1, 0},
+		{"zero is skipped", Count{Unit: 0, N: 0}, 0, 0},
+		{"good", Count{Unit: 0, N: 3}, 0, 3},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			s := NewSTA(2, 1)
+			s.AddBin(x, true, []Count{tc.c})
+			if s.Rejected() != tc.bad || s.Spikes(0) != tc.spike {
+				t.Fatalf("Rejected, Spikes = %d, %g; want %d, %g", s.Rejected(), s.Spikes(0), tc.bad, tc.spike)
+			}
+		})
+	}
+}
+
+// TestSTAHandWorked: two bins of a 1-pixel, 2-lag stimulus, worked by hand.
+// Bin 0 (half A): x = (1, 0), y = 2. Bin 1 (half B): x = (3, 1), y = 1.
+// x̄ = (2, 0.5); STA = (2·(1,0) + (3,1))/3 − x̄ = (5/3 − 2, 1/3 − 0.5);
+// cross = 3·STA; half A centred on its own mean gives (0, 0), as does B;
+// ȳ = 1.5, A(0) = 0.25 + 0.25 = 0.5, A(1) = (0.5)(−0.5) = −0.25.
+func TestSTAHandWorked(t *testing.T) {
+	s := NewSTA(1, 2)
+	s.AddBin([]float64{1, 0}, true, []Count{{0, 2}})
+	s.AddBin([]float64{3, 1}, false, []Count{{0, 1}})
+	got := make([]float64, 2)
+	s.STATo(got, 0)
+	staCloseTo(t, "STA", got, []float64{5.0/3 - 2, 1.0/3 - 0.5}, 1e-15)
+	s.CrossTo(got, 0)
+	staCloseTo(t, "cross", got, []float64{-1, -0.5}, 1e-15)
+	b := make([]float64, 2)
+	s.HalvesTo(got, b, 0)
+	staCloseTo(t, "half A", got, []float64{0, 0}, 1e-15)
+	staCloseTo(t, "half B", b, []float64{0, 0}, 1e-15)
+	s.AutocovTo(got, 0)
+	staCloseTo(t, "autocov", got, []float64{0.5, -0.25}, 1e-15)
+	s.STATo(got, 7) // unknown unit
+	staCloseTo(t, "unknown unit", got, []float64{0, 0}, 0)
+
+	s.Reset()
+	if s.Bins() != 0 || s.Spikes(0) != 0 || s.Units() != 1 {
+		t.Fatalf("after Reset: Bins %d Spikes %g Units %d", s.Bins(), s.Spikes(0), s.Units())
+	}
+	s.AutocovTo(got, 0)
+	staCloseTo(t, "autocov after Reset", got, []float64{0, 0}, 0)
+}
+
+func TestSTAAddBinDoesNotAllocate(t *testing.T) {
+	s := NewSTA(64, 8)
+	x := make([]float64, s.Dim())
+	counts := []Count{{0, 1}, {5, 2}, {9, 1}}
+	s.AddBin(x, true, counts)
+	half := false
+	if a := testing.AllocsPerRun(200, func() {
+		half = !half
+		s.AddBin(x, half, counts)
+	}); a != 0 {
+		t.Fatalf("AddBin allocates %g times per bin", a)
+	}
+}
+
+func BenchmarkSTAAddBin(b *testing.B) {
+	for _, sz := range []struct{ pixels, lags, spiking int }{{256, 10, 4}, {1024, 12, 8}} {
+		b.Run(fmt.Sprintf("D=%d/spiking=%d", sz.pixels*sz.lags, sz.spiking), func(b *testing.B) {
+			rng := rand.New(rand.NewPCG(1, 2))
+			s := NewSTA(sz.pixels, sz.lags)
+			x := make([]float64, s.Dim())
+			for i := range x {
+				x[i] = float64(rng.IntN(2)*2 - 1)
+			}
+			counts := make([]Count, sz.spiking)
+			for i := range counts {
+				counts[i] = Count{Unit: 3 * i, N: 1}
+			}
+			s.Grow(3 * sz.spiking)
+			b.ReportAllocs()
+			b.ResetTimer()
+			bins := 0
+			for b.Loop() {
+				s.AddBin(x, bins&64 == 0, counts)
+				bins++
+			}
+			// Multiply-adds per bin: D for Σx plus D per spiking unit.
+			madds := float64(bins) * float64(s.Dim()*(1+sz.spiking))
+			b.ReportMetric(madds/float64(b.Elapsed().Nanoseconds()), "Gmadd/s")
+		})
+	}
+}
