@@ -559,6 +559,9 @@ func BenchmarkWhiteTestUnit(b *testing.B) {
 	}
 	wt := NewWhiteTest(P, L)
 	z := make([]float64, P*L)
+	if a := testing.AllocsPerRun(3, func() { wt.Unit(z, s, 0, 1) }); a != 0 {
+		b.Fatalf("WhiteTest.Unit allocates %g times", a)
+	}
 	b.ReportAllocs()
 	for b.Loop() {
 		if _, err := wt.Unit(z, s, 0, 1); err != nil {

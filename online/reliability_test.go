@@ -125,6 +125,18 @@ func TestTrend(t *testing.T) {
 	}
 }
 
+func TestTrendDoesNotAllocate(t *testing.T) {
+	tr := NewTrend(30)
+	n := 100.0
+	if a := testing.AllocsPerRun(100, func() {
+		n += 10
+		tr.Add(n, 0.5)
+		tr.Project(10, 0.9)
+	}); a != 0 {
+		t.Fatalf("Trend.Add and Project allocate %g times", a)
+	}
+}
+
 // relSimulate simulates a unit whose half estimates are a fixed field
 // plus noise whose variance falls as 1/N: each spike adds an independent
 // N(0, σ²) draw per coefficient to its half's running sum, so a half with

@@ -204,3 +204,35 @@ func BenchmarkSTAAddBin(b *testing.B) {
 		})
 	}
 }
+
+// ExampleSTA maps a one-pixel cell that fires 2 spikes in every bin whose
+// previous frame (lag 1) was bright, and tests the STA against the
+// white-noise null of a ±1 stimulus (pixel variance 1).
+func ExampleSTA() {
+	const pixels, lags = 2, 3
+	s := NewSTA(pixels, lags)
+	frames := make([][]float64, 0, 400)
+	x := make([]float64, pixels*lags)
+	for k := 0; k < 400; k++ {
+		// A fixed pseudo-random ±1 pattern (bits of a Weyl sequence).
+		v := uint32(k) * 2654435761
+		frames = append(frames, []float64{float64(int(v>>31)*2 - 1), float64(int(v>>30&1)*2 - 1)})
+		if k < lags-1 {
+			continue
+		}
+		staLagged(x, frames, k, lags)
+		var counts []Count
+		if frames[k-1][0] > 0 {
+			counts = []Count{{Unit: 0, N: 2}}
+		}
+		s.AddBin(x, (k/20)%2 == 0, counts)
+	}
+	sta := make([]float64, s.Dim())
+	s.STATo(sta, 0)
+	fmt.Printf("spikes %.0f, STA of pixel 0 at lag 1: %.2f\n", s.Spikes(0), sta[1*pixels+0])
+	res, err := NewWhiteTest(pixels, lags).Unit(nil, s, 0, 1)
+	fmt.Printf("Q = %.0f on %.0f degrees of freedom, -log10 p > 50: %v, err %v\n", res.Q, res.DOF, res.NegLog10P > 50, err)
+	// Output:
+	// spikes 400, STA of pixel 0 at lag 1: 0.99
+	// Q = 398 on 6 degrees of freedom, -log10 p > 50: true, err <nil>
+}
