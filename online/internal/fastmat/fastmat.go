@@ -1,0 +1,157 @@
+package fastmat
+
+import "fmt"
+
+// microKernel adds alpha times an mr×nr block of X·Y to C: x points at mr
+// rows of X (stride ldx, k values each), y at a packed panel (k rows of nr
+// contiguous values). k must be positive.
+type microKernel struct {
+	name   string
+	mr, nr int
+	fn     func(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha float64)
+}
+
+// active is the kernel in use: the fastest one this CPU runs, or none (the
+// pure-Go path).
+var active = func() microKernel {
+	if len(kernels) > 0 {
+		return kernels[0]
+	}
+	return microKernel{name: "go"}
+}()
+
+// Cache blocks: a packed slab of Y is kc×nc (kc·nc·8 bytes = 576 KiB, inside
+// the L2 cache of one core) and is reused for every row block of X.
+const (
+	kc = 256
+	nc = 288 // a multiple of every kernel's nr
+)
+
+// Buf is the scratch space of one goroutine: the packed slab of Y and the
+// zero-padded edge blocks. The zero value is ready to use; it grows once to
+// a fixed size and is reused by every call.
+type Buf struct {
+	pack  []float64
+	xedge []float64
+	cedge []float64
+}
+
+// MulAdd computes C += alpha·X·Y on the calling goroutine, where X is m×k,
+// Y is k×n and C is m×n, all row-major with strides ldx, ldy and ldc.
+func (b *Buf) MulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
+	check(m, n, k, x, ldx, y, ldy, c, ldc)
+	if m == 0 || n == 0 || k == 0 || alpha == 0 {
+		return
+	}
+	b.mulAdd(m, n, k, alpha, x, ldx, y, ldy, c, ldc)
+}
+
+func (b *Buf) mulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
+	kn := active
+	if kn.fn == nil {
+		goMulAdd(m, n, k, alpha, x, ldx, y, ldy, c, ldc)
+		return
+	}
+	mr, nr := kn.mr, kn.nr
+	if len(b.pack) < kc*nc {
+		b.pack = make([]float64, kc*nc)
+		b.xedge = make([]float64, 16*kc)
+		b.cedge = make([]float64, 16*nc)
+	}
+	for j0 := 0; j0 < n; j0 += nc {
+		nb := min(nc, n-j0)
+		for p0 := 0; p0 < k; p0 += kc {
+			kb := min(kc, k-p0)
+			packY(b.pack, kb, nb, nr, y[p0*ldy+j0:], ldy)
+			for i0 := 0; i0 < m; i0 += mr {
+				rows := min(mr, m-i0)
+				xp, ldxp := x[i0*ldx+p0:], ldx
+				if rows < mr {
+					// Copy the last rows of X into a zero-padded block.
+					xp, ldxp = b.xedge[:mr*kb], kb
+					clear(xp)
+					for i := range rows {
+						copy(xp[i*kb:i*kb+kb], x[(i0+i)*ldx+p0:])
+					}
+				}
+				ci := c[i0*ldc+j0:]
+				for jp := 0; jp < nb; jp += nr {
+					cols := min(nr, nb-jp)
+					panel := &b.pack[jp*kb]
+					if rows == mr && cols == nr {
+						kn.fn(kb, &xp[0], ldxp, panel, &ci[jp], ldc, alpha)
+						continue
+					}
+					// Edge block: compute into scratch, add the part that exists.
+					ce := b.cedge[:mr*nr]
+					clear(ce)
+					kn.fn(kb, &xp[0], ldxp, panel, &ce[0], nr, alpha)
+					for i := range rows {
+						dst := ci[i*ldc+jp : i*ldc+jp+cols]
+						for j, v := range ce[i*nr : i*nr+cols] {
+							dst[j] += v
+						}
+					}
+				}
+			}
+		}
+	}
+}
+
+// packY copies the kb×nb block of y into dst as ⌈nb/nr⌉ consecutive panels,
+// each kb rows of nr contiguous values; the last panel is padded with zeros.
+func packY(dst []float64, kb, nb, nr int, y []float64, ldy int) {
+	full := nb - nb%nr
+	for p := 0; p < kb; p++ {
+		row := y[p*ldy : p*ldy+nb]
+		for jp := 0; jp < full; jp += nr {
+			copy(dst[jp*kb+p*nr:jp*kb+p*nr+nr], row[jp:jp+nr])
+		}
+		if full < nb {
+			d := dst[full*kb+p*nr : full*kb+p*nr+nr]
+			n := copy(d, row[full:])
+			clear(d[n:])
+		}
+	}
+}
+
+// goMulAdd is the pure-Go path: C += alpha·X·Y one row of C at a time.
+func goMulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
+	for i := 0; i < m; i++ {
+		ci := c[i*ldc : i*ldc+n]
+		xi := x[i*ldx : i*ldx+k]
+		for p, xv := range xi {
+			a := alpha * xv
+			if a == 0 {
+				continue
+			}
+			yp := y[p*ldy : p*ldy+n]
+			j := 0
+			for ; j+4 <= n; j += 4 {
+				ci[j] += a * yp[j]
+				ci[j+1] += a * yp[j+1]
+				ci[j+2] += a * yp[j+2]
+				ci[j+3] += a * yp[j+3]
+			}
+			for ; j < n; j++ {
+				ci[j] += a * yp[j]
+			}
+		}
+	}
+}
+
+// check panics on operands that cannot hold the stated sizes.
+func check(m, n, k int, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
+	switch {
+	case m < 0 || n < 0 || k < 0:
+		panic(fmt.Sprintf("fastmat: negative size m=%d n=%d k=%d", m, n, k))
+	case ldx < max(k, 1) || ldy < max(n, 1) || ldc < max(n, 1):
+		panic(fmt.Sprintf("fastmat: stride too small: ldx=%d (k=%d) ldy=%d (n=%d) ldc=%d", ldx, k, ldy, n, ldc))
+	case m > 0 && k > 0 && len(x) < (m-1)*ldx+k:
+		panic(fmt.Sprintf("fastmat: x has %d elements, needs %d", len(x), (m-1)*ldx+k))
+	case k > 0 && n > 0 && len(y) < (k-1)*ldy+n:
+		panic(fmt.Sprintf("fastmat: y has %d elements, needs %d", len(y), (k-1)*ldy+n))
+	case m > 0 && n > 0 && len(c) < (m-1)*ldc+n:
+		panic(fmt.Sprintf("fastmat: c has %d elements, needs %d", len(c), (m-1)*ldc+n))
+	}
+}
