@@ -1,0 +1,99 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"log/slog"
+	"sync"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"livefield/stream/ingest"
+	"livefield/stream/wire"
+)
+
+func init() {
+	register("demo", command{
+		summary: "run everything in one process: a NATS server, a synthetic rig, the mapping and the page",
+		usage:   "[--http ADDR] [--seed S] [--units N] [--block-length D]",
+		example: "livefield demo --http 127.0.0.1:8080",
+		run:     runDemo,
+	})
+}
+
+const demoRig = "demo"
+
+func runDemo(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
+	c := commands[name]
+	fs := flags(name, c, stderr)
+	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
+	seed := fs.Uint64("seed", 1, "seed of the synthetic rig")
+	units := fs.Int("units", 48, "number of synthetic units (on 32 channels)")
+	length := fs.Duration("block-length", 10*time.Minute, "length of each synthetic block; blocks follow each other until Ctrl-C")
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	if *units <= 0 {
+		return fmt.Errorf("--units %d: must be positive", *units)
+	}
+	if *length <= 0 {
+		return fmt.Errorf("--block-length %v: must be positive", *length)
+	}
+	log := slog.New(slog.NewTextHandler(stderr, nil))
+	ln, err := listen(*addr)
+	if err != nil {
+		return err
+	}
+	defer ln.Close()
+
+	srv, err := startEmbedded()
+	if err != nil {
+		return err
+	}
+	defer srv.close()
+	fmt.Fprintf(stdout, "livefield: NATS server at %s (JetStream store %s)\n", srv.url(), srv.store)
+
+	sub, err := nats.Connect(srv.url(), ConnectOptions("livefield demo ingest", log)...)
+	if err != nil {
+		return fmt.Errorf("embedded nats: %w", err)
+	}
+	defer sub.Close()
+	pub, err := nats.Connect(srv.url(), ConnectOptions("livefield demo rig", log)...)
+	if err != nil {
+		return fmt.Errorf("embedded nats: %w", err)
+	}
+	defer pub.Close()
+
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	prefix := wire.Prefix(demoRig)
+	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, Logger: log})
+	if err != nil {
+		return err
+	}
+	defer r.Close()
+
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		for n := 1; ctx.Err() == nil; n++ {
+			s := synthSettings{seed: *seed + uint64(n-1), units: *units, speed: 1, duration: *length, block: fmt.Sprintf("demo-%d", n)}
+			if err := publishSynth(ctx, pub, prefix, s); err != nil && ctx.Err() == nil {
+				log.Error("demo: synthetic rig stopped", "err", err)
+				cancel()
+				return
+			}
+		}
+	}()
+	defer wg.Wait()
+	defer cancel()
+
+	fmt.Fprintf(stdout, "livefield: synthetic rig %q: 16×16 binary noise at 60 Hz, %d units on 32 channels\n", demoRig, *units)
+	fmt.Fprintf(stdout, "livefield: open http://%s/  (Ctrl-C stops)\n", ln.Addr())
+	err = serveHTTP(ctx, ln, handler(r))
+	fmt.Fprintln(stdout, "livefield: stopping")
+	return err
+}

@@ -1,0 +1,175 @@
+package main
+
+import (
+	"context"
+	"crypto/tls"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"strings"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"livefield/stream/ingest"
+)
+
+func init() {
+	register("serve", command{
+		summary: "map the live stream of one rig and serve the estimates over HTTP",
+		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N]",
+		example: "livefield serve --nats nats://127.0.0.1:4222 --rig rig1 --stimuli ./stimuli --http 127.0.0.1:8080",
+		run:     runServe,
+	})
+}
+
+// natsFlags are the connection flags shared by serve and simulate.
+type natsFlags struct {
+	url, creds, token, ca, cert, key string
+}
+
+func (n *natsFlags) add(fs interface {
+	StringVar(*string, string, string, string)
+}, withAuth bool) {
+	fs.StringVar(&n.url, "nats", "", "NATS server URL (required), e.g. nats://127.0.0.1:4222")
+	if !withAuth {
+		return
+	}
+	fs.StringVar(&n.creds, "creds", "", "NATS user credentials file")
+	fs.StringVar(&n.token, "token", "", "NATS authentication token")
+	fs.StringVar(&n.ca, "tls-ca", "", "CA certificate file to verify the NATS server")
+	fs.StringVar(&n.cert, "tls-cert", "", "client certificate file (with --tls-key)")
+	fs.StringVar(&n.key, "tls-key", "", "client key file (with --tls-cert)")
+}
+
+// options turns the flags into nats.go options; errors name the flag.
+func (n *natsFlags) options(name string, log *slog.Logger) ([]nats.Option, error) {
+	if n.url == "" {
+		return nil, errors.New("--nats is required (e.g. --nats nats://127.0.0.1:4222)")
+	}
+	if n.creds != "" && n.token != "" {
+		return nil, errors.New("--creds and --token: give one, not both")
+	}
+	if (n.cert == "") != (n.key == "") {
+		return nil, errors.New("--tls-cert and --tls-key go together")
+	}
+	opts := ConnectOptions(name, log)
+	if n.creds != "" {
+		opts = append(opts, nats.UserCredentials(n.creds))
+	}
+	if n.token != "" {
+		opts = append(opts, nats.Token(n.token))
+	}
+	if n.ca != "" {
+		opts = append(opts, nats.RootCAs(n.ca))
+	}
+	if n.cert != "" {
+		opts = append(opts, nats.ClientCert(n.cert, n.key))
+	}
+	if n.ca != "" || n.cert != "" {
+		opts = append(opts, nats.Secure(&tls.Config{MinVersion: tls.VersionTLS12}))
+	}
+	return opts, nil
+}
+
+// ConnectOptions are the connection options every livefield client uses:
+// reconnect forever, and log connection changes (never credentials).
+func ConnectOptions(name string, log *slog.Logger) []nats.Option {
+	return []nats.Option{
+		nats.Name(name),
+		nats.MaxReconnects(-1),
+		nats.ReconnectWait(time.Second),
+		nats.DisconnectErrHandler(func(nc *nats.Conn, err error) {
+			if err != nil { // nil when the connection is closed on purpose
+				log.Warn("nats: disconnected", "err", err)
+			}
+		}),
+		nats.ReconnectHandler(func(nc *nats.Conn) {
+			log.Info("nats: reconnected", "server", nc.ConnectedUrlRedacted(), "reconnects", nc.Stats().Reconnects)
+		}),
+		nats.ClosedHandler(func(nc *nats.Conn) { log.Info("nats: connection closed") }),
+		nats.ErrorHandler(func(nc *nats.Conn, sub *nats.Subscription, err error) {
+			subj := ""
+			if sub != nil {
+				subj = sub.Subject
+			}
+			log.Warn("nats: asynchronous error", "subject", subj, "err", err)
+		}),
+	}
+}
+
+// rigPrefix checks a rig name and returns its subject prefix.
+func rigPrefix(rig string) (string, error) {
+	if rig == "" {
+		return "", errors.New("--rig is required (e.g. --rig rig1)")
+	}
+	if strings.ContainsAny(rig, ".*> \t\r\n") {
+		return "", fmt.Errorf("--rig %q: a rig name is one subject token (no dots, spaces, * or >)", rig)
+	}
+	return "livefield." + rig, nil
+}
+
+func runServe(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
+	c := commands[name]
+	fs := flags(name, c, stderr)
+	var nf natsFlags
+	nf.add(fs, true)
+	rig := fs.String("rig", "", "rig name (required); subjects are livefield.<rig>.block|frames|spikes|control")
+	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
+	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
+	grace := fs.Duration("grace", 250*time.Millisecond, "how long a bin waits for late spikes")
+	maxUnits := fs.Int("max-units", ingest.DefaultMaxUnits, "cap on distinct unit ids per block")
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	log := slog.New(slog.NewTextHandler(stderr, nil))
+	prefix, err := rigPrefix(*rig)
+	if err != nil {
+		return err
+	}
+	if *grace <= 0 {
+		return fmt.Errorf("--grace %v: must be positive", *grace)
+	}
+	if *maxUnits <= 0 {
+		return fmt.Errorf("--max-units %d: must be positive", *maxUnits)
+	}
+	opts, err := nf.options("livefield serve "+*rig, log)
+	if err != nil {
+		return err
+	}
+	ln, err := listen(*addr)
+	if err != nil {
+		return err
+	}
+	defer ln.Close()
+	nc, err := nats.Connect(nf.url, opts...)
+	if err != nil {
+		return fmt.Errorf("--nats %s: %w", redact(nf.url), err)
+	}
+	defer nc.Close()
+	r, err := ingest.Start(ctx, nc, ingest.Options{
+		Prefix:     prefix,
+		StimuliDir: *stimuli,
+		Grace:      grace.Seconds(),
+		MaxUnits:   *maxUnits,
+		Logger:     log,
+	})
+	if err != nil {
+		return err
+	}
+	defer r.Close()
+	fmt.Fprintf(stdout, "livefield: mapping %s.* from %s\nlivefield: open http://%s/\n", prefix, redact(nf.url), ln.Addr())
+	return serveHTTP(ctx, ln, handler(r))
+}
+
+// redact drops a user or password from a URL for messages.
+func redact(u string) string {
+	if i := strings.Index(u, "@"); i >= 0 {
+		if j := strings.Index(u, "://"); j >= 0 && j < i {
+			return u[:j+3] + "[redacted]@" + u[i+1:]
+		}
+		return "[redacted]@" + u[i+1:]
+	}
+	return u
+}

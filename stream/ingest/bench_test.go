@@ -1,0 +1,326 @@
+package ingest
+
+import (
+	"context"
+	"encoding/json"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"net/http"
+	"net/http/httptest"
+	"sync"
+	"testing"
+	"time"
+
+	"livefield/display"
+	"livefield/stream/binning"
+	"livefield/stream/wire"
+)
+
+// The reference workload: 16×16 binary noise at 60 Hz, 12 lags, 384 units
+// firing at 10 spikes/s; frames in 50 ms batches, spikes in 20 ms batches.
+const (
+	refSide   = 16
+	refLags   = 12
+	refUnits  = 384
+	refRate   = 10.0
+	refPeriod = 1.0 / 60
+)
+
+func refIDs() []string {
+	ids := make([]string, refUnits)
+	for i := range ids {
+		ids[i] = fmt.Sprintf("ch%02d.%d", i%32, i/32)
+	}
+	return ids
+}
+
+// refSpikes returns the spikes of [from, to) for all units, Poisson at
+// refRate, in time order.
+func refSpikes(rng *rand.Rand, ids []string, from, to float64) wire.Spikes {
+	var s wire.Spikes
+	type sp struct {
+		u string
+		t float64
+	}
+	var all []sp
+	for _, id := range ids {
+		for t := from + rng.ExpFloat64()/refRate; t < to; t += rng.ExpFloat64() / refRate {
+			all = append(all, sp{id, t})
+		}
+	}
+	// insertion by time (batches are short)
+	for i := 1; i < len(all); i++ {
+		for j := i; j > 0 && all[j].t < all[j-1].t; j-- {
+			all[j], all[j-1] = all[j-1], all[j]
+		}
+	}
+	for _, x := range all {
+		s.Unit = append(s.Unit, x.u)
+		s.T = append(s.T, x.t)
+	}
+	return s
+}
+
+// session encodes seconds of the reference workload, in arrival order.
+func session(b testing.TB, seconds float64) (msgs []message, spikes int) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	ids := refIDs()
+	frame := int64(0)
+	nextFrames, nextSpikes := 0.05, 0.02
+	for now := 0.0; now < seconds; now += 0.01 {
+		if now+1e-9 >= nextFrames {
+			var f wire.Frames
+			f.Block = "bench"
+			for ; float64(frame)*refPeriod < nextFrames; frame++ {
+				f.Index = append(f.Index, frame)
+				f.T = append(f.T, float64(frame)*refPeriod)
+			}
+			data, err := wire.EncodeFrames(f)
+			if err != nil {
+				b.Fatal(err)
+			}
+			msgs = append(msgs, message{subj: subjFrames, data: data})
+			nextFrames += 0.05
+		}
+		if now+1e-9 >= nextSpikes {
+			s := refSpikes(rng, ids, nextSpikes-0.02, nextSpikes)
+			data, err := wire.EncodeSpikes(s)
+			if err != nil {
+				b.Fatal(err)
+			}
+			msgs = append(msgs, message{subj: subjSpikes, data: data})
+			spikes += len(s.T)
+			nextSpikes += 0.02
+		}
+	}
+	return msgs, spikes
+}
+
+// BenchmarkDecodeBin measures the owner goroutine's per-message path
+// without the estimator: decoding (wire.Decoder), unit id lookup and
+// binning, in spikes per second of one core. Target ≥ 1,000,000 spikes/s.
+func BenchmarkDecodeBin(b *testing.B) {
+	msgs, spikes := session(b, 10)
+	var dec wire.Decoder
+	var fr wire.Frames
+	var sp wire.Spikes
+	var bin binning.Bin
+	ids := map[string]int{}
+	var units []int
+	b.ReportAllocs()
+	b.ResetTimer()
+	for range b.N {
+		bn, err := binning.New(binning.Config{FramePeriod: refPeriod, Grace: DefaultGrace})
+		if err != nil {
+			b.Fatal(err)
+		}
+		for _, m := range msgs {
+			switch m.subj {
+			case subjFrames:
+				if err := dec.FramesTo(&fr, m.data); err != nil {
+					b.Fatal(err)
+				}
+				if err := bn.AddFrames(fr.Index, fr.T); err != nil {
+					b.Fatal(err)
+				}
+			case subjSpikes:
+				if err := dec.SpikesTo(&sp, m.data); err != nil {
+					b.Fatal(err)
+				}
+				units = units[:0]
+				for _, id := range sp.Unit {
+					u, ok := ids[id]
+					if !ok {
+						u = len(ids)
+						ids[id] = u
+					}
+					units = append(units, u)
+				}
+				bn.AddSpikes(units, sp.T)
+			}
+			for bn.Next(&bin) {
+			}
+		}
+	}
+	b.ReportMetric(float64(spikes)*float64(b.N)/b.Elapsed().Seconds(), "spikes/s")
+}
+
+// BenchmarkLoop is the whole owner-goroutine path at the reference
+// workload, estimator bins included (AddBin, not Update).
+func BenchmarkLoop(b *testing.B) {
+	msgs, spikes := session(b, 10)
+	start, _ := json.Marshal(map[string]any{"kind": "start", "block": "bench", "t": 0, "lags": refLags,
+		"stimulus": binary(refSide, refSide, 3)})
+	b.ReportAllocs()
+	b.ResetTimer()
+	for range b.N {
+		r := &Rig{logged: map[string]time.Time{}}
+		r.opt = Options{Prefix: "bench", Logger: quiet(), UpdateEvery: time.Hour}
+		if err := r.opt.fill(); err != nil {
+			b.Fatal(err)
+		}
+		r.health.Rejected = map[string]uint64{}
+		r.loop.init(r)
+		r.loop.handle(message{subj: subjBlock, data: start})
+		for _, m := range msgs {
+			r.loop.handle(m)
+		}
+		if n := len(r.health.Rejected); n != 0 {
+			b.Fatalf("rejected %v", r.health.Rejected)
+		}
+	}
+	b.ReportMetric(float64(spikes)*float64(b.N)/b.Elapsed().Seconds(), "spikes/s")
+}
+
+// BenchmarkLatency runs the reference workload in real time over an
+// embedded nats-server and measures, per iteration, the wall time from the
+// publication of a probe unit's spike to its presence in the spike counts
+// of GET /api/units. Target ≤ 1.5 s.
+func BenchmarkLatency(b *testing.B) {
+	srv := startServer(b)
+	sub, pubc := connect(b, srv), connect(b, srv)
+	r := startRig(b, sub, Options{Prefix: "bench.lat"})
+	web := httptest.NewServer(display.NewAPI(r))
+	defer web.Close()
+
+	ctx, cancel := context.WithCancel(context.Background())
+	var wg sync.WaitGroup
+	defer wg.Wait()
+	defer cancel()
+	start, _ := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: "lat", T: 0, Lags: refLags, FramePeriod: refPeriod,
+		Stimulus: json.RawMessage(fmt.Sprintf(`{"type":"binary","width":%d,"height":%d,"seed":3}`, refSide, refSide))})
+	if err := pubc.Publish("bench.lat.block", start); err != nil {
+		b.Fatal(err)
+	}
+	probe := make(chan time.Time, 1)
+	want := make(chan struct{}, 1)
+	wg.Add(1)
+	go func() { // the rig: stream time is wall time since t0
+		defer wg.Done()
+		rng := rand.New(rand.NewPCG(2, 2))
+		ids := refIDs()
+		t0 := time.Now()
+		tick := time.NewTicker(10 * time.Millisecond)
+		defer tick.Stop()
+		var frame int64
+		lastSpikes := 0.0
+		nextFrames := 0.05
+		for {
+			select {
+			case <-ctx.Done():
+				return
+			case <-tick.C:
+			}
+			now := time.Since(t0).Seconds()
+			if now >= nextFrames {
+				var f wire.Frames
+				f.Block = "lat"
+				for ; float64(frame)*refPeriod < now; frame++ {
+					f.Index = append(f.Index, frame)
+					f.T = append(f.T, float64(frame)*refPeriod)
+				}
+				data, _ := wire.EncodeFrames(f)
+				_ = pubc.Publish("bench.lat.frames", data)
+				nextFrames = now + 0.05
+			}
+			if now-lastSpikes >= 0.02 {
+				s := refSpikes(rng, ids, lastSpikes, now)
+				sendProbe := false
+				select {
+				case <-want:
+					sendProbe = true
+					s.Unit = append(s.Unit, "probe")
+					s.T = append(s.T, math.Nextafter(now, 0))
+				default:
+				}
+				data, _ := wire.EncodeSpikes(s)
+				_ = pubc.Publish("bench.lat.spikes", data)
+				if sendProbe {
+					probe <- time.Now()
+				}
+				lastSpikes = now
+			}
+		}
+	}()
+	// Let the block fill its lags and the first updates pass.
+	time.Sleep(2 * time.Second)
+	var total time.Duration
+	b.ResetTimer()
+	for i := range b.N {
+		want <- struct{}{}
+		sent := <-probe
+		for {
+			if probeSpikes(b, web.URL) >= int64(i+1) {
+				break
+			}
+			if time.Since(sent) > 10*time.Second {
+				b.Fatalf("probe spike %d not in /api/units after 10 s (health %+v)", i+1, r.Counters())
+			}
+			time.Sleep(5 * time.Millisecond)
+		}
+		total += time.Since(sent)
+	}
+	b.StopTimer()
+	b.ReportMetric(total.Seconds()*1000/float64(b.N), "ms-latency")
+	h := r.Counters()
+	b.ReportMetric(h.Lag*1000, "ms-update-wait")
+	if len(h.Rejected) != 0 {
+		b.Fatalf("rejected %v", h.Rejected)
+	}
+}
+
+func probeSpikes(b *testing.B, url string) int64 {
+	res, err := http.Get(url + "/api/units")
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer res.Body.Close()
+	var v struct {
+		Units []struct {
+			ID     string `json:"id"`
+			Spikes int64  `json:"spikes"`
+		} `json:"units"`
+	}
+	if err := json.NewDecoder(res.Body).Decode(&v); err != nil {
+		b.Fatal(err)
+	}
+	for _, u := range v.Units {
+		if u.ID == "probe" {
+			return u.Spikes
+		}
+	}
+	return 0
+}
+
+// TestSteadyStateNoAlloc: once the buffers have grown, handling frames and
+// spikes messages (decode, binning, estimator bins) does not allocate.
+func TestSteadyStateNoAlloc(t *testing.T) {
+	msgs, _ := session(t, 6)
+	start, _ := json.Marshal(map[string]any{"kind": "start", "block": "bench", "t": 0, "lags": refLags,
+		"stimulus": binary(refSide, refSide, 3)})
+	r := &Rig{logged: map[string]time.Time{}}
+	r.opt = Options{Prefix: "bench", Logger: quiet(), UpdateEvery: time.Hour}
+	if err := r.opt.fill(); err != nil {
+		t.Fatal(err)
+	}
+	r.health.Rejected = map[string]uint64{}
+	r.loop.init(r)
+	r.loop.handle(message{subj: subjBlock, data: start})
+	warm := len(msgs) / 2
+	for _, m := range msgs[:warm] {
+		r.loop.handle(m)
+	}
+	rest := msgs[warm:]
+	i := 0
+	allocs := testing.AllocsPerRun(len(rest)-1, func() {
+		r.loop.handle(rest[i])
+		i++
+	})
+	if allocs != 0 || len(r.health.Rejected) != 0 {
+		t.Fatalf("%.2f allocations per message (rejected %v), want 0", allocs, r.health.Rejected)
+	}
+	if r.loop.binsTotal < 300 {
+		t.Fatalf("only %d bins: the test did not exercise binning", r.loop.binsTotal)
+	}
+}

@@ -1,0 +1,45 @@
+package ingest_test
+
+import (
+	"context"
+	"fmt"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+
+	"livefield/stream/ingest"
+)
+
+func Example() {
+	srv, _ := server.NewServer(&server.Options{Host: "127.0.0.1", Port: server.RANDOM_PORT, NoSigs: true, NoLog: true})
+	go srv.Start()
+	defer srv.Shutdown()
+	srv.ReadyForConnections(10 * time.Second)
+	nc, err := nats.Connect(srv.ClientURL())
+	if err != nil {
+		panic(err)
+	}
+	defer nc.Close()
+
+	r, err := ingest.Start(context.Background(), nc, ingest.Options{Prefix: "livefield.rig1"})
+	if err != nil {
+		panic(err)
+	}
+	defer r.Close()
+
+	// The rig announces a block of 8×8 binary noise, shows 6 frames at
+	// 60 Hz, and ends the block.
+	nc.Publish("livefield.rig1.block", []byte(`{"kind":"start","block":"B1","t":0,"stimulus":{"type":"binary","width":8,"height":8,"seed":1}}`))
+	nc.Publish("livefield.rig1.frames", []byte(`{"block":"B1","index":[0,1,2,3,4,5],"t":[0,0.0167,0.0333,0.05,0.0667,0.0833]}`))
+	nc.Publish("livefield.rig1.spikes", []byte(`{"unit":["ch01.0","ch01.0"],"t":[0.02,0.07]}`))
+	nc.Publish("livefield.rig1.block", []byte(`{"kind":"end","block":"B1","t":0.1}`))
+	nc.Flush()
+	for r.Counters().Processed < 4 {
+		time.Sleep(time.Millisecond)
+	}
+	r.Sync()
+	h := r.Counters()
+	fmt.Println(h.Block, h.BlockState, "bins:", h.Bins, "spikes:", h.SpikesTotal, "rejected:", len(h.Rejected))
+	// Output: B1 ended bins: 6 spikes: 2 rejected: 0
+}

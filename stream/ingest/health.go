@@ -1,0 +1,108 @@
+package ingest
+
+import (
+	"maps"
+	"time"
+)
+
+// Rejection reasons raised by the ingest itself; the wire decoders add
+// their own (wire.Error.Reason).
+const (
+	ReasonMalformed     = "malformed"          // a decode error without a wire reason
+	ReasonNoBlock       = "no-block"           // frames while no block runs
+	ReasonUnknownBlock  = "unknown-block"      // frames or block end naming another block
+	ReasonBlockRejected = "block-rejected"     // frames of a block whose start was rejected
+	ReasonBadStimulus   = "bad-stimulus"       // block start whose stimulus cannot be opened
+	ReasonBadConfig     = "bad-config"         // block start whose settings the mapper refuses
+	ReasonFrameRange    = "frame-out-of-range" // a bin's frame index outside the stimulus
+	ReasonBadFrames     = "bad-frames"         // frames the binner refuses (time running backwards, …)
+	ReasonUnitCap       = "unit-cap"           // spikes that would pass Options.MaxUnits
+	ReasonUnknownCmd    = "unknown-command"    // a control command the ingest does not know
+	ReasonQueueFull     = "queue-full"         // dropped before decoding: the owner fell behind
+	ReasonSubject       = "unknown-subject"    // a subject under the prefix that is none of the four
+)
+
+// Health is a copy of a rig's counters, safe to encode and keep.
+type Health struct {
+	Prefix string `json:"prefix"`
+	// NATS connection state, from nats.go.
+	Connection string `json:"connection"` // CONNECTED, RECONNECTING, CLOSED, …
+	Reconnects uint64 `json:"reconnects"`
+	LastError  string `json:"last_error,omitempty"`
+	// Messages received per subject (block, frames, spikes, control).
+	Messages map[string]uint64 `json:"messages"`
+	// Processed is the messages the owner goroutine has handled (accepted
+	// or rejected), over all subjects.
+	Processed uint64 `json:"processed"`
+	// SlowConsumer is the messages nats.go dropped because the
+	// subscription's pending limits were exceeded.
+	SlowConsumer int `json:"slow_consumer_drops"`
+	// Rejected counts rejected messages by reason; QueueFull ones included.
+	Rejected map[string]uint64 `json:"rejected"`
+
+	Block      string `json:"block"`
+	BlockState string `json:"block_state"` // "" (none yet), running, ended
+	// RejectedBlock and BlockError name the last block start that was
+	// rejected and say why (a broken stimulus spec, a missing movie, …).
+	RejectedBlock string `json:"rejected_block,omitempty"`
+	BlockError    string `json:"block_error,omitempty"`
+	Blocks        uint64 `json:"blocks"`
+	Units         int    `json:"units"`
+
+	Bins        uint64  `json:"bins"`        // bins given to the mapper
+	LateSpikes  uint64  `json:"late_spikes"` // spikes that arrived after their bin had closed
+	HeldFrames  uint64  `json:"held_frames"` // bins whose frame was held over from the one before
+	SpikesTotal uint64  `json:"spikes"`      // spikes accepted
+	Resets      uint64  `json:"resets"`      // estimate resets
+	Updates     uint64  `json:"updates"`     // snapshots published
+	LastUpdate  string  `json:"last_update"` // RFC 3339, wall clock
+	StreamTime  float64 `json:"stream_t"`    // latest spike or frame time seen
+	BinTime     float64 `json:"bin_t"`       // end of the latest bin given to the mapper
+	// StreamLag is StreamTime minus BinTime: how far the estimates trail
+	// the data received (at least the grace).
+	StreamLag float64 `json:"stream_lag_s"`
+	// Lag is the wall time from the arrival of the message that closed the
+	// first bin of the latest update to that update: how long closed bins
+	// wait before readers see them (at most about UpdateEvery).
+	Lag float64 `json:"lag_s"`
+
+	closing bool
+}
+
+// Health returns a copy of the counters. Safe from any goroutine.
+func (r *Rig) Health() any { return r.Counters() }
+
+// Counters is Health with its concrete type.
+func (r *Rig) Counters() Health {
+	r.mu.Lock()
+	h := r.health
+	h.Rejected = maps.Clone(r.health.Rejected)
+	r.mu.Unlock()
+	h.Prefix = r.opt.Prefix
+	h.Messages = make(map[string]uint64, nSubjects)
+	for i := range nSubjects {
+		h.Messages[subjectNames[i]] = r.received[i].Load()
+	}
+	if !h.closing {
+		if n, err := r.sub.Dropped(); err == nil {
+			h.SlowConsumer = n
+		}
+	}
+	h.Processed = r.processed.Load()
+	if n := r.queueDrop.Load(); n > 0 {
+		h.Rejected[ReasonQueueFull] += n
+	}
+	h.Connection = r.nc.Status().String()
+	h.Reconnects = r.nc.Stats().Reconnects
+	if err := r.nc.LastError(); err != nil {
+		h.LastError = err.Error()
+	}
+	return h
+}
+
+func stamp(t time.Time) string {
+	if t.IsZero() {
+		return ""
+	}
+	return t.UTC().Format(time.RFC3339Nano)
+}

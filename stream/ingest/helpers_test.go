@@ -1,0 +1,148 @@
+package ingest
+
+import (
+	"context"
+	"encoding/json"
+	"io"
+	"log/slog"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
+
+	"livefield/stream/wire"
+)
+
+// startServer runs an embedded nats-server on a random loopback port for
+// the test, as nats-server's own tests do (Port: -1).
+func startServer(t testing.TB) *server.Server {
+	t.Helper()
+	srv, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: server.RANDOM_PORT, NoSigs: true, NoLog: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	go srv.Start()
+	if !srv.ReadyForConnections(10 * time.Second) {
+		t.Fatal("nats-server not ready")
+	}
+	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
+	return srv
+}
+
+func connect(t testing.TB, srv *server.Server) *nats.Conn {
+	t.Helper()
+	nc, err := nats.Connect(srv.ClientURL())
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	return nc
+}
+
+func quiet() *slog.Logger { return slog.New(slog.NewTextHandler(io.Discard, nil)) }
+
+func startRig(t testing.TB, nc *nats.Conn, opt Options) *Rig {
+	t.Helper()
+	if opt.Logger == nil {
+		opt.Logger = quiet()
+	}
+	r, err := Start(context.Background(), nc, opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { r.Close() })
+	return r
+}
+
+// publisher publishes on one prefix and counts what it sent, so a test can
+// wait until the rig has handled all of it.
+type publisher struct {
+	t      testing.TB
+	nc     *nats.Conn
+	prefix string
+	sent   uint64
+}
+
+func (p *publisher) raw(subject string, data []byte) {
+	p.t.Helper()
+	if err := p.nc.Publish(wire.Subject(p.prefix, subject), data); err != nil {
+		p.t.Fatal(err)
+	}
+	p.sent++
+}
+
+func (p *publisher) msg(subject string, b []byte, err error) {
+	p.t.Helper()
+	if err != nil {
+		p.t.Fatal(err)
+	}
+	p.raw(subject, b)
+}
+
+func (p *publisher) start(block string, stim any, t float64) {
+	p.t.Helper()
+	spec, err := json.Marshal(stim)
+	if err != nil {
+		p.t.Fatal(err)
+	}
+	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: block, T: t, Stimulus: spec, Lags: 4, FramePeriod: 1.0 / 60})
+	p.msg(wire.SubjectBlock, b, err)
+}
+
+func (p *publisher) end(block string, t float64) {
+	p.t.Helper()
+	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindEnd, Block: block, T: t})
+	p.msg(wire.SubjectBlock, b, err)
+}
+
+// frames publishes frames from…to−1, frame i at t0 + i/60, in batches of 10.
+func (p *publisher) frames(block string, from, to int64, t0 float64) {
+	p.t.Helper()
+	for lo := from; lo < to; lo += 10 {
+		var f wire.Frames
+		f.Block = block
+		for i := lo; i < min(lo+10, to); i++ {
+			f.Index = append(f.Index, i)
+			f.T = append(f.T, frameTime(t0, i))
+		}
+		b, err := wire.EncodeFrames(f)
+		p.msg(wire.SubjectFrames, b, err)
+	}
+}
+
+func frameTime(t0 float64, i int64) float64 { return t0 + float64(i)/60 }
+
+func (p *publisher) spikes(units []string, t []float64) {
+	p.t.Helper()
+	b, err := wire.EncodeSpikes(wire.Spikes{Unit: units, T: t})
+	p.msg(wire.SubjectSpikes, b, err)
+}
+
+func (p *publisher) control(c wire.Control) {
+	p.t.Helper()
+	b, err := wire.EncodeControl(c)
+	p.msg(wire.SubjectControl, b, err)
+}
+
+// settle flushes the connection, waits (polling, 20 s deadline) until the
+// rig has handled every message p sent, and runs an update.
+func (p *publisher) settle(r *Rig) Health {
+	p.t.Helper()
+	if err := p.nc.Flush(); err != nil {
+		p.t.Fatal(err)
+	}
+	deadline := time.Now().Add(20 * time.Second)
+	for r.processed.Load() < p.sent {
+		if time.Now().After(deadline) {
+			p.t.Fatalf("rig %s handled %d of %d messages", r.Prefix(), r.processed.Load(), p.sent)
+		}
+		time.Sleep(2 * time.Millisecond)
+	}
+	r.Sync()
+	return r.Counters()
+}
+
+func binary(w, h int, seed uint64) map[string]any {
+	return map[string]any{"type": "binary", "width": w, "height": h, "seed": seed}
+}

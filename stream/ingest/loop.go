@@ -1,0 +1,433 @@
+package ingest
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"livefield/online"
+	"livefield/stream/binning"
+	"livefield/stream/stimulus"
+	"livefield/stream/wire"
+)
+
+// rejectedBlocks is how many rejected block ids are remembered, so that
+// their frames are counted under ReasonBlockRejected.
+const rejectedBlocks = 16
+
+// quietAdvance is how far (seconds) the spike watermark may trail the
+// latest frame onset: it keeps bins closing while no unit fires.
+const quietAdvance = 2.0
+
+// loop is the state of the owner goroutine. Nothing here is touched from
+// another goroutine.
+type loop struct {
+	r *Rig
+
+	dec    wire.Decoder
+	frames wire.Frames // decoded into, reused
+	spikes wire.Spikes
+
+	// The running block; mapper is nil while none runs.
+	block    string
+	src      stimulus.Source
+	binner   *binning.Binner
+	mapper   *online.Mapper
+	frame    []float64 // one stimulus frame
+	bin      binning.Bin
+	ids      map[string]int // unit id → mapper index, for the running block
+	units    []int          // scratch: unit indices of one spikes message
+	fresh    map[string]int // scratch: new ids of one spikes message
+	lastBins uint64         // bins given to the mapper at the last update
+	dirty    bool           // bins added since the last update
+
+	rejected []string // recent rejected block ids, oldest first
+
+	// Settings carried across blocks.
+	target, fraction float64
+	stc              map[string]bool
+
+	lastUpdate  time.Time
+	closedAt    time.Time // arrival of the message that closed the first bin since the last update
+	streamT     float64
+	lastBinEnd  float64
+	binsTotal   uint64
+	lateBase    uint64 // late spikes of the blocks before the running one
+	heldBase    uint64
+	spikesTotal uint64
+}
+
+func (l *loop) init(r *Rig) {
+	l.r = r
+	l.dec.MaxSize = r.opt.MaxPayload
+	l.fresh = map[string]int{}
+	l.stc = map[string]bool{}
+	l.streamT = math.NaN()
+	l.lastBinEnd = math.NaN()
+}
+
+// handle decodes one message and applies it. A rejected message changes no
+// estimate.
+func (l *loop) handle(m message) {
+	defer l.r.processed.Add(1)
+	var err error
+	switch m.subj {
+	case subjBlock:
+		err = l.onBlock(m)
+	case subjFrames:
+		err = l.onFrames(m)
+	case subjSpikes:
+		err = l.onSpikes(m)
+	case subjControl:
+		err = l.onControl(m)
+	default:
+		err = rejectf(ReasonSubject, "ingest: message on a subject that is not block, frames, spikes or control")
+	}
+	if err != nil {
+		l.r.reject(reasonOf(err), err)
+	}
+}
+
+// rejection is an ingest-level refusal with its counter key.
+type rejection struct {
+	reason string
+	err    error
+}
+
+func (e *rejection) Error() string { return e.err.Error() }
+func (e *rejection) Unwrap() error { return e.err }
+
+func rejectf(reason, format string, args ...any) error {
+	return &rejection{reason: reason, err: fmt.Errorf(format, args...)}
+}
+
+func reasonOf(err error) string {
+	var rj *rejection
+	if errors.As(err, &rj) {
+		return rj.reason
+	}
+	var we *wire.Error
+	if errors.As(err, &we) {
+		return we.Reason
+	}
+	return ReasonMalformed
+}
+
+func (l *loop) onBlock(m message) error {
+	b, err := l.dec.Block(m.data)
+	if err != nil {
+		return err
+	}
+	if b.Kind == wire.KindEnd {
+		if l.mapper == nil || b.Block != l.block {
+			return rejectf(ReasonUnknownBlock, "ingest: end of block %q, but the running block is %q", b.Block, l.block)
+		}
+		l.endBlock(b.T, m.at)
+		return nil
+	}
+	return l.startBlock(b, m.at)
+}
+
+// startBlock opens the block's stimulus, mapper and binner; only when all
+// three are good does it end the running block and switch to the new one,
+// so a rejected start leaves the running block as it was.
+func (l *loop) startBlock(b wire.Block, at time.Time) error {
+	fail := func(reason string, err error) error {
+		l.rejected = append(l.rejected, b.Block)
+		if len(l.rejected) > rejectedBlocks {
+			l.rejected = l.rejected[1:]
+		}
+		l.r.mu.Lock()
+		l.r.health.RejectedBlock = b.Block
+		l.r.health.BlockError = err.Error()
+		l.r.mu.Unlock()
+		return &rejection{reason: reason, err: err}
+	}
+	src, err := openStimulus(b.Stimulus, l.r.opt.StimuliDir)
+	if err != nil {
+		return fail(ReasonBadStimulus, fmt.Errorf("ingest: block %q: %w", b.Block, err))
+	}
+	cfg := online.Config{
+		Width:         src.Width(),
+		Height:        src.Height(),
+		Lags:          b.Lags,
+		FramePeriod:   b.FramePeriod,
+		White:         src.White(),
+		PixelVariance: src.PixelVariance(),
+		Target:        l.target,
+		Fraction:      l.fraction,
+		Geometry:      geometry(b.Geometry),
+	}
+	mp, err := online.NewMapper(cfg)
+	if err != nil {
+		return fail(ReasonBadConfig, fmt.Errorf("ingest: block %q: %w", b.Block, err))
+	}
+	bn, err := binning.New(binning.Config{FramePeriod: mp.Config().FramePeriod, Grace: l.r.opt.Grace, MaxUnits: l.r.opt.MaxUnits})
+	if err != nil {
+		return fail(ReasonBadConfig, fmt.Errorf("ingest: block %q: %w", b.Block, err))
+	}
+	if l.mapper != nil {
+		// A new start ends the running block: its last bins are flushed.
+		l.endBlock(math.Inf(1), at)
+	}
+	l.block, l.src, l.mapper, l.binner = b.Block, src, mp, bn
+	l.frame = make([]float64, src.Width()*src.Height())
+	l.ids = map[string]int{}
+	l.lastBins, l.dirty = 0, false
+	l.lastBinEnd = math.NaN()
+	for id, on := range l.stc {
+		mp.FlagSTC(id, on)
+	}
+	l.r.mu.Lock()
+	l.r.health.Block = b.Block
+	l.r.health.BlockState = "running"
+	l.r.health.Blocks++
+	l.r.health.Units = 0
+	l.r.mu.Unlock()
+	l.publish(mp.Update())
+	return nil
+}
+
+// endBlock flushes the last bins (up to t; +Inf for all) and publishes a
+// final update. The snapshot stays visible until the next block starts.
+func (l *loop) endBlock(t float64, at time.Time) {
+	if math.IsInf(t, 1) {
+		t = l.streamT
+		if math.IsNaN(t) {
+			t = 0
+		}
+		t += l.r.opt.Grace + l.mapper.Config().FramePeriod
+	}
+	if err := l.binner.End(t); err != nil {
+		l.r.reject(ReasonBadFrames, fmt.Errorf("ingest: end of block %q: %w", l.block, err))
+	}
+	l.binner.Flush()
+	l.drain(at)
+	l.update()
+	late, held := l.binCounts()
+	l.lateBase, l.heldBase = late, held
+	l.mapper, l.binner, l.src = nil, nil, nil
+	l.r.mu.Lock()
+	l.r.health.BlockState = "ended"
+	l.r.mu.Unlock()
+}
+
+func (l *loop) onFrames(m message) error {
+	if err := l.dec.FramesTo(&l.frames, m.data); err != nil {
+		return err
+	}
+	f := &l.frames
+	if l.mapper == nil || f.Block != l.block {
+		for _, id := range l.rejected {
+			if id == f.Block {
+				return rejectf(ReasonBlockRejected, "ingest: frames of rejected block %q", f.Block)
+			}
+		}
+		if l.mapper == nil {
+			return rejectf(ReasonNoBlock, "ingest: frames of block %q while no block runs", f.Block)
+		}
+		return rejectf(ReasonUnknownBlock, "ingest: frames of block %q, but the running block is %q", f.Block, l.block)
+	}
+	if n := l.src.Frames(); n >= 0 {
+		for _, ix := range f.Index {
+			if ix >= n {
+				return rejectf(ReasonFrameRange, "ingest: frame %d past the end of a %d-frame stimulus", ix, n)
+			}
+		}
+	}
+	if err := l.binner.AddFrames(f.Index, f.T); err != nil {
+		return &rejection{reason: ReasonBadFrames, err: fmt.Errorf("ingest: %w", err)}
+	}
+	if k := len(f.T); k > 0 {
+		l.seen(f.T[k-1])
+		// Frames flowing while spikes are silent: spikes more than
+		// quietAdvance behind the frames count as late, so that bins
+		// still close when no unit fires.
+		l.binner.Advance(f.T[k-1] - quietAdvance)
+	}
+	l.drain(m.at)
+	return nil
+}
+
+func (l *loop) onSpikes(m message) error {
+	if err := l.dec.SpikesTo(&l.spikes, m.data); err != nil {
+		return err
+	}
+	s := &l.spikes
+	if l.mapper == nil {
+		// Spikes flow between blocks too; they are simply not mapped.
+		return nil
+	}
+	// Check the unit cap before registering anything, so that a refused
+	// message leaves the mapper as it was.
+	clear(l.fresh)
+	have := l.mapper.Units()
+	for _, id := range s.Unit {
+		if _, ok := l.fresh[id]; ok {
+			continue
+		}
+		if _, ok := l.ids[id]; ok {
+			continue
+		}
+		l.fresh[id] = 0
+		if have+len(l.fresh) > l.r.opt.MaxUnits {
+			return rejectf(ReasonUnitCap, "ingest: spikes message would pass the cap of %d unit ids", l.r.opt.MaxUnits)
+		}
+	}
+	l.units = l.units[:0]
+	for _, id := range s.Unit {
+		u, ok := l.ids[id]
+		if !ok {
+			u = l.mapper.Unit(id)
+			l.ids[id] = u
+		}
+		l.units = append(l.units, u)
+	}
+	l.binner.AddSpikes(l.units, s.T)
+	l.spikesTotal += uint64(len(s.T))
+	if k := len(s.T); k > 0 {
+		l.seen(s.T[k-1])
+	}
+	if len(l.fresh) > 0 {
+		n := l.mapper.Units()
+		l.r.mu.Lock()
+		l.r.health.Units = n
+		l.r.mu.Unlock()
+	}
+	l.drain(m.at)
+	return nil
+}
+
+func (l *loop) onControl(m message) error {
+	c, err := l.dec.Control(m.data)
+	if err != nil {
+		return err
+	}
+	switch c.Command {
+	case wire.CommandReset:
+		l.reset()
+	case wire.CommandFlagSTC:
+		return l.flagSTC(c.Unit, true)
+	case wire.CommandUnflagSTC:
+		return l.flagSTC(c.Unit, false)
+	case wire.CommandCriterion:
+		return l.setCriterion(c.Target, c.Fraction)
+	default:
+		return rejectf(ReasonUnknownCmd, "ingest: unknown control command %q", c.Command)
+	}
+	return nil
+}
+
+func (l *loop) seen(t float64) {
+	if math.IsNaN(l.streamT) || t > l.streamT {
+		l.streamT = t
+	}
+}
+
+// drain hands every closed bin to the mapper.
+func (l *loop) drain(at time.Time) {
+	closed := false
+	for l.binner.Next(&l.bin) {
+		if err := l.src.FrameTo(l.frame, l.bin.Frame); err != nil {
+			l.r.reject(ReasonFrameRange, fmt.Errorf("ingest: bin of frame %d: %w", l.bin.Frame, err))
+			continue
+		}
+		l.mapper.AddBin(l.frame, l.bin.Counts)
+		l.binsTotal++
+		l.lastBinEnd = l.bin.End
+		closed = true
+	}
+	if closed && !l.dirty {
+		// The first bins since the last update: they wait longest.
+		l.closedAt = at
+		l.dirty = true
+	}
+}
+
+func (l *loop) maybeUpdate() {
+	if l.mapper == nil {
+		return
+	}
+	if now := l.r.opt.Now(); now.Sub(l.lastUpdate) >= l.r.opt.UpdateEvery {
+		l.update()
+	}
+}
+
+// update folds the new bins into the estimates and publishes a snapshot.
+func (l *loop) update() {
+	now := l.r.opt.Now()
+	l.lastUpdate = now
+	if l.mapper == nil {
+		return
+	}
+	lag := math.NaN()
+	if l.dirty && !l.closedAt.IsZero() {
+		lag = now.Sub(l.closedAt).Seconds()
+	}
+	l.publish(l.mapper.Update())
+	l.dirty = false
+	late, held := l.binCounts()
+	l.r.mu.Lock()
+	h := &l.r.health
+	h.Updates++
+	h.LastUpdate = stamp(now)
+	h.Bins = l.binsTotal
+	h.SpikesTotal = l.spikesTotal
+	h.LateSpikes = late
+	h.HeldFrames = held
+	h.StreamTime = l.streamT
+	h.BinTime = l.lastBinEnd
+	h.StreamLag = l.streamT - l.lastBinEnd
+	if !math.IsNaN(lag) {
+		h.Lag = lag
+	}
+	h.Units = l.mapper.Units()
+	l.r.mu.Unlock()
+}
+
+// publish stores s for readers, naming the block when the mapper did not.
+func (l *loop) publish(s *online.Snapshot) {
+	if s == nil {
+		return
+	}
+	if s.Block == "" {
+		cp := *s
+		cp.Block = l.block
+		s = &cp
+	}
+	l.r.snap.Store(s)
+}
+
+func (l *loop) reset() {
+	l.r.mu.Lock()
+	l.r.health.Resets++
+	l.r.mu.Unlock()
+	if l.mapper == nil {
+		return
+	}
+	l.mapper.Reset()
+	l.publish(l.mapper.Update())
+}
+
+func (l *loop) flagSTC(id string, on bool) error {
+	if on {
+		l.stc[id] = true
+	} else {
+		delete(l.stc, id)
+	}
+	if l.mapper == nil {
+		return nil
+	}
+	l.mapper.FlagSTC(id, on)
+	return nil
+}
+
+func (l *loop) setCriterion(target, fraction float64) error {
+	l.target, l.fraction = target, fraction
+	if l.mapper != nil {
+		l.mapper.SetCriterion(target, fraction)
+		l.publish(l.mapper.Update())
+	}
+	return nil
+}
