@@ -1,0 +1,103 @@
+package display
+
+import (
+	"context"
+	"net/http"
+	"sync"
+	"time"
+)
+
+// TokenHeader carries the access token of controls and exports; the query
+// parameter "token" is accepted as well.
+const TokenHeader = "X-Livefield-Token"
+
+// Options configure a Server.
+type Options struct {
+	// Token, when not empty, is required by the controls (POST /api/…) and
+	// the exports (/export/…), and lets pages from other origins open the
+	// websocket. Empty means no token (the default; listen on loopback).
+	Token string
+	// Poll is how often the source is asked for a new snapshot (default 1 s).
+	Poll time.Duration
+}
+
+// Server mounts the page, the websocket, the JSON API and the exports on one
+// handler. ServeHTTP may be called from any goroutine; Run is called once.
+type Server struct {
+	src   SnapshotSource
+	hub   *Hub
+	mux   *http.ServeMux
+	token string
+	poll  time.Duration
+}
+
+// NewServer returns a server reading src.
+func NewServer(src SnapshotSource, opt Options) *Server {
+	s := &Server{src: src, hub: NewHub(opt.Token), mux: http.NewServeMux(), token: opt.Token, poll: opt.Poll}
+	if s.poll <= 0 {
+		s.poll = time.Second
+	}
+	api := NewAPI(src)
+	page := Page()
+	s.mux.Handle("GET /{$}", page)
+	s.mux.Handle("GET /static/", page)
+	s.mux.Handle("GET /ws", s.hub)
+	s.mux.Handle("GET /api/", api)
+	s.mux.Handle("/api/", s.guard(api)) // the commands
+	s.mux.Handle("/export/", s.guard(Export(src)))
+	return s
+}
+
+// Hub is the server's websocket hub.
+func (s *Server) Hub() *Hub { return s.hub }
+
+// ServeHTTP implements http.Handler.
+func (s *Server) ServeHTTP(w http.ResponseWriter, r *http.Request) { s.mux.ServeHTTP(w, r) }
+
+// Run pushes each new snapshot of the source to the browsers, every Poll,
+// until ctx is cancelled; then it closes the websockets and returns.
+func (s *Server) Run(ctx context.Context) {
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() { defer wg.Done(); s.hub.Run(ctx) }()
+	t := time.NewTicker(s.poll)
+	defer t.Stop()
+	for {
+		s.hub.Publish(s.src.Snapshot())
+		select {
+		case <-ctx.Done():
+			wg.Wait()
+			return
+		case <-t.C:
+		}
+	}
+}
+
+// guard refuses requests without the token, when one is configured.
+func (s *Server) guard(h http.Handler) http.Handler {
+	if s.token == "" {
+		return h
+	}
+	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		if !tokenOK(r, s.token) {
+			fail(w, http.StatusUnauthorized, "display: missing or wrong token (header %s or ?token=)", TokenHeader)
+			return
+		}
+		h.ServeHTTP(w, r)
+	})
+}
+
+// NewHTTPServer returns an http.Server for h on addr with timeouts that
+// bound slow or idle clients. The write timeout covers exports; websockets
+// clear it on upgrade and keep their own deadlines.
+func NewHTTPServer(addr string, h http.Handler) *http.Server {
+	return &http.Server{
+		Addr:              addr,
+		Handler:           h,
+		ReadHeaderTimeout: 5 * time.Second,
+		ReadTimeout:       15 * time.Second,
+		WriteTimeout:      60 * time.Second,
+		IdleTimeout:       120 * time.Second,
+		MaxHeaderBytes:    16 << 10,
+	}
+}
