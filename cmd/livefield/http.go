@@ -4,24 +4,16 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"io"
 	"net"
-	"net/http"
+	"sync"
 	"syscall"
 	"time"
 
 	"livefield/display"
 )
 
-// HTTP server timeouts (common practice, no source: a slow client cannot
-// hold a connection open forever; the JSON responses are small).
-const (
-	readHeaderTimeout = 5 * time.Second
-	readTimeout       = 10 * time.Second
-	writeTimeout      = 30 * time.Second
-	idleTimeout       = 120 * time.Second
-	shutdownTimeout   = 5 * time.Second
-)
+// shutdownTimeout bounds the wait for open requests at shutdown.
+const shutdownTimeout = 5 * time.Second
 
 // listen opens addr, explaining a taken port.
 func listen(addr string) (net.Listener, error) {
@@ -35,26 +27,18 @@ func listen(addr string) (net.Listener, error) {
 	return ln, nil
 }
 
-// handler is the whole HTTP surface: the JSON API under /api/.
-func handler(src display.SnapshotSource) http.Handler {
-	mux := http.NewServeMux()
-	mux.Handle("/api/", display.NewAPI(src))
-	mux.HandleFunc("GET /{$}", func(w http.ResponseWriter, _ *http.Request) {
-		w.Header().Set("Content-Type", "text/plain; charset=utf-8")
-		_, _ = io.WriteString(w, "livefield\n\nGET /api/units\nGET /api/units/{id}\nGET /api/health\nPOST /api/reset\nPOST /api/units/{id}/stc\nPOST /api/criterion\n")
-	})
-	return mux
-}
-
-// serveHTTP serves h on ln until ctx is done, then shuts down gracefully.
-func serveHTTP(ctx context.Context, ln net.Listener, h http.Handler) error {
-	srv := &http.Server{
-		Handler:           h,
-		ReadHeaderTimeout: readHeaderTimeout,
-		ReadTimeout:       readTimeout,
-		WriteTimeout:      writeTimeout,
-		IdleTimeout:       idleTimeout,
-	}
+// serveHTTP serves the page, websocket, JSON API and exports of src on ln
+// until ctx is done, then shuts down gracefully. token, when set, guards
+// the commands and exports.
+func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, token string) error {
+	web := display.NewServer(src, display.Options{Token: token})
+	srv := display.NewHTTPServer("", web) // read, write and idle timeouts set there
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() { defer wg.Done(); web.Run(ctx) }()
+	defer wg.Wait()
 	errc := make(chan error, 1)
 	go func() { errc <- srv.Serve(ln) }()
 	select {
@@ -62,8 +46,8 @@ func serveHTTP(ctx context.Context, ln net.Listener, h http.Handler) error {
 		return fmt.Errorf("http: %w", err)
 	case <-ctx.Done():
 	}
-	sctx, cancel := context.WithTimeout(context.Background(), shutdownTimeout)
-	defer cancel()
+	sctx, stop := context.WithTimeout(context.Background(), shutdownTimeout)
+	defer stop()
 	err := srv.Shutdown(sctx)
 	<-errc
 	return err

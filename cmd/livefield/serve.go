@@ -12,13 +12,14 @@ import (
 
 	"github.com/nats-io/nats.go"
 
+	"livefield/display"
 	"livefield/stream/ingest"
 )
 
 func init() {
 	register("serve", command{
 		summary: "map the live stream of one rig and serve the estimates over HTTP",
-		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N]",
+		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N] [--api-token T]",
 		example: "livefield serve --nats nats://127.0.0.1:4222 --rig rig1 --stimuli ./stimuli --http 127.0.0.1:8080",
 		run:     runServe,
 	})
@@ -120,6 +121,7 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
 	grace := fs.Duration("grace", 250*time.Millisecond, "how long a bin waits for late spikes")
 	maxUnits := fs.Int("max-units", ingest.DefaultMaxUnits, "cap on distinct unit ids per block")
+	apiToken := fs.String("api-token", "", "when set, required by the HTTP commands (POST /api/…) and exports, header "+display.TokenHeader)
 	if err := parse(fs, args); err != nil {
 		return err
 	}
@@ -160,7 +162,7 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	}
 	defer r.Close()
 	fmt.Fprintf(stdout, "livefield: mapping %s.* from %s\nlivefield: open http://%s/\n", prefix, redact(nf.url), ln.Addr())
-	return serveHTTP(ctx, ln, handler(r))
+	return serveHTTP(ctx, ln, r, *apiToken)
 }
 
 // redact drops a user or password from a URL for messages.

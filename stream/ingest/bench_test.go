@@ -264,7 +264,7 @@ func BenchmarkLatency(b *testing.B) {
 	b.StopTimer()
 	b.ReportMetric(total.Seconds()*1000/float64(b.N), "ms-latency")
 	h := r.Counters()
-	b.ReportMetric(h.Lag*1000, "ms-update-wait")
+	b.ReportMetric(float64(h.Lag)*1000, "ms-update-wait")
 	if len(h.Rejected) != 0 {
 		b.Fatalf("rejected %v", h.Rejected)
 	}

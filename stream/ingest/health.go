@@ -3,6 +3,8 @@ package ingest
 import (
 	"maps"
 	"time"
+
+	"livefield/online"
 )
 
 // Rejection reasons raised by the ingest itself; the wire decoders add
@@ -49,22 +51,24 @@ type Health struct {
 	Blocks        uint64 `json:"blocks"`
 	Units         int    `json:"units"`
 
-	Bins        uint64  `json:"bins"`        // bins given to the mapper
-	LateSpikes  uint64  `json:"late_spikes"` // spikes that arrived after their bin had closed
-	HeldFrames  uint64  `json:"held_frames"` // bins whose frame was held over from the one before
-	SpikesTotal uint64  `json:"spikes"`      // spikes accepted
-	Resets      uint64  `json:"resets"`      // estimate resets
-	Updates     uint64  `json:"updates"`     // snapshots published
-	LastUpdate  string  `json:"last_update"` // RFC 3339, wall clock
-	StreamTime  float64 `json:"stream_t"`    // latest spike or frame time seen
-	BinTime     float64 `json:"bin_t"`       // end of the latest bin given to the mapper
+	Bins        uint64       `json:"bins"`        // bins given to the mapper
+	LateSpikes  uint64       `json:"late_spikes"` // spikes that arrived after their bin had closed
+	HeldFrames  uint64       `json:"held_frames"` // bins whose frame was held over from the one before
+	SpikesTotal uint64       `json:"spikes"`      // spikes accepted
+	Resets      uint64       `json:"resets"`      // estimate resets
+	Updates     uint64       `json:"updates"`     // snapshots published
+	LastUpdate  string       `json:"last_update"` // RFC 3339, wall clock
+	StreamTime  online.Float `json:"stream_t"`    // latest spike or frame time seen (null before any)
+	BinTime     online.Float `json:"bin_t"`       // end of the latest bin given to the mapper
+	// IdleSpikes are spikes received while no block ran (not mapped).
+	IdleSpikes uint64 `json:"idle_spikes"`
 	// StreamLag is StreamTime minus BinTime: how far the estimates trail
 	// the data received (at least the grace).
-	StreamLag float64 `json:"stream_lag_s"`
+	StreamLag online.Float `json:"stream_lag_s"`
 	// Lag is the wall time from the arrival of the message that closed the
 	// first bin of the latest update to that update: how long closed bins
 	// wait before readers see them (at most about UpdateEvery).
-	Lag float64 `json:"lag_s"`
+	Lag online.Float `json:"lag_s"`
 
 	closing bool
 }

@@ -131,7 +131,7 @@ func TestLateSpikes(t *testing.T) {
 	if h.Bins != before.Bins {
 		t.Errorf("late spikes changed the bins: %d → %d", before.Bins, h.Bins)
 	}
-	if h.StreamLag < 0.25 {
+	if !(h.StreamLag >= 0.25) {
 		t.Errorf("stream lag %v s, want at least the 0.25 s grace", h.StreamLag)
 	}
 }
@@ -232,6 +232,7 @@ func TestRejections(t *testing.T) {
 		{"missing field", "spikes", `{"t":[10.5]}`, wire.ReasonMissingField},
 		{"frames backwards across messages", "frames", `{"block":"b1","index":[700,701],"t":[5,5.1]}`, ReasonBadFrames},
 		{"frames of an unknown block", "frames", `{"block":"nope","index":[600],"t":[11]}`, ReasonUnknownBlock},
+		{"spikes of another block", "spikes", `{"block":"nope","unit":["on"],"t":[10.5]}`, ReasonUnknownBlock},
 		{"broken stimulus spec", "block", `{"kind":"start","block":"b2","t":20,"stimulus":{"type":"spiral","width":8,"height":8}}`, ReasonBadStimulus},
 		{"frames of the rejected block", "frames", `{"block":"b2","index":[0],"t":[20]}`, ReasonBlockRejected},
 		{"missing movie file", "block", `{"kind":"start","block":"b3","t":20,"stimulus":{"type":"movie","file":"absent.npy"}}`, ReasonBadStimulus},

@@ -256,8 +256,14 @@ func (l *loop) onSpikes(m message) error {
 	}
 	s := &l.spikes
 	if l.mapper == nil {
-		// Spikes flow between blocks too; they are simply not mapped.
+		// Spikes flow between blocks too; they are counted, not mapped.
+		l.r.mu.Lock()
+		l.r.health.IdleSpikes += uint64(len(s.T))
+		l.r.mu.Unlock()
 		return nil
+	}
+	if s.Block != "" && s.Block != l.block {
+		return rejectf(ReasonUnknownBlock, "ingest: spikes of block %q, but the running block is %q", s.Block, l.block)
 	}
 	// Check the unit cap before registering anything, so that a refused
 	// message leaves the mapper as it was.
@@ -376,11 +382,11 @@ func (l *loop) update() {
 	h.SpikesTotal = l.spikesTotal
 	h.LateSpikes = late
 	h.HeldFrames = held
-	h.StreamTime = l.streamT
-	h.BinTime = l.lastBinEnd
-	h.StreamLag = l.streamT - l.lastBinEnd
+	h.StreamTime = online.Float(l.streamT)
+	h.BinTime = online.Float(l.lastBinEnd)
+	h.StreamLag = online.Float(l.streamT - l.lastBinEnd)
 	if !math.IsNaN(lag) {
-		h.Lag = lag
+		h.Lag = online.Float(lag)
 	}
 	h.Units = l.mapper.Units()
 	l.r.mu.Unlock()

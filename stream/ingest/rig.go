@@ -167,6 +167,8 @@ func Start(ctx context.Context, nc *nats.Conn, opt Options) (*Rig, error) {
 		logged: map[string]time.Time{},
 	}
 	r.health.Rejected = map[string]uint64{}
+	nan := online.Float(math.NaN()) // unknown until the first update; JSON null
+	r.health.StreamTime, r.health.BinTime, r.health.StreamLag, r.health.Lag = nan, nan, nan, nan
 	r.loop.init(r)
 	r.ctx, r.stop = context.WithCancel(ctx)
 	// One subscription covers the four subjects, so that the messages of
