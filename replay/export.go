@@ -1,0 +1,196 @@
+package replay
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"strings"
+	"time"
+
+	"livefield/display"
+	"livefield/online"
+	"livefield/replay/session"
+	"livefield/stream/npy"
+)
+
+// ExportOptions configure Export.
+type ExportOptions struct {
+	Feed FeedOptions
+	// Block is the block to export ("" for the last one in the session).
+	Block string
+	// OnDamage is told of damaged spans of the file (they are skipped).
+	OnDamage func(*session.CorruptError)
+	// Progress, when set, is called about once per ProgressEvery of wall
+	// time with the counts so far.
+	Progress      func(FeedStats)
+	ProgressEvery time.Duration
+}
+
+// UnitFile is the content of units/<name>.json: one unit's summary, its
+// features and the layout of its NPY files.
+type UnitFile struct {
+	online.UnitSummary
+	Shape       [3]int          `json:"shape"` // lags, height, width of both NPY files
+	FramePeriod online.Float    `json:"frame_period_s"`
+	Intercept   online.Float    `json:"intercept"`
+	Features    online.Features `json:"features"`
+	Ridge       string          `json:"ridge_file"` // relative to the export directory
+	STA         string          `json:"sta_file"`
+}
+
+// Exported lists what Export wrote.
+type Exported struct {
+	Block   string   `json:"block"`
+	Units   []string `json:"units"` // unit ids, in the order of the snapshot
+	Files   []string `json:"files"` // paths relative to the directory
+	Records int64    `json:"records"`
+	Damaged int64    `json:"damaged"`
+}
+
+// Export runs the whole session at full speed and writes the final
+// estimates of one block into dir (created if needed):
+//
+//	summary.json          the block's final snapshot (block summary and unit summaries)
+//	contact.png           every unit's map at its peak lag (display.RenderOverview)
+//	units/<name>.npy      ridge weights, float64, shape (lags, height, width)
+//	units/<name>.sta.npy  spike-triggered average, same shape
+//	units/<name>.json     UnitFile
+//
+// where <name> is the unit id with every byte outside [A-Za-z0-9_-]
+// written as %XX.
+func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOptions) (Exported, error) {
+	var out Exported
+	var final *online.Snapshot
+	var finalBlock string
+	fo := opt.Feed
+	user := fo.OnBlockEnd
+	fo.OnBlockEnd = func(block string, s *online.Snapshot, at time.Time) {
+		if opt.Block == "" || block == opt.Block {
+			final, finalBlock = s, block
+		}
+		if user != nil {
+			user(block, s, at)
+		}
+	}
+	f, err := NewFeeder(fo)
+	if err != nil {
+		return out, err
+	}
+	every := opt.ProgressEvery
+	if every <= 0 {
+		every = time.Second
+	}
+	next := time.Now().Add(every)
+	var played PlayStats
+	played, err = Play(ctx, r, PlayOptions{OnDamage: opt.OnDamage}, func(rec session.Record) error {
+		_ = f.Record(rec) // refusals are counted in the feeder's stats
+		if opt.Progress != nil && time.Now().After(next) {
+			next = time.Now().Add(every)
+			opt.Progress(f.Stats())
+		}
+		return nil
+	})
+	out.Records, out.Damaged = played.Records, played.Damaged
+	if err != nil {
+		return out, err
+	}
+	f.Finish()
+	if opt.Progress != nil {
+		opt.Progress(f.Stats())
+	}
+	if final == nil {
+		if opt.Block != "" {
+			return out, fmt.Errorf("replay: the session has no block %q", opt.Block)
+		}
+		return out, errors.New("replay: the session has no block")
+	}
+	out.Block = finalBlock
+	if err := os.MkdirAll(filepath.Join(dir, "units"), 0o755); err != nil {
+		return out, fmt.Errorf("replay: %w", err)
+	}
+	write := func(rel string, b []byte) error {
+		if err := os.WriteFile(filepath.Join(dir, rel), b, 0o644); err != nil {
+			return fmt.Errorf("replay: %w", err)
+		}
+		out.Files = append(out.Files, rel)
+		return nil
+	}
+	var buf bytes.Buffer
+	for _, u := range final.Units {
+		d, ok := final.Detail(u.ID)
+		if !ok {
+			continue
+		}
+		name := "units/" + FileName(u.ID)
+		uf := UnitFile{
+			UnitSummary: d.UnitSummary, Shape: d.Shape, FramePeriod: d.FramePeriod,
+			Intercept: d.Intercept, Features: d.Features,
+			Ridge: name + ".npy", STA: name + ".sta.npy",
+		}
+		shape := d.Shape[:]
+		for _, a := range []struct {
+			rel string
+			v   online.Floats
+		}{{uf.Ridge, d.Ridge}, {uf.STA, d.STA}} {
+			buf.Reset()
+			if err := npy.Write(&buf, shape, floats64(a.v)); err != nil {
+				return out, fmt.Errorf("replay: unit %q: %w", u.ID, err)
+			}
+			if err := write(a.rel, buf.Bytes()); err != nil {
+				return out, err
+			}
+		}
+		b, err := json.MarshalIndent(uf, "", "  ")
+		if err != nil {
+			return out, fmt.Errorf("replay: unit %q: %w", u.ID, err)
+		}
+		if err := write(name+".json", append(b, '\n')); err != nil {
+			return out, err
+		}
+		out.Units = append(out.Units, u.ID)
+	}
+	buf.Reset()
+	if err := display.RenderOverview(&buf, final); err != nil {
+		return out, fmt.Errorf("replay: contact sheet: %w", err)
+	}
+	if err := write("contact.png", buf.Bytes()); err != nil {
+		return out, err
+	}
+	b, err := json.MarshalIndent(final, "", "  ")
+	if err != nil {
+		return out, fmt.Errorf("replay: summary: %w", err)
+	}
+	if err := write("summary.json", append(b, '\n')); err != nil {
+		return out, err
+	}
+	return out, nil
+}
+
+func floats64(v online.Floats) []float64 {
+	out := make([]float64, len(v))
+	for i, x := range v {
+		out[i] = float64(x)
+	}
+	return out
+}
+
+// FileName turns a unit id into a safe file name: letters, digits, '_' and
+// '-' stay, every other byte becomes %XX (so "." and "/" cannot escape the
+// directory, and distinct ids give distinct names).
+func FileName(id string) string {
+	var b strings.Builder
+	for i := 0; i < len(id); i++ {
+		c := id[i]
+		switch {
+		case c >= 'a' && c <= 'z', c >= 'A' && c <= 'Z', c >= '0' && c <= '9', c == '_', c == '-':
+			b.WriteByte(c)
+		default:
+			fmt.Fprintf(&b, "%%%02X", c)
+		}
+	}
+	return b.String()
+}
