@@ -1,14 +1,18 @@
 package online
 
-import "errors"
+import (
+	"errors"
+	"fmt"
+	"math"
+)
 
 // Config describes the estimation for one mapping block.
 type Config struct {
 	Width, Height int     // stimulus frame size in pixels
 	Lags          int     // lags kept per bin (default 12)
 	FramePeriod   float64 // seconds per frame (default 1/60)
-	// Lambda is the ridge penalty; 0 picks the default (DefaultLambdaPerVariance
-	// times the pixel variance, or 100 when that is unknown).
+	// Lambda is the ridge penalty; 0 picks the default: DefaultLambda times
+	// the pixel variance (or times 1 when that is unknown).
 	Lambda float64
 	// Forget is the RLS forgetting factor in (0, 1]; 1 (the default) keeps the
 	// exact ridge solution over all bins.
@@ -20,12 +24,21 @@ type Config struct {
 	PixelVariance float64
 	Target        float64   // target reliability (default 0.9)
 	Fraction      float64   // fraction of significant units for the block criterion (default 0.8)
+	Aperture      float64   // fraction of reliable fields the suggested aperture covers (default 0.9)
 	ChunkSeconds  float64   // length of the alternating split-half chunks (default 5 s)
 	Alpha         float64   // significance level (default 0.001)
 	MinSpikes     int64     // spikes before a unit can be called "no field" (default 300)
 	STCMaxUnits   int       // at most this many units get STC (default 16)
+	STCLags       int       // lags in STC's reduced space (default 3)
 	Geometry      *Geometry // optional, for degrees of visual angle
 }
+
+// DefaultLambda is the default ridge penalty in units of the pixel variance:
+// small against the Gram matrix's diagonal after a few seconds of 60 Hz noise.
+const DefaultLambda = 100
+
+// maxPending bounds the ridge's row buffer between updates.
+const maxPending = 256
 
 // Count is the number of spikes of one unit (by index) in one bin.
 type Count struct {
@@ -36,36 +49,167 @@ type Count struct {
 // ErrConfig is returned for an unusable configuration.
 var ErrConfig = errors.New("online: bad config")
 
-// Mapper keeps every unit's running estimates for one block. It is not safe
-// for concurrent use: one goroutine (the ingest loop) calls AddBin and Update;
-// the Snapshots it returns are immutable and may be shared freely.
-type Mapper struct {
-	cfg   Config
-	ids   []string
-	index map[string]int
-	snap  *Snapshot
+func (c Config) withDefaults() (Config, error) {
+	if c.Width <= 0 || c.Height <= 0 || c.Width*c.Height > 1<<16 {
+		return c, fmt.Errorf("%w: frame %d×%d (need 1…65536 pixels)", ErrConfig, c.Width, c.Height)
+	}
+	def := func(v *float64, d float64) {
+		if *v == 0 {
+			*v = d
+		}
+	}
+	if c.Lags == 0 {
+		c.Lags = 12
+	}
+	if c.Lags < 1 || c.Lags > 64 {
+		return c, fmt.Errorf("%w: lags %d (need 1…64)", ErrConfig, c.Lags)
+	}
+	def(&c.FramePeriod, 1.0/60)
+	if c.Lambda == 0 {
+		v := c.PixelVariance
+		if v <= 0 {
+			v = 1
+		}
+		c.Lambda = DefaultLambda * v
+	}
+	def(&c.Forget, 1)
+	def(&c.Target, 0.9)
+	def(&c.Fraction, 0.8)
+	def(&c.Aperture, 0.9)
+	def(&c.ChunkSeconds, 5)
+	def(&c.Alpha, 0.001)
+	if c.MinSpikes == 0 {
+		c.MinSpikes = 300
+	}
+	if c.STCMaxUnits == 0 {
+		c.STCMaxUnits = 16
+	}
+	if c.STCLags == 0 {
+		c.STCLags = 3
+	}
+	switch {
+	case !(c.FramePeriod > 0) || math.IsInf(c.FramePeriod, 0):
+		return c, fmt.Errorf("%w: frame period %g s", ErrConfig, c.FramePeriod)
+	case !(c.Lambda > 0) || math.IsInf(c.Lambda, 0):
+		return c, fmt.Errorf("%w: lambda %g", ErrConfig, c.Lambda)
+	case !(c.Forget > 0 && c.Forget <= 1):
+		return c, fmt.Errorf("%w: forgetting factor %g (need 0 < ρ ≤ 1)", ErrConfig, c.Forget)
+	case !(c.Target > 0 && c.Target < 1):
+		return c, fmt.Errorf("%w: target reliability %g (need 0…1)", ErrConfig, c.Target)
+	case !(c.Fraction > 0 && c.Fraction <= 1):
+		return c, fmt.Errorf("%w: block fraction %g (need 0…1]", ErrConfig, c.Fraction)
+	case !(c.Alpha > 0 && c.Alpha < 1):
+		return c, fmt.Errorf("%w: alpha %g", ErrConfig, c.Alpha)
+	case !(c.ChunkSeconds > 0):
+		return c, fmt.Errorf("%w: chunk %g s", ErrConfig, c.ChunkSeconds)
+	case c.White && !(c.PixelVariance > 0):
+		return c, fmt.Errorf("%w: a white stimulus needs its pixel variance", ErrConfig)
+	}
+	if c.STCLags > c.Lags {
+		c.STCLags = c.Lags
+	}
+	return c, nil
 }
+
+// Mapper keeps every unit's running estimates for one block. It is not safe
+// for concurrent use: one goroutine (the ingest loop) calls AddBin, Update
+// and the setters; the Snapshots that Update returns are immutable and may be
+// shared freely.
+//
+// Ridge columns: column 0 is the split-half indicator h (1 in half A), and
+// unit u owns column 1+2u (its counts y) and 2+2u (its counts in half A,
+// y·h). The half-A estimate is corrected for the indicator's own fit, so the
+// two half estimates are independent under the null (see halvesTo).
+type Mapper struct {
+	cfg    Config
+	pixels int
+	dim    int
+
+	ids      []string
+	index    map[string]int
+	flagged  map[int]bool
+	received []int64 // every spike given to AddBin, used bin or not
+
+	ring  [][]float64 // the last Lags frames; ring[head] is the newest
+	head  int
+	added int64 // bins added to this block, including those without full history
+	x     []float64
+	yrow  []float64
+
+	used    int64 // bins with full history
+	usedA   int64
+	spikes  []float64 // per unit, over used bins
+	spikesA []float64
+
+	sta      *STA
+	ridge    *Ridge
+	capUnits int // units the ridge has columns for
+
+	stc        map[int]*STC
+	stcResults map[int]*STCResult
+	stcLags    []int
+	stcTurn    int
+	updates    int64
+
+	history [][]HistoryPoint
+	trends  []*Trend
+	snap    *Snapshot
+}
+
+// trendPoints is how many recent updates the reliability trend fits.
+const trendPoints = 60
 
 // NewMapper checks cfg, fills in defaults and returns an empty mapper.
 func NewMapper(cfg Config) (*Mapper, error) {
-	if cfg.Width <= 0 || cfg.Height <= 0 {
-		return nil, ErrConfig
+	cfg, err := cfg.withDefaults()
+	if err != nil {
+		return nil, err
 	}
-	return &Mapper{cfg: cfg, index: map[string]int{}}, nil
+	m := &Mapper{
+		cfg:     cfg,
+		pixels:  cfg.Width * cfg.Height,
+		index:   map[string]int{},
+		flagged: map[int]bool{},
+	}
+	m.dim = m.pixels * cfg.Lags
+	m.ring = make([][]float64, cfg.Lags)
+	for i := range m.ring {
+		m.ring[i] = make([]float64, m.pixels)
+	}
+	m.x = make([]float64, m.dim)
+	m.capUnits = 8
+	m.ridge, err = NewRidge(m.dim, 1+2*m.capUnits, cfg.Lambda, cfg.Forget)
+	if err != nil {
+		return nil, err
+	}
+	m.yrow = make([]float64, 1+2*m.capUnits)
+	m.sta = NewSTA(m.pixels, cfg.Lags)
+	m.stc = map[int]*STC{}
+	m.stcResults = map[int]*STCResult{}
+	m.snap = m.emptySnapshot()
+	return m, nil
 }
 
 // Config returns the configuration in force, defaults filled in.
 func (m *Mapper) Config() Config { return m.cfg }
 
 // Unit returns the index of the unit with this id, registering it when new.
-// A new unit's counts are zero in every bin before it appeared.
+// A new unit's counts are zero in every bin before it appeared, which keeps
+// its ridge estimate exact.
 func (m *Mapper) Unit(id string) int {
 	if i, ok := m.index[id]; ok {
 		return i
 	}
-	m.index[id] = len(m.ids)
+	i := len(m.ids)
+	m.index[id] = i
 	m.ids = append(m.ids, id)
-	return len(m.ids) - 1
+	m.received = append(m.received, 0)
+	m.spikes = append(m.spikes, 0)
+	m.spikesA = append(m.spikesA, 0)
+	m.history = append(m.history, nil)
+	m.trends = append(m.trends, NewTrend(trendPoints))
+	m.sta.Grow(len(m.ids))
+	return i
 }
 
 // UnitID is the id of unit index i.
@@ -74,20 +218,132 @@ func (m *Mapper) UnitID(i int) string { return m.ids[i] }
 // Units is the number of units registered.
 func (m *Mapper) Units() int { return len(m.ids) }
 
+// Bins is the number of bins added with full lag history.
+func (m *Mapper) Bins() int64 { return m.used }
+
+// growColumns makes room in the ridge for every registered unit. Buffered
+// rows are folded in first, since they were written with the old width.
+func (m *Mapper) growColumns() {
+	if len(m.ids) <= m.capUnits {
+		return
+	}
+	for m.capUnits < len(m.ids) {
+		m.capUnits *= 2
+	}
+	m.ridge.Flush()
+	m.ridge.SetCols(1 + 2*m.capUnits)
+	m.yrow = make([]float64, 1+2*m.capUnits)
+}
+
 // AddBin adds one bin: frame is the stimulus frame on screen during the bin
 // (row-major, width×height); counts are the spikes per unit index in the bin.
-// It does not allocate in steady state.
-func (m *Mapper) AddBin(frame []float64, counts []Count) {}
+// Unit indices must come from Unit. It does not allocate in steady state.
+func (m *Mapper) AddBin(frame []float64, counts []Count) {
+	if len(frame) != m.pixels {
+		panic(fmt.Sprintf("online: frame of %d pixels, want %d", len(frame), m.pixels))
+	}
+	for _, c := range counts {
+		m.received[c.Unit] += int64(c.N)
+	}
+	m.head = (m.head + 1) % len(m.ring)
+	copy(m.ring[m.head], frame)
+	m.added++
+	if m.added < int64(m.cfg.Lags) {
+		return // not yet a full history: the bin is not used
+	}
+	for lag := range m.cfg.Lags {
+		src := m.ring[(m.head-lag+len(m.ring))%len(m.ring)]
+		copy(m.x[lag*m.pixels:(lag+1)*m.pixels], src)
+	}
+	chunk := int64(float64(m.used) * m.cfg.FramePeriod / m.cfg.ChunkSeconds)
+	halfA := chunk%2 == 0
+	m.used++
+	if halfA {
+		m.usedA++
+	}
+	m.growColumns()
+	m.sta.AddBin(m.x, halfA, counts)
+	if halfA {
+		m.yrow[0] = 1
+	}
+	for _, c := range counts {
+		m.spikes[c.Unit] += c.N
+		m.yrow[1+2*c.Unit] += c.N
+		if halfA {
+			m.spikesA[c.Unit] += c.N
+			m.yrow[2+2*c.Unit] += c.N
+		}
+		if s := m.stc[c.Unit]; s != nil {
+			s.AddBin(m.x, c.N)
+		}
+	}
+	m.ridge.AddRow(m.x, m.yrow)
+	if m.ridge.Pending() >= maxPending {
+		m.ridge.Flush() // bounded buffer when Update is called rarely
+	}
+	m.yrow[0] = 0
+	for _, c := range counts {
+		m.yrow[1+2*c.Unit] = 0
+		m.yrow[2+2*c.Unit] = 0
+	}
+}
 
-// Update folds the bins added since the last call into the estimates,
-// recomputes every unit's statistics and returns a new Snapshot.
-func (m *Mapper) Update() *Snapshot { return &Snapshot{} }
+// Reset forgets all estimates (the electrode moved); units stay registered
+// and the next bins start a fresh lag history.
+func (m *Mapper) Reset() {
+	m.added, m.used, m.usedA = 0, 0, 0
+	for i := range m.ids {
+		m.received[i], m.spikes[i], m.spikesA[i] = 0, 0, 0
+		m.history[i] = nil
+		m.trends[i].Reset()
+	}
+	m.ridge.Reset()
+	m.sta.Reset()
+	m.stc = map[int]*STC{}
+	m.stcResults = map[int]*STCResult{}
+	m.stcLags = nil
+	m.snap = m.emptySnapshot()
+}
 
-// Reset forgets all estimates (the electrode moved); units stay registered.
-func (m *Mapper) Reset() {}
+// FlagSTC asks for (or stops) spike-triggered covariance on one unit. STC
+// accumulates from the bins that follow. Unknown ids are ignored and
+// reported false.
+func (m *Mapper) FlagSTC(id string, on bool) bool {
+	u, ok := m.index[id]
+	if !ok {
+		return false
+	}
+	if on {
+		m.flagged[u] = true
+	} else {
+		delete(m.flagged, u)
+		delete(m.stc, u)
+		delete(m.stcResults, u)
+	}
+	return true
+}
 
-// FlagSTC asks for (or stops) spike-triggered covariance on one unit.
-func (m *Mapper) FlagSTC(id string, on bool) {}
+// SetCriterion changes the target reliability and the block fraction; a
+// value outside (0, 1) leaves that setting as it was.
+func (m *Mapper) SetCriterion(target, fraction float64) {
+	if target > 0 && target < 1 {
+		m.cfg.Target = target
+	}
+	if fraction > 0 && fraction <= 1 {
+		m.cfg.Fraction = fraction
+	}
+}
 
-// SetCriterion changes the target reliability and the block fraction.
-func (m *Mapper) SetCriterion(target, fraction float64) {}
+// Snapshot is the result of the latest Update.
+func (m *Mapper) Snapshot() *Snapshot { return m.snap }
+
+func (m *Mapper) emptySnapshot() *Snapshot {
+	return &Snapshot{
+		Shape:       [3]int{m.cfg.Lags, m.cfg.Height, m.cfg.Width},
+		FramePeriod: Float(m.cfg.FramePeriod),
+		Lambda:      Float(m.cfg.Lambda),
+		Summary:     BlockSummary{Target: Float(m.cfg.Target), Fraction: Float(m.cfg.Fraction), ETA: Float(math.NaN())},
+		Units:       []UnitSummary{},
+		details:     map[string]*UnitDetail{},
+	}
+}

@@ -1,0 +1,126 @@
+package online
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"runtime"
+	"strconv"
+	"testing"
+	"time"
+)
+
+// benchWorkload feeds seconds of 60 Hz binary noise with units spiking at
+// about rate Hz each, some with fields, one Update per second.
+type benchWorkload struct {
+	m      *Mapper
+	frames [][]float64
+	counts [][]Count
+}
+
+func newBenchWorkload(b *testing.B, w, h, lags, units int, rate float64) *benchWorkload {
+	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1})
+	if err != nil {
+		b.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(11, 12))
+	for u := range units {
+		m.Unit("u" + strconv.Itoa(u))
+	}
+	// One second of frames and counts, replayed; the estimator cannot tell.
+	bw := &benchWorkload{m: m}
+	for range 60 {
+		f := make([]float64, w*h)
+		binaryFrame(rng, f)
+		bw.frames = append(bw.frames, f)
+		var c []Count
+		for u := range units {
+			if n := poisson(rng, rate/60); n > 0 {
+				c = append(c, Count{Unit: u, N: n})
+			}
+		}
+		bw.counts = append(bw.counts, c)
+	}
+	// Warm up: fill the lag history and a first update.
+	bw.second()
+	m.Update()
+	return bw
+}
+
+func (bw *benchWorkload) second() {
+	for i, f := range bw.frames {
+		bw.m.AddBin(f, bw.counts[i])
+	}
+}
+
+func reportRealtime(b *testing.B, start time.Time) {
+	perSecond := time.Since(start).Seconds() / float64(b.N)
+	b.ReportMetric(1/perSecond, "x-realtime")
+	var ms runtime.MemStats
+	runtime.ReadMemStats(&ms)
+	b.ReportMetric(float64(ms.HeapSys)/(1<<20), "MB-heap")
+}
+
+// BenchmarkReferenceWorkload is the complete per-second update (60 bins of
+// STA and ridge rows, then the block RLS update, confidence, reliability,
+// features and the block summary) at the reference workload: binary noise
+// 16×16 at 60 Hz, 12 lags (D = 3072), 384 units at 10 spikes/s.
+// x-realtime is seconds of data per second of compute.
+func BenchmarkReferenceWorkload(b *testing.B) {
+	bw := newBenchWorkload(b, 16, 16, 12, 384, 10)
+	b.ReportAllocs()
+	b.ResetTimer()
+	start := time.Now()
+	for range b.N {
+		bw.second()
+		bw.m.Update()
+	}
+	reportRealtime(b, start)
+}
+
+// BenchmarkUpdateScaling shows how the per-second cost grows with the
+// dimension D and with the number of units.
+func BenchmarkUpdateScaling(b *testing.B) {
+	for _, c := range []struct{ side, lags, units int }{
+		{8, 12, 384}, {12, 12, 384}, {16, 12, 384},
+		{16, 12, 96}, {16, 12, 768},
+	} {
+		b.Run(fmt.Sprintf("D=%d/units=%d", c.side*c.side*c.lags, c.units), func(b *testing.B) {
+			bw := newBenchWorkload(b, c.side, c.side, c.lags, c.units, 10)
+			b.ReportAllocs()
+			b.ResetTimer()
+			start := time.Now()
+			for range b.N {
+				bw.second()
+				bw.m.Update()
+			}
+			reportRealtime(b, start)
+		})
+	}
+}
+
+// TestAddBinDoesNotAllocate guards the per-bin path.
+func TestAddBinDoesNotAllocate(t *testing.T) {
+	m, err := NewMapper(Config{Width: 8, Height: 8, Lags: 4, White: true, PixelVariance: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for u := range 20 {
+		m.Unit("u" + strconv.Itoa(u))
+	}
+	frame := make([]float64, 64)
+	counts := []Count{{Unit: 3, N: 1}, {Unit: 17, N: 2}}
+	for range 200 {
+		m.AddBin(frame, counts)
+	}
+	m.Update()
+	allocs := testing.AllocsPerRun(50, func() {
+		for i := range frame {
+			frame[i] = math.Copysign(1, float64(i%3)-1)
+		}
+		m.AddBin(frame, counts)
+	})
+	if allocs != 0 {
+		t.Errorf("AddBin allocated %.1f times per bin, want 0", allocs)
+	}
+}

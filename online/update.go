@@ -1,0 +1,274 @@
+package online
+
+import (
+	"math"
+	"runtime"
+	"slices"
+	"sync"
+)
+
+// shared holds what every unit's statistics read during one Update.
+type shared struct {
+	wh     []float64 // ridge weights of the half indicator
+	pdiag  []float64 // diagonal of the weights block of P
+	t1, t2 float64   // hat-matrix traces
+	period float64
+}
+
+// scratch is one worker's buffers for per-unit statistics.
+type scratch struct {
+	w, wa, ha, hb, sta, cross, z []float64
+	white                        *WhiteTest
+	features                     *FeatureFinder
+}
+
+func (m *Mapper) newScratch() *scratch {
+	d := m.dim
+	s := &scratch{
+		w: make([]float64, d), wa: make([]float64, d), ha: make([]float64, d), hb: make([]float64, d),
+		sta: make([]float64, d), cross: make([]float64, d), z: make([]float64, d),
+		white: NewWhiteTest(m.pixels, m.cfg.Lags),
+	}
+	// The config was checked by NewMapper, so the finder cannot fail.
+	s.features, _ = NewFeatureFinder(m.cfg.Width, m.cfg.Height, m.cfg.Lags, m.cfg.FramePeriod, m.cfg.Geometry)
+	return s
+}
+
+// Update folds the bins added since the last call into the estimates,
+// recomputes every unit's statistics and returns a new Snapshot.
+func (m *Mapper) Update() *Snapshot {
+	m.ridge.Flush()
+	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim), period: m.cfg.FramePeriod}
+	if m.ridge.Rows() > 0 {
+		m.ridge.WeightsTo(sh.wh, 0)
+		m.ridge.PosteriorDiagTo(sh.pdiag)
+		sh.t1, sh.t2 = m.ridge.HatTraces()
+	}
+	n := len(m.ids)
+	details := make([]*UnitDetail, n)
+	workers := min(runtime.GOMAXPROCS(0), n)
+	var wg sync.WaitGroup
+	for w := range workers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			s := m.newScratch()
+			for u := w; u < n; u += workers {
+				details[u] = m.unitDetail(u, &sh, s)
+			}
+		}()
+	}
+	wg.Wait()
+	m.updateSTC(details)
+
+	snap := m.emptySnapshot()
+	snap.T = Float(float64(m.used) * m.cfg.FramePeriod)
+	snap.Bins = m.used
+	snap.Units = make([]UnitSummary, n)
+	for u, d := range details {
+		d.History = append(m.history[u], HistoryPoint{T: snap.T, Spikes: d.Spikes, Reliability: d.Reliability})
+		m.history[u] = d.History
+		snap.Units[u] = d.UnitSummary
+		snap.details[d.ID] = d
+	}
+	snap.Summary = Summarize(snap.Units, m.cfg.Target, m.cfg.Fraction, m.cfg.Aperture, m.cfg.Geometry)
+	m.snap = snap
+	return snap
+}
+
+// unitDetail computes every statistic of unit u. It reads the shared state
+// only, so units run in parallel.
+func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
+	cfg := &m.cfg
+	d := &UnitDetail{
+		Shape:       [3]int{cfg.Lags, cfg.Height, cfg.Width},
+		FramePeriod: Float(cfg.FramePeriod),
+	}
+	d.ID = m.ids[u]
+	d.Spikes = m.received[u]
+	d.Flagged = m.flagged[u]
+	nan := Float(math.NaN())
+	d.Reliability, d.Significance, d.PValue, d.ETA, d.Intercept = nan, nan, nan, nan, nan
+	seconds := float64(m.used) * cfg.FramePeriod
+	d.Rate = nan
+	if seconds > 0 {
+		d.Rate = Float(m.spikes[u] / seconds)
+	}
+
+	var intercept float64
+	if m.ridge.Rows() > 0 {
+		intercept = m.ridge.WeightsTo(s.w, 1+2*u)
+		m.ridge.WeightsTo(s.wa, 2+2*u)
+	} else {
+		clear(s.w)
+		clear(s.wa)
+	}
+	d.Intercept = Float(intercept)
+	m.sta.STATo(s.sta, u)
+	m.sta.CrossTo(s.cross, u)
+
+	// Split halves of the ridge estimate, each free of the indicator's fit.
+	m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
+	r, R := SplitHalf(s.ha, s.hb)
+	_ = r
+	d.Reliability = Float(R)
+
+	// Noise variance and per-coefficient z from the ridge posterior σ²P.
+	dof := float64(m.used) - 1 - sh.t1
+	sigma2, rss := math.NaN(), math.NaN()
+	if dof > 0 {
+		rss = math.Max(m.ridge.Objective(1+2*u)-cfg.Lambda*dot(s.w, s.w), 0)
+		sigma2 = rss / dof
+	}
+	for i := range s.z {
+		s.z[i] = s.w[i] / math.Sqrt(sigma2*sh.pdiag[i])
+		if math.IsNaN(s.z[i]) || math.IsInf(s.z[i], 0) {
+			s.z[i] = 0
+		}
+	}
+
+	// Significance: the white-noise STA null, or the ridge posterior.
+	var sig Significance
+	var err error
+	if cfg.White {
+		sig, err = s.white.Unit(nil, m.sta, u, cfg.PixelVariance)
+	} else {
+		sig, err = PosteriorTest(s.w, s.cross, rss, m.used, sh.t1, sh.t2)
+	}
+	p := 1.0
+	if err == nil {
+		p = sig.P
+		d.Significance = Float(sig.NegLog10P)
+	} else {
+		d.Significance = 0
+	}
+	d.PValue = Float(p)
+	significant := p < cfg.Alpha
+
+	_ = s.features.FeaturesTo(&d.Features, s.w)
+	d.PeakLag = d.Features.PeakLag
+	d.LatencyMS = d.Features.LatencyMS
+	d.CentreX, d.CentreY = d.Features.CentreX, d.Features.CentreY
+	d.SigmaX, d.SigmaY = d.Features.SigmaX, d.Features.SigmaY
+	d.Polarity = d.Features.Polarity
+	d.Map = d.Features.Map
+
+	reached := significant && R >= cfg.Target
+	d.Status = Classify(int64(m.spikes[u]), cfg.MinSpikes, significant, reached)
+	trend := m.trends[u]
+	if last, _, ok := trend.Latest(); !math.IsNaN(R) && (!ok || m.spikes[u] > last) {
+		trend.Add(m.spikes[u], R)
+	}
+	if significant {
+		if eta, ok := trend.Project(float64(d.Rate), cfg.Target); ok {
+			d.ETA = Float(eta)
+		}
+	}
+	d.STA = FloatsOf(s.sta)
+	d.Ridge = FloatsOf(s.w)
+	d.Z = FloatsOf(s.z)
+	return d
+}
+
+// halvesTo writes the two split-half ridge estimates of unit u. With y_A the
+// counts in half A, the ridge fit of y_A over all bins is w_A; removing
+// ȳ_A times the fit w_h of the half indicator h leaves the fit of half A's
+// counts centred within half A, and likewise for half B (whose indicator
+// 1 − h has fit −w_h, since the intercept absorbs constants). Under the null
+// the two depend on disjoint, independent bins.
+func (m *Mapper) halvesTo(a, b, w, wa, wh []float64, u int) {
+	meanA, meanB := 0.0, 0.0
+	if m.usedA > 0 {
+		meanA = m.spikesA[u] / float64(m.usedA)
+	}
+	if nb := m.used - m.usedA; nb > 0 {
+		meanB = (m.spikes[u] - m.spikesA[u]) / float64(nb)
+	}
+	for i := range a {
+		a[i] = wa[i] - meanA*wh[i]
+		b[i] = w[i] - wa[i] + meanB*wh[i]
+	}
+}
+
+func dot(a, b []float64) float64 {
+	var s float64
+	for i, v := range a {
+		s += v * b[i]
+	}
+	return s
+}
+
+// stcEvery is how many updates pass between two STC refreshes. Each refresh
+// decomposes one unit's covariance (O(d³) in the reduced space), taking the
+// units in turn, so the cost per update stays bounded.
+const stcEvery = 2
+
+// updateSTC starts STC for flagged units and for units with no linear field
+// (within the cap), refreshes one unit's result in turn, and attaches the
+// latest results to the details. STC needs a white stimulus, whose prior
+// covariance c²I is known.
+func (m *Mapper) updateSTC(details []*UnitDetail) {
+	if !m.cfg.White {
+		return
+	}
+	if m.stcLags == nil {
+		m.stcLags = m.stcWindow(details)
+	}
+	for u, d := range details {
+		if m.stc[u] != nil || len(m.stc) >= m.cfg.STCMaxUnits {
+			continue
+		}
+		if m.flagged[u] || d.Status == NoField {
+			if s, err := NewSTC(m.pixels, m.stcLags); err == nil {
+				m.stc[u] = s
+			}
+		}
+	}
+	if len(m.stc) == 0 {
+		return
+	}
+	m.updates++
+	if m.updates%stcEvery == 0 {
+		units := make([]int, 0, len(m.stc))
+		for u := range m.stc {
+			units = append(units, u)
+		}
+		slices.Sort(units)
+		u := units[m.stcTurn%len(units)]
+		m.stcTurn++
+		if res, err := m.stc[u].Result(m.cfg.PixelVariance, math.NaN(), math.NaN()); err == nil {
+			res.Spikes = int64(m.stc[u].Spikes())
+			m.stcResults[u] = &res
+		}
+	}
+	for u, d := range details {
+		if r := m.stcResults[u]; r != nil && m.stc[u] != nil {
+			d.STC = r
+			d.HasSTC = true
+		}
+	}
+}
+
+// stcWindow picks STC's lags: STCLags lags centred on the median peak lag of
+// the significant units, or on the lag nearest 60 ms (a typical latency in
+// visual cortex; common practice, no source) when there is none yet.
+func (m *Mapper) stcWindow(details []*UnitDetail) []int {
+	var peaks []int
+	for _, d := range details {
+		if d.Status == Emerging || d.Status == Reliable {
+			peaks = append(peaks, d.PeakLag)
+		}
+	}
+	centre := int(math.Round(0.060 / m.cfg.FramePeriod))
+	if len(peaks) > 0 {
+		slices.Sort(peaks)
+		centre = peaks[len(peaks)/2]
+	}
+	n := m.cfg.STCLags
+	first := min(max(centre-n/2, 0), m.cfg.Lags-n)
+	lags := make([]int, n)
+	for i := range lags {
+		lags[i] = first + i
+	}
+	return lags
+}
