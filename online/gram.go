@@ -30,7 +30,8 @@ import (
 // same sums (exactly, for two-level frames whose products are exact in
 // float64, such as ±c or {0, 1}).
 //
-// A LagGram is not safe for concurrent use.
+// Pair counts are kept in 32 bits, so a block holds at most 2³² − 1 frames
+// (about 2 years at 60 Hz). A LagGram is not safe for concurrent use.
 type LagGram struct {
 	pixels, lags, dim int
 	n                 int // frames added
@@ -120,6 +121,13 @@ func (g *LagGram) Reset() {
 	clear(g.sum)
 	g.binary, g.hasHi, g.lo, g.hi = true, false, 0, 0
 	clear(g.ones)
+	if g.counts == nil { // left the two-level route: rebuild its storage
+		g.counts = make([]uint32, g.pixels*g.dim)
+		g.words = make([][]uint64, g.pixels)
+		for p := range g.words {
+			g.words[p] = make([]uint64, 1+g.bitChunks)
+		}
+	}
 	clear(g.counts)
 	for _, w := range g.words {
 		clear(w)

@@ -7,6 +7,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"testing"
+	"time"
 
 	"gonum.org/v1/gonum/mat"
 )
@@ -125,6 +126,31 @@ func TestLagGramMatchesDesign(t *testing.T) {
 	}
 }
 
+func TestLagGramReset(t *testing.T) {
+	// After a block that left the two-level route, Reset must give the same
+	// Gram as a fresh accumulator.
+	r := rand.New(rand.NewPCG(2, 2))
+	used, _ := NewLagGram(3, 4)
+	for range 300 {
+		used.AddFrame([]float64{r.NormFloat64(), r.NormFloat64(), r.NormFloat64()})
+	}
+	used.Reset()
+	fresh, _ := NewLagGram(3, 4)
+	for range 1500 {
+		f := []float64{float64(r.IntN(2)), float64(r.IntN(2)), float64(r.IntN(2))}
+		used.AddFrame(f)
+		fresh.AddFrame(f)
+	}
+	var a, b mat.SymDense
+	if err := used.GramTo(&a, true); err != nil {
+		t.Fatal(err)
+	}
+	fresh.GramTo(&b, true)
+	if !mat.Equal(&a, &b) {
+		t.Errorf("Gram after Reset differs from a fresh one by %.3g", relDiff(&a, &b))
+	}
+}
+
 func TestLagGramErrors(t *testing.T) {
 	if _, err := NewLagGram(0, 3); err == nil {
 		t.Error("NewLagGram(0, 3): no error")
@@ -226,19 +252,22 @@ func TestBatchRidgeGolden(t *testing.T) {
 	}
 }
 
-// BenchmarkLagGram times AddFrame over a block of binary noise followed by
-// the centred Gram and the all-units ridge solve. The cross-products Σ y x
-// are formed outside the timer (the STA accumulator keeps them already).
+// BenchmarkLagGram times AddFrame over a block of binary (or Gaussian) noise
+// followed by the centred Gram and the all-units ridge solve. The
+// cross-products Σ y x are formed outside the timer (the STA accumulator
+// keeps them already).
 // The reference size (16×16 pixels at 60 Hz for 30 min, 12 lags, 384 units)
 // runs with: go test ./online/ -run '^$' -bench 'LagGram/ref' -benchtime 1x
 func BenchmarkLagGram(b *testing.B) {
 	sizes := []struct {
 		name                      string
 		side, lags, frames, units int
+		binary                    bool // two-level frames; else Gaussian (the general route)
 	}{
-		{"8x8_L6_n6000_u32", 8, 6, 6000, 32},
-		{"16x16_L12_n12000_u64", 16, 12, 12000, 64},
-		{"ref_16x16_L12_n108000_u384", 16, 12, 108000, 384},
+		{"8x8_L6_n6000_u32", 8, 6, 6000, 32, true},
+		{"16x16_L12_n12000_u64", 16, 12, 12000, 64, true},
+		{"gaussian_16x16_L12_n12000_u64", 16, 12, 12000, 64, false},
+		{"ref_16x16_L12_n108000_u384", 16, 12, 108000, 384, true},
 	}
 	for _, s := range sizes {
 		b.Run(s.name, func(b *testing.B) {
@@ -248,7 +277,11 @@ func BenchmarkLagGram(b *testing.B) {
 			for m := range frames {
 				frames[m] = make([]float64, p)
 				for i := range frames[m] {
-					frames[m][i] = float64(2*r.IntN(2) - 1)
+					if s.binary {
+						frames[m][i] = float64(2*r.IntN(2) - 1)
+					} else {
+						frames[m][i] = r.NormFloat64()
+					}
 				}
 			}
 			// The solve's cost does not depend on the values of Σ y x, so
@@ -268,18 +301,22 @@ func BenchmarkLagGram(b *testing.B) {
 			g, _ := NewLagGram(p, s.lags)
 			b.ReportAllocs()
 			b.ResetTimer()
+			var add time.Duration
 			for b.Loop() {
 				g.Reset()
+				start := time.Now()
 				for _, f := range frames {
 					if err := g.AddFrame(f); err != nil {
 						b.Fatal(err)
 					}
 				}
+				add += time.Since(start)
 				if _, _, err := BatchRidge(g, cross, ySum, 100); err != nil {
 					b.Fatal(err)
 				}
 			}
 			b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/block")
+			b.ReportMetric(add.Seconds()/float64(b.N), "s-addframe/block")
 		})
 	}
 }

@@ -6,7 +6,8 @@ type Features struct {
 	LatencyMS Float `json:"latency_ms"` // PeakLag times the frame period, in milliseconds
 	// Map is the spatial map at the peak lag, row-major height×width.
 	Map Floats `json:"map"`
-	// Centre and extent from the fit to |map| (pixels; column x, row y).
+	// Centre and extent from the Gaussian fit to Polarity·Map (pixels;
+	// column x, row y).
 	CentreX Float `json:"centre_x"`
 	CentreY Float `json:"centre_y"`
 	SigmaX  Float `json:"sigma_x"` // along the fitted major axis
