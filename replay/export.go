@@ -49,6 +49,8 @@ type Exported struct {
 	Files   []string `json:"files"` // paths relative to the directory
 	Records int64    `json:"records"`
 	Damaged int64    `json:"damaged"`
+	// Final is the snapshot the files were written from.
+	Final *online.Snapshot `json:"-"`
 }
 
 // Export runs the whole session at full speed and writes the final
@@ -108,7 +110,7 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 		}
 		return out, errors.New("replay: the session has no block")
 	}
-	out.Block = finalBlock
+	out.Block, out.Final = finalBlock, final
 	if err := os.MkdirAll(filepath.Join(dir, "units"), 0o755); err != nil {
 		return out, fmt.Errorf("replay: %w", err)
 	}

@@ -11,34 +11,78 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"sync"
 	"testing"
+	"time"
 
 	"livefield/online"
 	"livefield/replay/session"
 	"livefield/stream/npy"
 )
 
+var exported struct {
+	once sync.Once
+	dir  string
+	out  Exported
+	err  error
+}
+
+// exportFixture exports the committed session once for the tests below.
 func exportFixture(t *testing.T) (string, Exported, *online.Snapshot) {
 	t.Helper()
-	dir := t.TempDir()
-	f, err := session.Open(fixturePath)
-	if err != nil {
-		t.Fatal(err)
+	exported.once.Do(func() {
+		dir, err := os.MkdirTemp("", "livefield-export-")
+		if err != nil {
+			exported.err = err
+			return
+		}
+		// The first 10 s of the committed session (the block never ends:
+		// the export closes it after the last record).
+		exported.dir = dir
+		path := filepath.Join(dir, "first10s.lfs")
+		w, err := session.Create(path, session.Header{Rig: fixtureRig, Prefix: fixturePrefix})
+		if err != nil {
+			exported.err = err
+			return
+		}
+		for _, r := range readRecords(t, fixturePath) {
+			if r.At.Sub(fixtureStart) <= 10*time.Second {
+				w.Write(r)
+			}
+		}
+		if exported.err = w.Close(); exported.err != nil {
+			return
+		}
+		f, err := session.Open(path)
+		if err != nil {
+			exported.err = err
+			return
+		}
+		defer f.Close()
+		exported.out, exported.err = Export(context.Background(), f.Reader, dir, ExportOptions{})
+	})
+	if exported.err != nil {
+		t.Fatal(exported.err)
 	}
-	defer f.Close()
-	out, err := Export(context.Background(), f.Reader, dir, ExportOptions{})
-	if err != nil {
-		t.Fatal(err)
+	out := exported.out
+	want := out.Final
+	if want == nil || len(want.Units) == 0 || len(out.Units) != len(want.Units) {
+		t.Fatalf("exported %d units of a snapshot %v", len(out.Units), want)
 	}
-	want := feedAll(t, readRecords(t, fixturePath), FeedOptions{})
-	if len(want.Units) == 0 || len(out.Units) != len(want.Units) {
-		t.Fatalf("exported %d units, the session has %d", len(out.Units), len(want.Units))
+	return exported.dir, out, want
+}
+
+func TestMain(m *testing.M) {
+	code := m.Run()
+	if exported.dir != "" {
+		os.RemoveAll(exported.dir)
 	}
-	return dir, out, want
+	os.Exit(code)
 }
 
 // TestExportFiles reads the exported NPY files back with the project's
-// NPY reader and checks shape and values against a direct run.
+// NPY reader and checks shape and values, bit for bit, against the
+// snapshot they were written from.
 func TestExportFiles(t *testing.T) {
 	dir, out, want := exportFixture(t)
 	if out.Block != "B1" {

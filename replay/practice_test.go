@@ -19,8 +19,8 @@ import (
 	"livefield/stream/stimulus"
 )
 
-// The twin-half session: a 4×4 movie of 100 frames (the first and last
-// three blank) is shown twice at 20 Hz, 0–5 s and 17–22 s, with a 12 s pause
+// The twin-half session: a 4×4 movie of 100 frames (see twinPixel) is
+// shown twice at 20 Hz, 0–5 s and 17–22 s, with a 12 s pause
 // between (longer than binning's 10 s gap limit, so the pause gives no
 // bins), and the block ends 11 s after the last onset (again a gap). Unit
 // "early" fires the same spikes relative to the frames in both halves; unit
@@ -36,16 +36,31 @@ const (
 	twinEnd    = 33.0
 )
 
+// twinPixel is pixel p of movie frame f: blank for the first and last
+// twinLags frames; in between, 47 frames of ±1 binary noise followed by
+// their negatives, so that every pixel sums to exactly zero over the movie
+// (the mean stimulus is zero however many bins are counted).
+func twinPixel(f, p int) float64 {
+	const n = (twinFrames - 2*twinLags) / 2
+	if f < twinLags || f >= twinFrames-twinLags {
+		return 0
+	}
+	sign, g := 1.0, f-twinLags
+	if g >= n {
+		sign, g = -1, g-n
+	}
+	if stimulus.SplitMix64(99, uint64(g*16+p))>>63 == 1 {
+		return sign
+	}
+	return -sign
+}
+
 func twinMovie(t testing.TB, dir string) {
 	t.Helper()
 	data := make([]float64, twinFrames*16)
-	for f := twinLags; f < twinFrames-twinLags; f++ {
+	for f := 0; f < twinFrames; f++ {
 		for p := 0; p < 16; p++ {
-			if stimulus.SplitMix64(99, uint64(f*16+p))>>63 == 1 {
-				data[f*16+p] = 1
-			} else {
-				data[f*16+p] = -1
-			}
+			data[f*16+p] = twinPixel(f, p)
 		}
 	}
 	fh, err := os.Create(filepath.Join(dir, "twin.npy"))
@@ -83,15 +98,7 @@ func writeTwin(t testing.TB, path string) (earlyPerHalf, late int) {
 			t.Fatal(err)
 		}
 	}
-	pix := func(f int) float64 {
-		if f < twinLags || f >= twinFrames-twinLags {
-			return 0
-		}
-		if stimulus.SplitMix64(99, uint64(f*16+5))>>63 == 1 {
-			return 1
-		}
-		return -1
-	}
+	pix := func(f int) float64 { return twinPixel(f, 5) }
 	put(0, "block", fmt.Sprintf(`{"kind":"start","block":"T1","t":0,"stimulus":{"type":"movie","file":"twin.npy"},"lags":%d,"frame_period":%g}`, twinLags, twinPeriod))
 	half := func(t0 float64, withLate bool) {
 		onset := func(i int) float64 { return t0 + float64(i)*twinPeriod }
@@ -115,7 +122,8 @@ func writeTwin(t testing.TB, path string) (earlyPerHalf, late int) {
 				}
 			}
 			if withLate {
-				for i := b * 10; i < b*10+10; i += 3 {
+				// Not in the last frame, whose interval is a gap.
+				for i := b * 10; i < min(b*10+10, twinFrames-1); i += 3 {
 					spikes = append(spikes, spike{`"late"`, onset(i) + 0.01})
 					late++
 				}
@@ -178,9 +186,10 @@ func near(a, b, tol float64) bool { return math.Abs(a-b) <= tol }
 // TestPracticeScore: stopping in the pause of the twin-half session. The
 // expected numbers follow from the construction: the stop is at 10 s of a
 // 33 s block (23 s saved); the display then shows exactly the first half,
-// and the full block is the first half twice over, so every sum behind
-// "early"'s STA (Σyx, Σy, Σx and the bin count) is doubled and its STA, a
-// ratio of those sums, is unchanged: correlation 1. "late" had no spikes
+// and the full block is the first half twice over, so the sums behind
+// "early"'s STA, Σyx and Σy, are doubled, and the mean stimulus is zero in
+// both (the movie sums to zero at every pixel): the STA Σyx/Σy − x̄ is
+// unchanged and its correlation is 1. "late" had no spikes
 // at the stop (no estimate, correlation null), "clock" never has a binned
 // spike.
 func TestPracticeScore(t *testing.T) {

@@ -1,0 +1,94 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"log/slog"
+	"time"
+
+	"github.com/nats-io/nats.go"
+
+	"livefield/replay"
+	"livefield/replay/session"
+)
+
+// recordProgressEvery is how often record prints its counts.
+const recordProgressEvery = 5 * time.Second
+
+func init() {
+	register("record", command{
+		summary: "record every message of one rig into a session file",
+		usage:   "--nats URL --rig NAME --out FILE [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE]",
+		example: "livefield record --nats nats://127.0.0.1:4222 --rig rig1 --out rig1-2026-05-01.lfs",
+		run:     runRecord,
+	})
+}
+
+func runRecord(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
+	c := commands[name]
+	fs := flags(name, c, stderr)
+	var nf natsFlags
+	nf.add(fs, true)
+	rig := fs.String("rig", "", "rig name (required); records livefield.<rig>.>")
+	out := fs.String("out", "", "session file to create (required; an existing file is never overwritten)")
+	if err := parse(fs, args); err != nil {
+		return err
+	}
+	log := slog.New(slog.NewTextHandler(stderr, nil))
+	prefix, err := rigPrefix(*rig)
+	if err != nil {
+		return err
+	}
+	if *out == "" {
+		return fmt.Errorf("--out is required (e.g. --out %s.lfs)", *rig)
+	}
+	opts, err := nf.options("livefield record "+*rig, log)
+	if err != nil {
+		return err
+	}
+	nc, err := nats.Connect(nf.url, opts...)
+	if err != nil {
+		return fmt.Errorf("--nats %s: %w", redact(nf.url), err)
+	}
+	defer nc.Close()
+	w, err := session.Create(*out, session.Header{Rig: *rig, Prefix: prefix, Created: time.Now().UTC()})
+	if err != nil {
+		return fmt.Errorf("--out: %w", err)
+	}
+	rec, err := replay.Record(nc, prefix, w, nil)
+	if err != nil {
+		w.Close()
+		return err
+	}
+	fmt.Fprintf(stdout, "livefield: recording %s.> from %s into %s (Ctrl-C stops)\n", prefix, redact(nf.url), *out)
+	// The ticker checks for a write error every second and prints the
+	// counts every recordProgressEvery.
+	tick := time.NewTicker(time.Second)
+	defer tick.Stop()
+	last := time.Now()
+	progress := func(what string) {
+		st := rec.Stats()
+		fmt.Fprintf(stdout, "livefield: %s %d messages, %d bytes, %d blocks", what, st.Messages, st.Bytes, st.Blocks)
+		if st.Dropped > 0 {
+			fmt.Fprintf(stdout, ", %d dropped by the NATS client (slow consumer)", st.Dropped)
+		}
+		fmt.Fprintln(stdout)
+	}
+	for ctx.Err() == nil && rec.Err() == nil {
+		select {
+		case <-ctx.Done():
+		case now := <-tick.C:
+			if now.Sub(last) >= recordProgressEvery {
+				last = now
+				progress("recorded")
+			}
+		}
+	}
+	err = rec.Close()
+	progress("wrote")
+	if err != nil {
+		return fmt.Errorf("%w; the part written so far stays readable", err)
+	}
+	return nil
+}
