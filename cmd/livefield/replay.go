@@ -229,6 +229,10 @@ func runReplay(ctx context.Context, name string, args []string, stdout, stderr i
 			return
 		}
 		if ctx.Err() == nil {
+			// Let the ingest take the last messages before the summary.
+			for deadline := time.Now().Add(5 * time.Second); r.Counters().Processed < uint64(st.Records) && time.Now().Before(deadline); {
+				time.Sleep(10 * time.Millisecond)
+			}
 			printSummary(stdout, r.Sync())
 			fmt.Fprintf(stdout, "livefield: replay finished: %d messages (%.1f s of session); the page stays up until Ctrl-C\n", st.Records, st.Span.Seconds())
 		}
