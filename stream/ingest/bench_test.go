@@ -150,6 +150,7 @@ func BenchmarkDecodeBin(b *testing.B) {
 // workload, estimator bins included (AddBin, not Update).
 func BenchmarkLoop(b *testing.B) {
 	msgs, spikes := session(b, 10)
+	var bins uint64
 	start, _ := json.Marshal(map[string]any{"kind": "start", "block": "bench", "t": 0, "lags": refLags,
 		"stimulus": binary(refSide, refSide, 3)})
 	b.ReportAllocs()
@@ -169,8 +170,10 @@ func BenchmarkLoop(b *testing.B) {
 		if n := len(r.health.Rejected); n != 0 {
 			b.Fatalf("rejected %v", r.health.Rejected)
 		}
+		bins = r.loop.binsTotal
 	}
 	b.ReportMetric(float64(spikes)*float64(b.N)/b.Elapsed().Seconds(), "spikes/s")
+	b.ReportMetric(float64(bins)*float64(b.N)/b.Elapsed().Seconds(), "bins/s")
 }
 
 // BenchmarkLatency runs the reference workload in real time over an
@@ -265,6 +268,7 @@ func BenchmarkLatency(b *testing.B) {
 	b.ReportMetric(total.Seconds()*1000/float64(b.N), "ms-latency")
 	h := r.Counters()
 	b.ReportMetric(float64(h.Lag)*1000, "ms-update-wait")
+	b.ReportMetric(h.UpdateSeconds*1000, "ms-update")
 	if len(h.Rejected) != 0 {
 		b.Fatalf("rejected %v", h.Rejected)
 	}

@@ -46,20 +46,7 @@ func TestReconnect(t *testing.T) {
 	}
 	defer nc.Close()
 	r := startRig(t, nc, Options{Prefix: "test.reconnect"})
-	poll := func(what string, cond func(Health) bool) Health {
-		t.Helper()
-		deadline := time.Now().Add(20 * time.Second)
-		for {
-			h := r.Counters()
-			if cond(h) {
-				return h
-			}
-			if time.Now().After(deadline) {
-				t.Fatalf("timed out waiting for %s: %+v", what, h)
-			}
-			time.Sleep(5 * time.Millisecond)
-		}
-	}
+	poll := func(what string, cond func(Health) bool) Health { t.Helper(); return pollHealth(t, r, what, cond) }
 	poll("connected", func(h Health) bool { return h.Connection == "CONNECTED" })
 
 	srv.Shutdown()

@@ -65,19 +65,21 @@ func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Sc
 // TestRecoversFields publishes a synthetic population over a real NATS
 // server and scores the final ridge estimates against the true filters.
 //
-// Workload: 8×8 binary noise, 8 lags, 60 Hz, 120 s of data, the default
+// Workload: 8×8 binary noise, 8 lags, 60 Hz, 240 s of data, the default
 // unit mix of replay/synth (simple, centre-surround, direction-selective,
 // complex, no-field, low-rate and late units).
 //
 // Thresholds: the Pearson correlation between the ridge weights and the true
-// filter (all lags) must reach 0.7 for every simple, centre-surround and
-// direction-selective unit after 120 s of data. A linear estimate recovers
-// an LNP unit's filter up to scale under white noise (Chichilnisky 2001,
-// Network 12:199–213; citation from memory), so the correlation grows toward 1 with data; 0.7 is
-// our bar for two minutes of data at the default rates. Units without a
-// field must not be called significant or reliable.
+// filter (all lags) must reach 0.75 for every simple, centre-surround and
+// direction-selective unit after 240 s of data (about 1900 spikes each). A
+// linear estimate recovers an LNP unit's filter up to scale under white
+// noise (Chichilnisky 2001, Network 12:199–213; citation from memory), so
+// the correlation grows toward 1 with data; 0.75 is our bar for four
+// minutes at the default rates (0.86–0.89 observed with these seeds,
+// 0.73–0.80 after two minutes). Units without a field must not be called
+// significant or reliable.
 func TestRecoversFields(t *testing.T) {
-	const seconds = 120.0
+	const seconds = 240.0
 	srv := startServer(t)
 	sub, pubc := connect(t, srv), connect(t, srv)
 	r := startRig(t, sub, Options{Prefix: "e2e.fields", Queue: 1 << 16})
@@ -89,9 +91,9 @@ func TestRecoversFields(t *testing.T) {
 	if len(h.Rejected) != 0 || h.SlowConsumer != 0 {
 		t.Fatalf("rejected %v, slow-consumer drops %d; want none", h.Rejected, h.SlowConsumer)
 	}
-	// 120 s at 60 Hz is 7200 bins (held frames are split back into bins).
-	if h.Bins < 7190 || h.Bins > 7200 {
-		t.Errorf("bins %d, want 7200 ± 10", h.Bins)
+	// 240 s at 60 Hz is 14400 bins (held frames are split back into bins).
+	if h.Bins < 14390 || h.Bins > 14400 {
+		t.Errorf("bins %d, want 14400 − 10 … 14400", h.Bins)
 	}
 	snap := r.Snapshot()
 	for _, u := range rig.Units() {
@@ -102,14 +104,20 @@ func TestRecoversFields(t *testing.T) {
 				t.Errorf("%s (%s): no estimate", u.ID, u.Kind)
 				continue
 			}
-			if c := corr(u.Filter, d.Ridge); !(c >= 0.7) {
-				t.Errorf("%s (%s, %d spikes): correlation with the true filter %.3f, want ≥ 0.7", u.ID, u.Kind, d.Spikes, c)
+			if c := corr(u.Filter, d.Ridge); !(c >= 0.75) {
+				t.Errorf("%s (%s, %d spikes): correlation with the true filter %.3f, want ≥ 0.75", u.ID, u.Kind, d.Spikes, c)
 			} else {
 				t.Logf("%s (%s, %d spikes): correlation %.3f, status %s", u.ID, u.Kind, d.Spikes, c, d.Status)
 			}
 		case synth.KindNone:
-			if ok && (d.Status == online.Emerging || d.Status == online.Reliable) {
+			if !ok || d.Spikes < 1000 {
+				t.Errorf("%s (no field): no estimate or too few spikes to judge", u.ID)
+				continue
+			}
+			if d.Status == online.Emerging || d.Status == online.Reliable {
 				t.Errorf("%s (no field, %d spikes): status %s, significance %.2f; want collecting or no field", u.ID, d.Spikes, d.Status, float64(d.Significance))
+			} else {
+				t.Logf("%s (no field, %d spikes): status %s, significance %.2f", u.ID, d.Spikes, d.Status, float64(d.Significance))
 			}
 		}
 	}

@@ -51,15 +51,18 @@ type Health struct {
 	Blocks        uint64 `json:"blocks"`
 	Units         int    `json:"units"`
 
-	Bins        uint64       `json:"bins"`        // bins given to the mapper
-	LateSpikes  uint64       `json:"late_spikes"` // spikes that arrived after their bin had closed
-	HeldFrames  uint64       `json:"held_frames"` // bins whose frame was held over from the one before
-	SpikesTotal uint64       `json:"spikes"`      // spikes accepted
-	Resets      uint64       `json:"resets"`      // estimate resets
-	Updates     uint64       `json:"updates"`     // snapshots published
-	LastUpdate  string       `json:"last_update"` // RFC 3339, wall clock
-	StreamTime  online.Float `json:"stream_t"`    // latest spike or frame time seen (null before any)
-	BinTime     online.Float `json:"bin_t"`       // end of the latest bin given to the mapper
+	Bins        uint64 `json:"bins"`        // bins given to the mapper
+	LateSpikes  uint64 `json:"late_spikes"` // spikes that arrived after their bin had closed
+	HeldFrames  uint64 `json:"held_frames"` // bins whose frame was held over from the one before
+	SpikesTotal uint64 `json:"spikes"`      // spikes accepted
+	Resets      uint64 `json:"resets"`      // estimate resets
+	Updates     uint64 `json:"updates"`     // snapshots published
+	// UpdateSeconds is the time the last estimate update took (process
+	// time, not the injected clock).
+	UpdateSeconds float64      `json:"update_s"`
+	LastUpdate    string       `json:"last_update"` // RFC 3339, wall clock
+	StreamTime    online.Float `json:"stream_t"`    // latest spike or frame time seen (null before any)
+	BinTime       online.Float `json:"bin_t"`       // end of the latest bin given to the mapper
 	// IdleSpikes are spikes received while no block ran (not mapped).
 	IdleSpikes uint64 `json:"idle_spikes"`
 	// StreamLag is StreamTime minus BinTime: how far the estimates trail

@@ -146,3 +146,19 @@ func (p *publisher) settle(r *Rig) Health {
 func binary(w, h int, seed uint64) map[string]any {
 	return map[string]any{"type": "binary", "width": w, "height": h, "seed": seed}
 }
+
+// pollHealth polls r's counters until cond holds (20 s deadline).
+func pollHealth(t testing.TB, r *Rig, what string, cond func(Health) bool) Health {
+	t.Helper()
+	deadline := time.Now().Add(20 * time.Second)
+	for {
+		h := r.Counters()
+		if cond(h) {
+			return h
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("timed out waiting for %s: %+v", what, h)
+		}
+		time.Sleep(2 * time.Millisecond)
+	}
+}

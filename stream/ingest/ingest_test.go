@@ -184,6 +184,8 @@ func TestTwoRigs(t *testing.T) {
 	p2 := &publisher{t: t, nc: nc, prefix: "test.rig2"}
 	s1 := feed(t, p1, "one", 600, [2]string{"a1", "a2"})
 	s2 := feed(t, p2, "two", 300, [2]string{"b1", "b2"})
+	p1.end("one", frameTime(t0, 600))
+	p2.end("two", frameTime(t0, 300))
 	h1, h2 := p1.settle(r1), p2.settle(r2)
 	if h1.Block != "one" || h2.Block != "two" {
 		t.Fatalf("blocks %q and %q, want one and two", h1.Block, h2.Block)
@@ -297,20 +299,7 @@ func TestUpdateClock(t *testing.T) {
 	if err := nc.Flush(); err != nil {
 		t.Fatal(err)
 	}
-	wait := func(cond func(Health) bool, what string) Health {
-		t.Helper()
-		deadline := time.Now().Add(20 * time.Second)
-		for {
-			h := r.Counters()
-			if cond(h) {
-				return h
-			}
-			if time.Now().After(deadline) {
-				t.Fatalf("timed out waiting for %s: %+v", what, h)
-			}
-			time.Sleep(2 * time.Millisecond)
-		}
-	}
+	wait := func(cond func(Health) bool, what string) Health { t.Helper(); return pollHealth(t, r, what, cond) }
 	h := wait(func(h Health) bool { return h.Processed == p.sent }, "all messages")
 	// The clock has not moved since the block started: the first update
 	// (the block start's) is the only one, and it holds no bins.

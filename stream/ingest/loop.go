@@ -52,6 +52,7 @@ type loop struct {
 	closedAt    time.Time // arrival of the message that closed the first bin since the last update
 	streamT     float64
 	lastBinEnd  float64
+	forgetUntil float64 // bins starting by then are dropped (set by a reset)
 	binsTotal   uint64
 	lateBase    uint64 // late spikes of the blocks before the running one
 	heldBase    uint64
@@ -65,6 +66,7 @@ func (l *loop) init(r *Rig) {
 	l.stc = map[string]bool{}
 	l.streamT = math.NaN()
 	l.lastBinEnd = math.NaN()
+	l.forgetUntil = math.Inf(-1)
 }
 
 // handle decodes one message and applies it. A rejected message changes no
@@ -176,6 +178,7 @@ func (l *loop) startBlock(b wire.Block, at time.Time) error {
 	l.ids = map[string]int{}
 	l.lastBins, l.dirty = 0, false
 	l.lastBinEnd = math.NaN()
+	l.forgetUntil = math.Inf(-1)
 	for id, on := range l.stc {
 		mp.FlagSTC(id, on)
 	}
@@ -335,6 +338,9 @@ func (l *loop) seen(t float64) {
 func (l *loop) drain(at time.Time) {
 	closed := false
 	for l.binner.Next(&l.bin) {
+		if l.bin.Start <= l.forgetUntil {
+			continue // data from before a reset
+		}
 		if err := l.src.FrameTo(l.frame, l.bin.Frame); err != nil {
 			l.r.reject(ReasonFrameRange, fmt.Errorf("ingest: bin of frame %d: %w", l.bin.Frame, err))
 			continue
@@ -371,12 +377,15 @@ func (l *loop) update() {
 	if l.dirty && !l.closedAt.IsZero() {
 		lag = now.Sub(l.closedAt).Seconds()
 	}
+	t0 := time.Now()
 	l.publish(l.mapper.Update())
+	took := time.Since(t0).Seconds()
 	l.dirty = false
 	late, held := l.binCounts()
 	l.r.mu.Lock()
 	h := &l.r.health
 	h.Updates++
+	h.UpdateSeconds = took
 	h.LastUpdate = stamp(now)
 	h.Bins = l.binsTotal
 	h.SpikesTotal = l.spikesTotal
@@ -412,6 +421,9 @@ func (l *loop) reset() {
 	if l.mapper == nil {
 		return
 	}
+	// Everything received so far is forgotten, including the bins still
+	// waiting for late spikes.
+	l.forgetUntil = l.streamT
 	l.mapper.Reset()
 	l.publish(l.mapper.Update())
 }
