@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/blas"
+	lapackgo "gonum.org/v1/gonum/lapack/gonum"
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -21,17 +23,22 @@ type EvidenceFit struct {
 	Converged   bool
 }
 
-// EvidenceBasis holds the eigendecomposition G = V diag(g) Vᵀ of a centred
-// Gram matrix X̃ᵀX̃, shared by all units that see the same stimulus. Each
-// unit's fit then costs one projection Vᵀ(X̃ᵀy) and O(D) per iteration.
+// EvidenceBasis holds the orthogonal reduction G = Q T Qᵀ of a centred Gram
+// matrix X̃ᵀX̃ to a tridiagonal T, and the eigenvalues g of G, all shared by
+// the units that see the same stimulus. With c' = Qᵀ(X̃ᵀy) formed once per
+// unit, every quantity of the fixed point at a penalty λ follows from one
+// tridiagonal solve (T + λI)m' = c' and the eigenvalues: O(D) per
+// iteration. (Equivalent to working in the eigenbasis, G = V diag(g) Vᵀ, but
+// without the costly eigenvectors.)
 //
 // An EvidenceBasis is not safe for concurrent use (it keeps scratch space).
 type EvidenceBasis struct {
 	dim, bins int
-	g         []float64 // eigenvalues, negative round-off clipped to 0
-	v         *mat.Dense
-	z2        []float64 // scratch: squared projections of one unit
-	z         *mat.VecDense
+	g         []float64 // eigenvalues of G, negative round-off clipped to 0
+	diag, off []float64 // T
+	q         *mat.Dense
+	zt        []float64 // scratch: c' of one unit
+	x, piv    []float64 // scratch for the tridiagonal solve
 }
 
 const (
@@ -39,7 +46,7 @@ const (
 	evidenceTol     = 1e-12 // relative change of λ between iterations
 )
 
-// NewEvidenceBasis decomposes the centred Gram g (Dim×Dim) of a design with
+// NewEvidenceBasis reduces the centred Gram g (Dim×Dim) of a design with
 // `bins` rows.
 func NewEvidenceBasis(g mat.Symmetric, bins int) (*EvidenceBasis, error) {
 	if g == nil {
@@ -49,48 +56,93 @@ func NewEvidenceBasis(g mat.Symmetric, bins int) (*EvidenceBasis, error) {
 	if d == 0 || bins < 2 {
 		return nil, fmt.Errorf("online: NewEvidenceBasis: need a non-empty Gram and at least 2 bins, got %d×%d and %d", d, d, bins)
 	}
-	var eig mat.EigenSym
-	if !eig.Factorize(g, true) {
-		return nil, errors.New("online: NewEvidenceBasis: eigendecomposition failed")
+	a := make([]float64, d*d)
+	for i := range d {
+		for j := 0; j <= i; j++ {
+			v := g.At(i, j)
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return nil, fmt.Errorf("online: NewEvidenceBasis: Gram element (%d, %d) is %v", i, j, v)
+			}
+			a[i*d+j] = v
+		}
 	}
-	b := &EvidenceBasis{dim: d, bins: bins, g: eig.Values(nil), v: new(mat.Dense), z2: make([]float64, d), z: mat.NewVecDense(d, nil)}
-	eig.VectorsTo(b.v)
+	b := &EvidenceBasis{
+		dim: d, bins: bins,
+		g: make([]float64, d), diag: make([]float64, d), off: make([]float64, max(d-1, 0)),
+		zt: make([]float64, d), x: make([]float64, d), piv: make([]float64, d),
+	}
+	var impl lapackgo.Implementation
+	tau := make([]float64, max(d-1, 1))
+	work := make([]float64, 1)
+	impl.Dsytrd(blas.Lower, d, a, d, b.diag, b.off, tau, work, -1)
+	work = make([]float64, int(work[0]))
+	impl.Dsytrd(blas.Lower, d, a, d, b.diag, b.off, tau, work, len(work))
+	copy(b.g, b.diag)
+	e := append([]float64(nil), b.off...)
+	if !impl.Dsterf(d, b.g, e) {
+		return nil, errors.New("online: NewEvidenceBasis: eigenvalues did not converge")
+	}
 	for i, x := range b.g {
 		if !(x > 0) {
 			b.g[i] = 0
 		}
 	}
+	impl.Dorgtr(blas.Lower, d, a, d, tau, work, -1)
+	if need := int(work[0]); need > len(work) {
+		work = make([]float64, need)
+	}
+	impl.Dorgtr(blas.Lower, d, a, d, tau, work, len(work))
+	b.q = mat.NewDense(d, d, a)
 	return b, nil
 }
 
-// project fills b.z = Vᵀc and b.z2 = z².
+// project fills b.zt = Qᵀc.
 func (b *EvidenceBasis) project(cross []float64) error {
 	if len(cross) != b.dim {
 		return fmt.Errorf("online: EvidenceBasis: cross-correlation has %d values, want %d", len(cross), b.dim)
 	}
-	b.z.MulVec(b.v.T(), mat.NewVecDense(b.dim, cross))
-	for i := range b.z2 {
-		z := b.z.AtVec(i)
-		b.z2[i] = z * z
-	}
+	mat.NewVecDense(b.dim, b.zt).MulVec(b.q.T(), mat.NewVecDense(b.dim, cross))
 	return nil
 }
 
-// terms returns, for penalty λ, ‖m‖², RSS and γ of the posterior mean
-// m = (G + λI)⁻¹X̃ᵀy, using the squared projections z2.
-func (b *EvidenceBasis) terms(z2 []float64, yy, lambda float64) (m2, rss, gamma float64) {
-	var fit float64
-	for i, g := range b.g {
-		r := 1 / (g + lambda)
-		m2 += z2[i] * r * r
-		fit += z2[i] * (g + 2*lambda) * r * r
-		gamma += g * r
+// solve writes (T + λI)⁻¹ zt into b.x (LDLᵀ of a positive definite
+// tridiagonal matrix).
+func (b *EvidenceBasis) solve(zt []float64, lambda float64) {
+	// T + λI = L D Lᵀ, L unit lower bidiagonal with multipliers
+	// off[i−1]/D[i−1]; piv holds D.
+	x, piv, dd := b.x, b.piv, b.diag
+	piv[0] = dd[0] + lambda
+	x[0] = zt[0]
+	for i := 1; i < b.dim; i++ {
+		m := b.off[i-1] / piv[i-1]
+		piv[i] = dd[i] + lambda - m*b.off[i-1]
+		x[i] = zt[i] - m*x[i-1]
 	}
-	rss = yy - fit
-	if rss < 0 {
-		rss = 0
+	n := b.dim - 1
+	x[n] /= piv[n]
+	for i := n - 1; i >= 0; i-- {
+		x[i] = x[i]/piv[i] - b.off[i]/piv[i]*x[i+1]
 	}
-	return m2, rss, gamma
+}
+
+// terms returns, for penalty λ, ‖m‖², RSS, γ and c'ᵀm' of the posterior
+// mean m = (G + λI)⁻¹X̃ᵀy, from c' = zt.
+func (b *EvidenceBasis) terms(zt []float64, yy, lambda float64) (m2, rss, gamma, cm float64) {
+	b.solve(zt, lambda)
+	var mtm float64 // m'ᵀ T m'
+	for i, x := range b.x {
+		m2 += x * x
+		cm += zt[i] * x
+		mtm += b.diag[i] * x * x
+		if i > 0 {
+			mtm += 2 * b.off[i-1] * b.x[i-1] * x
+		}
+	}
+	for _, g := range b.g {
+		gamma += g / (g + lambda)
+	}
+	rss = max(yy-2*cm+mtm, 0)
+	return m2, rss, gamma, cm
 }
 
 // Fit runs the evidence fixed point for one unit: cross = X̃ᵀ(y − ȳ) (len
@@ -114,7 +166,7 @@ func (b *EvidenceBasis) Fit(cross []float64, yy float64) (EvidenceFit, error) {
 		gmax = max(gmax, g)
 	}
 	for it := 1; it <= evidenceMaxIter; it++ {
-		m2, rss, gamma := b.terms(b.z2, yy, lambda)
+		m2, rss, gamma, _ := b.terms(b.zt, yy, lambda)
 		if m2 == 0 || rss == 0 {
 			break
 		}
@@ -133,7 +185,7 @@ func (b *EvidenceBasis) Fit(cross []float64, yy float64) (EvidenceFit, error) {
 		}
 	}
 	fit.Lambda, fit.Alpha, fit.Beta = lambda, alpha, beta
-	m2, rss, gamma := b.terms(b.z2, yy, lambda)
+	m2, rss, gamma, _ := b.terms(b.zt, yy, lambda)
 	fit.Gamma = gamma
 	fit.LogEvidence = b.logEvidence(alpha, beta, m2, rss)
 	return fit, nil
@@ -161,28 +213,24 @@ func (b *EvidenceBasis) PosteriorMeanTo(dst, cross []float64, lambda float64) er
 	if err := b.project(cross); err != nil {
 		return err
 	}
-	for i, g := range b.g {
-		b.z.SetVec(i, b.z.AtVec(i)/(g+lambda))
-	}
-	mat.NewVecDense(b.dim, dst).MulVec(b.v, b.z)
+	b.solve(b.zt, lambda)
+	mat.NewVecDense(b.dim, dst).MulVec(b.q, mat.NewVecDense(b.dim, b.x))
 	return nil
 }
 
 // profile is the log evidence summed over units for a shared λ, each unit's
-// noise precision at its own optimum β = n/Φ, Φ = yy − Σ z²/(g + λ), up to a
-// constant: Σ_u [D/2 ln λ − n/2 ln Φ_u − ½ Σ_i ln(λ + g_i)].
-func (b *EvidenceBasis) profile(z2 [][]float64, yy []float64, lambda float64) float64 {
+// noise precision at its own optimum β = n/Φ, Φ = yy − cᵀ(G + λI)⁻¹c, up to
+// a constant: Σ_u [D/2 ln λ − n/2 ln Φ_u − ½ Σ_i ln(λ + g_i)].
+func (b *EvidenceBasis) profile(zt [][]float64, yy []float64, lambda float64) float64 {
 	det := 0.0
 	for _, g := range b.g {
 		det += math.Log(lambda + g)
 	}
 	d, n := float64(b.dim), float64(b.bins)
 	sum := 0.0
-	for u, z := range z2 {
-		phi := yy[u]
-		for i, g := range b.g {
-			phi -= z[i] / (g + lambda)
-		}
+	for u, z := range zt {
+		_, _, _, cm := b.terms(z, yy[u], lambda)
+		phi := yy[u] - cm
 		if !(phi > 0) {
 			return math.Inf(-1)
 		}
@@ -216,7 +264,7 @@ func Evidence(g mat.Symmetric, cross mat.Matrix, yy []float64, bins int) (lambda
 	}
 	lambdas = make([]float64, u)
 	col := make([]float64, r)
-	var z2 [][]float64
+	var zt [][]float64
 	var yyUsed []float64
 	lo, hi := math.Inf(1), 0.0
 	for j := range u {
@@ -230,21 +278,21 @@ func Evidence(g mat.Symmetric, cross mat.Matrix, yy []float64, bins int) (lambda
 			return nil, math.NaN(), fmt.Errorf("online: Evidence: unit %d: %w", j, err)
 		}
 		lambdas[j] = fit.Lambda
-		z2 = append(z2, append([]float64(nil), b.z2...))
+		zt = append(zt, append([]float64(nil), b.zt...))
 		yyUsed = append(yyUsed, yy[j])
 		if fit.Lambda > 0 && !math.IsInf(fit.Lambda, 0) {
 			lo, hi = min(lo, fit.Lambda), max(hi, fit.Lambda)
 		}
 	}
-	if len(z2) == 0 || hi == 0 {
+	if len(zt) == 0 || hi == 0 {
 		return lambdas, math.NaN(), nil
 	}
-	return lambdas, b.sharedLambda(z2, yyUsed, lo/100, hi*100), nil
+	return lambdas, b.sharedLambda(zt, yyUsed, lo/100, hi*100), nil
 }
 
 // sharedLambda maximises profile over λ in [lo, hi].
-func (b *EvidenceBasis) sharedLambda(z2 [][]float64, yy []float64, lo, hi float64) float64 {
-	f := func(t float64) float64 { return b.profile(z2, yy, math.Exp(t)) }
+func (b *EvidenceBasis) sharedLambda(zt [][]float64, yy []float64, lo, hi float64) float64 {
+	f := func(t float64) float64 { return b.profile(zt, yy, math.Exp(t)) }
 	const grid = 60
 	a, c := math.Log(lo), math.Log(hi)
 	best, bestT := math.Inf(-1), a

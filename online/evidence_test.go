@@ -2,7 +2,9 @@ package online
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
+	"math/rand/v2"
 	"os"
 	"testing"
 
@@ -149,7 +151,7 @@ func TestEvidenceShared(t *testing.T) {
 	for u := range yy {
 		mat.Col(col, u, cross)
 		basis.project(col)
-		z2 = append(z2, append([]float64(nil), basis.z2...))
+		z2 = append(z2, append([]float64(nil), basis.zt...))
 	}
 	at := basis.profile(z2, yy, shared)
 	for _, f := range []float64{0.99, 1.01} {
@@ -194,5 +196,42 @@ func TestEvidenceErrors(t *testing.T) {
 	l, _, err := Evidence(gram, mat.NewDense(2, 1, nil), []float64{0}, 10)
 	if err != nil || !math.IsNaN(l[0]) {
 		t.Errorf("silent unit: λ %v, err %v; want NaN, nil", l, err)
+	}
+}
+
+// BenchmarkEvidence times the shared eigendecomposition and the fits of
+// all units (Dim = side²·lags, 64 units) on binary noise.
+func BenchmarkEvidence(b *testing.B) {
+	for _, s := range []struct{ side, lags, frames int }{{8, 3, 4000}, {16, 3, 8000}, {16, 12, 30000}} {
+		b.Run(fmt.Sprintf("D=%d", s.side*s.side*s.lags), func(b *testing.B) {
+			r := rand.New(rand.NewPCG(5, 5))
+			p := s.side * s.side
+			g, _ := NewLagGram(p, s.lags)
+			f := make([]float64, p)
+			for range s.frames {
+				for i := range f {
+					f[i] = float64(2*r.IntN(2) - 1)
+				}
+				g.AddFrame(f)
+			}
+			var gram mat.SymDense
+			g.GramTo(&gram, true)
+			const units = 64
+			d := g.Dim()
+			cross := mat.NewDense(d, units, nil)
+			yy := make([]float64, units)
+			for u := range units {
+				for i := range d {
+					cross.Set(i, u, 20*r.NormFloat64()+float64(i%7)*float64(u%3))
+				}
+				yy[u] = float64(g.Bins())
+			}
+			b.ReportAllocs()
+			for b.Loop() {
+				if _, _, err := Evidence(&gram, cross, yy, g.Bins()); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
 	}
 }
