@@ -100,13 +100,13 @@ func NewLagGram(pixels, lags int) (*LagGram, error) {
 	return g, nil
 }
 
-// Pixels is the frame size, Lags the number of lags and Dim = Pixels·Lags.
+// Pixels is the number of values per frame.
 func (g *LagGram) Pixels() int { return g.pixels }
 
 // Lags is the number of lags.
 func (g *LagGram) Lags() int { return g.lags }
 
-// Dim is the length of one lagged stimulus vector.
+// Dim is the length of one lagged stimulus vector, Pixels·Lags.
 func (g *LagGram) Dim() int { return g.dim }
 
 // Frames is the number of frames added.
