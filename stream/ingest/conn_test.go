@@ -2,12 +2,18 @@ package ingest
 
 import (
 	"encoding/json"
+	"log/slog"
 	"net"
+	"strings"
+	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
 	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
+
+	"livefield/stream/wire"
 )
 
 // TestHealthJSON: the counters encode before any data arrived (no NaN
@@ -73,5 +79,73 @@ func TestReconnect(t *testing.T) {
 	feed(t, p, "b1", 120, [2]string{"on", "odd"})
 	if h := p.settle(r); h.Block != "b1" || h.Bins == 0 {
 		t.Fatalf("after the reconnect: block %q, %d bins; want b1 with bins", h.Block, h.Bins)
+	}
+}
+
+// syncWriter collects log output from the owner goroutine.
+type syncWriter struct {
+	mu sync.Mutex
+	b  strings.Builder
+}
+
+func (w *syncWriter) Write(p []byte) (int, error) {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	return w.b.Write(p)
+}
+func (w *syncWriter) lines(substr string) int {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	return strings.Count(w.b.String(), substr)
+}
+
+// TestRejectionLogRate: every rejection is counted, but one reason is
+// logged at most once per 5 s of the injected clock.
+func TestRejectionLogRate(t *testing.T) {
+	srv := startServer(t)
+	nc := connect(t, srv)
+	var now atomic.Int64
+	var logs syncWriter
+	r := startRig(t, nc, Options{Prefix: "test.log", Now: func() time.Time { return time.Unix(0, now.Load()) },
+		Logger: slog.New(slog.NewTextHandler(&logs, nil))})
+	p := &publisher{t: t, nc: nc, prefix: "test.log"}
+	for range 5 {
+		p.raw("spikes", []byte(`{"unit":`))
+	}
+	h := p.settle(r)
+	if h.Rejected[wire.ReasonSyntax] != 5 || logs.lines("reason=syntax") != 1 {
+		t.Fatalf("%d rejections, %d log lines; want 5 and 1", h.Rejected[wire.ReasonSyntax], logs.lines("reason=syntax"))
+	}
+	now.Add(int64(logEvery))
+	p.raw("spikes", []byte(`{"unit":`))
+	p.settle(r)
+	if n := logs.lines("reason=syntax"); n != 2 {
+		t.Fatalf("%d log lines after 5 s more, want 2", n)
+	}
+}
+
+// TestQueueFull blocks the owner goroutine on purpose: the NATS callback
+// drops what does not fit in the queue, counts it, and never blocks for
+// more than 200 ms per message.
+func TestQueueFull(t *testing.T) {
+	srv := startServer(t)
+	nc := connect(t, srv)
+	r := startRig(t, nc, Options{Prefix: "test.queue", Queue: 1})
+	started, release := make(chan struct{}), make(chan struct{})
+	go r.do(func() { close(started); <-release })
+	<-started // the owner goroutine is held
+	p := &publisher{t: t, nc: nc, prefix: "test.queue"}
+	for range 4 {
+		p.raw("control", []byte(`{"command":"reset"}`))
+	}
+	if err := nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	// One message waits in the queue; three are dropped.
+	pollHealth(t, r, "three drops", func(h Health) bool { return h.Rejected[ReasonQueueFull] == 3 })
+	close(release)
+	h := pollHealth(t, r, "the queued message", func(h Health) bool { return h.Processed == 1 })
+	if h.Resets != 1 || h.Messages["control"] != 4 {
+		t.Fatalf("resets %d of %d control messages, want 1 of 4", h.Resets, h.Messages["control"])
 	}
 }

@@ -49,6 +49,7 @@ type loop struct {
 	stc              map[string]bool
 
 	lastUpdate  time.Time
+	queueDrops  uint64    // queue drops already logged
 	closedAt    time.Time // arrival of the message that closed the first bin since the last update
 	streamT     float64
 	lastBinEnd  float64
@@ -370,6 +371,11 @@ func (l *loop) maybeUpdate() {
 func (l *loop) update() {
 	now := l.r.opt.Now()
 	l.lastUpdate = now
+	if n := l.r.queueDrop.Load(); n > l.queueDrops {
+		// Counted by the NATS callback; logged here, rate-limited.
+		l.r.logRejection(ReasonQueueFull, n, fmt.Errorf("ingest: %d messages dropped: the queue of %d stayed full", n-l.queueDrops, l.r.opt.Queue))
+		l.queueDrops = n
+	}
 	if l.mapper == nil {
 		return
 	}

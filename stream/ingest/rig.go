@@ -142,9 +142,10 @@ type Rig struct {
 	queueDrop atomic.Uint64
 	processed atomic.Uint64 // messages handled by the owner goroutine
 
-	mu     sync.Mutex // guards the fields below, written by the owner goroutine
+	mu     sync.Mutex // guards health, written by the owner goroutine
 	health Health
-	logged map[string]time.Time
+
+	logged map[string]time.Time // last log line per reason; owner goroutine only
 
 	loop loop // owned by the owner goroutine
 }
@@ -331,17 +332,20 @@ func (r *Rig) SetCriterion(target, fraction float64) error {
 // reject counts one rejected message and logs it, at most once per reason
 // per logEvery. Called on the owner goroutine.
 func (r *Rig) reject(reason string, err error) {
-	now := r.opt.Now()
 	r.mu.Lock()
 	r.health.Rejected[reason]++
 	n := r.health.Rejected[reason]
-	last, seen := r.logged[reason]
-	logIt := !seen || now.Sub(last) >= logEvery
-	if logIt {
-		r.logged[reason] = now
-	}
 	r.mu.Unlock()
-	if logIt {
-		r.opt.Logger.Warn("ingest: message rejected", "prefix", r.opt.Prefix, "reason", reason, "count", n, "err", err)
+	r.logRejection(reason, n, err)
+}
+
+// logRejection logs one line for reason unless one was logged less than
+// logEvery ago. Called on the owner goroutine.
+func (r *Rig) logRejection(reason string, count uint64, err error) {
+	now := r.opt.Now()
+	if last, seen := r.logged[reason]; seen && now.Sub(last) < logEvery {
+		return
 	}
+	r.logged[reason] = now
+	r.opt.Logger.Warn("ingest: message rejected", "prefix", r.opt.Prefix, "reason", reason, "count", count, "err", err)
 }
