@@ -12,6 +12,15 @@ import (
 // FeatureFinder computes the Features of estimates of one shape, reusing its
 // scratch space between calls. It is not safe for concurrent use.
 type FeatureFinder struct {
+	// MomentsOnly skips the Gaussian fit and reports the moments, for
+	// estimates that are not significant: a fit to noise costs the most and
+	// means nothing.
+	MomentsOnly bool
+	// Warm, when set, starts the fit from this earlier fit of the same unit
+	// instead of from the moments, and allows fewer steps: the field moves
+	// little between updates. The moments still decide when the fit fails.
+	Warm *Features
+
 	width, height, lags int
 	period              float64
 	dpp                 float64 // degrees per pixel, NaN without geometry
@@ -30,8 +39,9 @@ type FeatureFinder struct {
 
 // The least-squares 2-D Gaussian: parameters and iteration limits.
 const (
-	gaussParams  = 7  // amplitude, x0, y0, ln σ1, ln σ2, angle, offset
-	gaussMaxIter = 60 // Levenberg–Marquardt steps at most
+	gaussParams   = 7  // amplitude, x0, y0, ln σ1, ln σ2, angle, offset
+	gaussMaxIter  = 60 // Levenberg–Marquardt steps at most
+	gaussWarmIter = 8  // steps at most from a warm start
 	// floorNoiseSD is the noise floor of the moments in robust standard
 	// deviations of the map (common practice, no source).
 	floorNoiseSD = 3.0
@@ -221,7 +231,16 @@ func (f *FeatureFinder) shape(m []float64, polarity float64) gauss {
 		f.pos[i] = polarity * v
 	}
 	mom := f.moments(m)
-	fit, ok := f.fit(mom)
+	if f.MomentsOnly {
+		return mom
+	}
+	start, steps := mom, gaussMaxIter
+	if w := f.Warm; w != nil && w.SigmaX > 0 && w.SigmaY > 0 {
+		start.x0, start.y0 = float64(w.CentreX), float64(w.CentreY)
+		start.s1, start.s2, start.angle = float64(w.SigmaX), float64(w.SigmaY), float64(w.Angle)
+		steps = gaussWarmIter
+	}
+	fit, ok := f.fit(start, steps)
 	if ok && f.usable(fit) {
 		return fit
 	}
@@ -345,13 +364,13 @@ func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) 
 }
 
 // fit refines start by Levenberg–Marquardt on f.pos.
-func (f *FeatureFinder) fit(start gauss) (gauss, bool) {
+func (f *FeatureFinder) fit(start gauss, steps int) (gauss, bool) {
 	q := [gaussParams]float64{start.amp, start.x0, start.y0, math.Log(start.s1), math.Log(start.s2), start.angle, start.offset}
 	cost := f.model(&q, f.trial, true)
 	mu := 1e-3
 	var a [gaussParams][gaussParams]float64
 	var b, step [gaussParams]float64
-	for range gaussMaxIter {
+	for range steps {
 		// Normal equations JᵀJ δ = Jᵀr with Marquardt's scaled damping.
 		for r := range gaussParams {
 			b[r] = 0

@@ -153,6 +153,7 @@ type Mapper struct {
 
 	history [][]HistoryPoint
 	trends  []*Trend
+	fits    []shapeFit
 	snap    *Snapshot
 }
 
@@ -208,6 +209,7 @@ func (m *Mapper) Unit(id string) int {
 	m.spikesA = append(m.spikesA, 0)
 	m.history = append(m.history, nil)
 	m.trends = append(m.trends, NewTrend(trendPoints))
+	m.fits = append(m.fits, shapeFit{})
 	m.sta.Grow(len(m.ids))
 	return i
 }
@@ -296,6 +298,7 @@ func (m *Mapper) Reset() {
 		m.received[i], m.spikes[i], m.spikesA[i] = 0, 0, 0
 		m.history[i] = nil
 		m.trends[i].Reset()
+		m.fits[i] = shapeFit{}
 	}
 	m.ridge.Reset()
 	m.sta.Reset()

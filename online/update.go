@@ -38,6 +38,7 @@ func (m *Mapper) newScratch() *scratch {
 // recomputes every unit's statistics and returns a new Snapshot.
 func (m *Mapper) Update() *Snapshot {
 	m.ridge.Flush()
+	m.updates++
 	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim), period: m.cfg.FramePeriod}
 	if m.ridge.Rows() > 0 {
 		m.ridge.WeightsTo(sh.wh, 0)
@@ -145,7 +146,22 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	d.PValue = Float(p)
 	significant := p < cfg.Alpha
 
+	fit := &m.fits[u]
+	fitNow := significant && (!fit.ok || (m.updates+int64(u))%fitEvery == 0)
+	s.features.MomentsOnly = !fitNow
+	s.features.Warm = nil
+	if fit.ok {
+		s.features.Warm = &Features{CentreX: fit.cx, CentreY: fit.cy, SigmaX: fit.sx, SigmaY: fit.sy, Angle: fit.angle}
+	}
 	_ = s.features.FeaturesTo(&d.Features, s.w)
+	switch {
+	case fitNow:
+		fit.save(&d.Features)
+	case significant && fit.ok:
+		fit.restore(&d.Features)
+	default:
+		fit.ok = false
+	}
 	d.PeakLag = d.Features.PeakLag
 	d.LatencyMS = d.Features.LatencyMS
 	d.CentreX, d.CentreY = d.Features.CentreX, d.Features.CentreY
@@ -168,6 +184,27 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	d.Ridge = FloatsOf(s.w)
 	d.Z = FloatsOf(s.z)
 	return d
+}
+
+// fitEvery staggers the Gaussian fits, the costliest per-unit step: each
+// significant unit is refitted every fitEvery updates, units taking turns,
+// and keeps its last fit in between.
+const fitEvery = 4
+
+// shapeFit is a unit's last Gaussian fit.
+type shapeFit struct {
+	ok                                        bool
+	cx, cy, sx, sy, angle, cxd, cyd, sxd, syd Float
+}
+
+func (f *shapeFit) save(ft *Features) {
+	*f = shapeFit{true, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
+		ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg}
+}
+
+func (f *shapeFit) restore(ft *Features) {
+	ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle = f.cx, f.cy, f.sx, f.sy, f.angle
+	ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg = f.cxd, f.cyd, f.sxd, f.syd
 }
 
 // halvesTo writes the two split-half ridge estimates of unit u. With y_A the
@@ -227,7 +264,6 @@ func (m *Mapper) updateSTC(details []*UnitDetail) {
 	if len(m.stc) == 0 {
 		return
 	}
-	m.updates++
 	if m.updates%stcEvery == 0 {
 		units := make([]int, 0, len(m.stc))
 		for u := range m.stc {
