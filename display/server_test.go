@@ -26,6 +26,7 @@ type rigSource struct {
 	target   float64
 	fraction float64
 	reset    func() *online.Snapshot // the snapshot after a reset (nil: unchanged)
+	flag     func(id string, on bool)
 }
 
 func (f *rigSource) Snapshot() *online.Snapshot {
@@ -58,6 +59,9 @@ func (f *rigSource) FlagSTC(id string, on bool) error {
 		f.flags = map[string]bool{}
 	}
 	f.flags[id] = on
+	if f.flag != nil {
+		f.flag(id, on)
+	}
 	return nil
 }
 

@@ -26,8 +26,8 @@ type simCell struct {
 }
 
 var simCells = []simCell{
-	{id: "12", x: 4, y: 11, sigma: 1.5, base: 0.35, gain: 0.12, on: true},
-	{id: "7", x: 11, y: 4, sigma: 1.2, base: 0.3, gain: 0.08, on: false},
+	{id: "12", x: 4, y: 11, sigma: 1.5, base: 1.0, gain: 0.4, on: true},
+	{id: "7", x: 11, y: 4, sigma: 1.2, base: 0.8, gain: 0.3, on: false},
 	{id: "3", base: 0.3, fieldless: true},
 }
 
