@@ -143,7 +143,8 @@ type Mapper struct {
 
 	sta      *STA
 	ridge    *Ridge
-	capUnits int // units the ridge has columns for
+	gram     *LagGram // lag cross-products, for the evidence and batch solves
+	capUnits int      // units the ridge has columns for
 
 	stc        map[int]*STC
 	stcResults map[int]*STCResult
@@ -185,6 +186,9 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	}
 	m.yrow = make([]float64, 1+2*m.capUnits)
 	m.sta = NewSTA(m.pixels, cfg.Lags)
+	if m.gram, err = NewLagGram(m.pixels, cfg.Lags); err != nil {
+		return nil, err
+	}
 	m.stc = map[int]*STC{}
 	m.stcResults = map[int]*STCResult{}
 	m.snap = m.emptySnapshot()
@@ -237,21 +241,39 @@ func (m *Mapper) growColumns() {
 	m.yrow = make([]float64, 1+2*m.capUnits)
 }
 
+// ErrBin is wrapped by AddBin's errors: the bin was refused whole and the
+// estimates are unchanged.
+var ErrBin = errors.New("online: bin refused")
+
 // AddBin adds one bin: frame is the stimulus frame on screen during the bin
 // (row-major, width×height); counts are the spikes per unit index in the bin.
-// Unit indices must come from Unit. It does not allocate in steady state.
-func (m *Mapper) AddBin(frame []float64, counts []Count) {
+// Unit indices must come from Unit. A frame of the wrong size or with a
+// non-finite value, an unknown unit or a negative or non-finite count is
+// refused whole with an error wrapping ErrBin. It does not allocate in
+// steady state.
+func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	if len(frame) != m.pixels {
-		panic(fmt.Sprintf("online: frame of %d pixels, want %d", len(frame), m.pixels))
+		return fmt.Errorf("%w: frame of %d pixels, want %d", ErrBin, len(frame), m.pixels)
+	}
+	for i, v := range frame {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("%w: frame pixel %d is %v", ErrBin, i, v)
+		}
+	}
+	for _, c := range counts {
+		if c.Unit < 0 || c.Unit >= len(m.ids) || !(c.N >= 0) || math.IsInf(c.N, 0) {
+			return fmt.Errorf("%w: count %v for unit index %d of %d", ErrBin, c.N, c.Unit, len(m.ids))
+		}
 	}
 	for _, c := range counts {
 		m.received[c.Unit] += int64(c.N)
 	}
 	m.head = (m.head + 1) % len(m.ring)
 	copy(m.ring[m.head], frame)
+	_ = m.gram.AddFrame(frame) // cannot fail: the frame was checked above
 	m.added++
 	if m.added < int64(m.cfg.Lags) {
-		return // not yet a full history: the bin is not used
+		return nil // not yet a full history: the bin is not used
 	}
 	for lag := range m.cfg.Lags {
 		src := m.ring[(m.head-lag+len(m.ring))%len(m.ring)]
@@ -288,6 +310,7 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) {
 		m.yrow[1+2*c.Unit] = 0
 		m.yrow[2+2*c.Unit] = 0
 	}
+	return nil
 }
 
 // Reset forgets all estimates (the electrode moved); units stay registered
@@ -302,6 +325,7 @@ func (m *Mapper) Reset() {
 	}
 	m.ridge.Reset()
 	m.sta.Reset()
+	m.gram.Reset()
 	m.stc = map[int]*STC{}
 	m.stcResults = map[int]*STCResult{}
 	m.stcLags = nil

@@ -13,6 +13,21 @@ type lnpCell struct {
 	filter []float64 // lag-major, like the estimates
 	base   float64   // spikes per bin at zero drive
 	gain   float64
+	// quad, when set, makes an energy-model cell (Adelson & Bergen 1985):
+	// rate = base·(0.2 + Σ_j (q_j·x)²), and filter and gain are unused.
+	quad [][]float64
+}
+
+func (c lnpCell) rate(x []float64) float64 {
+	if c.quad == nil {
+		return c.base * math.Exp(c.gain*dot(c.filter, x))
+	}
+	e := 0.2
+	for _, q := range c.quad {
+		v := dot(q, x)
+		e += v * v
+	}
+	return c.base * e
 }
 
 // gaborFilter is a small oriented field at (cx, cy) peaking at lag peak.
@@ -80,6 +95,10 @@ type simulation struct {
 	hist   [][]float64
 	x      []float64
 	counts []Count
+
+	record bool        // keep the used bins' lagged stimuli and counts
+	rows   [][]float64 // lagged stimulus of each used bin
+	ys     [][]float64 // counts per cell of each used bin
 }
 
 func newSimulation(t testing.TB, cfg Config, cells []lnpCell, seed uint64, frame func(rng *rand.Rand, dst []float64)) *simulation {
@@ -114,12 +133,20 @@ func (s *simulation) run(bins int) {
 		}
 		s.counts = s.counts[:0]
 		for i, c := range s.cells {
-			n := poisson(s.rng, c.base*math.Exp(c.gain*dot(c.filter, s.x)))
+			n := poisson(s.rng, c.rate(s.x))
 			if n > 0 {
 				s.counts = append(s.counts, Count{Unit: s.units[i], N: n})
 			}
 		}
 		s.m.AddBin(s.hist[0], s.counts)
+		if s.record && s.m.added >= int64(s.m.cfg.Lags) {
+			y := make([]float64, len(s.cells))
+			for _, c := range s.counts {
+				y[c.Unit] = c.N
+			}
+			s.rows = append(s.rows, append([]float64(nil), s.x...))
+			s.ys = append(s.ys, y)
+		}
 		if (k+1)%perSecond == 0 {
 			s.m.Update()
 		}
@@ -267,5 +294,73 @@ func TestMapperNullCalibration(t *testing.T) {
 	meanR := sumR / float64(nR)
 	if math.Abs(meanR) > 0.05 {
 		t.Errorf("mean split-half reliability under the null = %.3f, want 0 ± 0.05", meanR)
+	}
+}
+
+// An energy-model complex cell (Adelson & Bergen 1985) has a flat STA; the
+// mapper must call it "no field", start STC on it by itself, and find two
+// significant excitatory eigenvalues whose filters span the true quadrature
+// pair (Schwartz, Pillow, Rust & Simoncelli 2006).
+func TestMapperSTCForComplexCell(t *testing.T) {
+	const w, h, lags = 6, 6, 5
+	cfg := Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, STCLags: 1, MinSpikes: 200}
+	even := gaborFilter(w, h, lags, 2.5, 2.5, 1.3, 0.3, 2)
+	odd := make([]float64, len(even))
+	for l := range lags {
+		for r := range h {
+			for c := range w {
+				dx, dy := float64(c)-2.5, float64(r)-2.5
+				u := dx*math.Cos(0.3) + dy*math.Sin(0.3)
+				env := math.Exp(-(dx*dx + dy*dy) / (2 * 1.3 * 1.3))
+				odd[l*w*h+r*w+c] = env * math.Sin(2*math.Pi*u/(3*1.3)) * math.Exp(-0.5*math.Pow((float64(l)-2)/1.2, 2))
+			}
+		}
+	}
+	// Only lag 2 carries the pair, so the STC window (one lag, centred on
+	// the lag nearest 60 ms at 60 Hz, lag 4 by default) must be moved there:
+	// use a frame period that puts 60 ms at lag 2.
+	cfg.FramePeriod = 0.030
+	for l := range lags {
+		if l != 2 {
+			for i := l * w * h; i < (l+1)*w*h; i++ {
+				even[i], odd[i] = 0, 0
+			}
+		}
+	}
+	cells := []lnpCell{{quad: [][]float64{normalise(even), normalise(odd)}, base: 0.15}}
+	sim := newSimulation(t, cfg, cells, 4, binaryFrame)
+	sim.run(int(240 / cfg.FramePeriod))
+	for range 2 * stcEvery {
+		sim.m.Update()
+	}
+	d, _ := sim.m.Snapshot().Detail("u0")
+	if d.Status != NoField {
+		t.Fatalf("complex cell status %q (p %.3g), want %q: its STA should be flat", d.Status, d.PValue, NoField)
+	}
+	if d.STC == nil {
+		t.Fatalf("no STC result for a unit with no field after %d spikes", d.Spikes)
+	}
+	var sig int
+	for _, e := range d.STC.Eigenvalues {
+		if float64(e) > float64(d.STC.NullHigh) {
+			sig++
+		}
+	}
+	if sig != 2 {
+		t.Fatalf("%d eigenvalues above the null bound %.3f (top %v), want 2", sig, d.STC.NullHigh, d.STC.Eigenvalues[:4])
+	}
+	// Squared projection of each true filter (at lag 2) onto the span of
+	// the two leading filters.
+	for name, f := range map[string][]float64{"even": even[2*w*h : 3*w*h], "odd": odd[2*w*h : 3*w*h]} {
+		f = normalise(append([]float64(nil), f...))
+		var proj float64
+		for _, v := range d.STC.Filters[:2] {
+			vv := normalise(floats(v))
+			c := dot(f, vv)
+			proj += c * c
+		}
+		if proj < 0.8 {
+			t.Errorf("%s filter: squared projection on the STC pair %.3f, want ≥ 0.8", name, proj)
+		}
 	}
 }

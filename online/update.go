@@ -108,10 +108,16 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	m.sta.STATo(s.sta, u)
 	m.sta.CrossTo(s.cross, u)
 
-	// Split halves of the ridge estimate, each free of the indicator's fit.
-	m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
-	r, R := SplitHalf(s.ha, s.hb)
-	_ = r
+	// Split halves: for a white stimulus the STAs of the two halves, which
+	// are independent and each proportional to the filter; otherwise the
+	// ridge fits of each half's counts (see halvesTo), which need many more
+	// bins than dimensions before they stop underestimating.
+	if cfg.White {
+		m.sta.HalvesTo(s.ha, s.hb, u)
+	} else {
+		m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
+	}
+	_, R := SplitHalf(s.ha, s.hb)
 	d.Reliability = Float(R)
 
 	// Noise variance and per-coefficient z from the ridge posterior σ²P.
@@ -240,6 +246,12 @@ func dot(a, b []float64) float64 {
 // units in turn, so the cost per update stays bounded.
 const stcEvery = 2
 
+// stcMinSamples is how many effective spike-triggered samples per dimension
+// STC waits for before it reports: with fewer, the sample covariance's
+// spectrum is too wide for the random-matrix bound to mean much (common
+// practice, no source).
+const stcMinSamples = 2
+
 // updateSTC starts STC for flagged units and for units with no linear field
 // (within the cap), refreshes one unit's result in turn, and attaches the
 // latest results to the details. STC needs a white stimulus, whose prior
@@ -272,9 +284,12 @@ func (m *Mapper) updateSTC(details []*UnitDetail) {
 		slices.Sort(units)
 		u := units[m.stcTurn%len(units)]
 		m.stcTurn++
-		if res, err := m.stc[u].Result(m.cfg.PixelVariance, math.NaN(), math.NaN()); err == nil {
-			res.Spikes = int64(m.stc[u].Spikes())
-			m.stcResults[u] = &res
+		// The null bound needs many more samples than dimensions.
+		if acc := m.stc[u]; acc.Effective() >= stcMinSamples*float64(acc.Dim()) {
+			if res, err := acc.Result(m.cfg.PixelVariance, math.NaN(), math.NaN()); err == nil {
+				res.Spikes = int64(acc.Spikes())
+				m.stcResults[u] = &res
+			}
 		}
 	}
 	for u, d := range details {
