@@ -27,6 +27,11 @@ type STA struct {
 	sy     [][2]float64 // Σy per half
 
 	rejected int64
+
+	// Means cached by CacheMeans: [0] half A, [1] half B, [2] all bins,
+	// valid while the bin counts equal meanN.
+	mean  [3][]float64
+	meanN [2]int64
 }
 
 // Layout of one unit's block in STA.data.
@@ -190,6 +195,34 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 
 // meanTo writes the mean stimulus of the given halves into dst.
 func (s *STA) meanTo(dst []float64, halves ...int) bool {
+	if s.meanN == s.n && s.mean[2] != nil {
+		which := 2
+		if len(halves) == 1 {
+			which = halves[0]
+		}
+		copy(dst, s.mean[which])
+		return s.n[0]+s.n[1] > 0
+	}
+	return s.computeMeanTo(dst, halves...)
+}
+
+// CacheMeans computes the mean lagged stimulus of each half and of all bins
+// once, for the reads that follow until the next AddBin. Call it before
+// reading many units from several goroutines: the reads then share the
+// cache without writing to it.
+func (s *STA) CacheMeans() {
+	for i := range s.mean {
+		if len(s.mean[i]) != s.dim {
+			s.mean[i] = make([]float64, s.dim)
+		}
+	}
+	s.computeMeanTo(s.mean[0], 0)
+	s.computeMeanTo(s.mean[1], 1)
+	s.computeMeanTo(s.mean[2], 0, 1)
+	s.meanN = s.n
+}
+
+func (s *STA) computeMeanTo(dst []float64, halves ...int) bool {
 	var n int64
 	for _, h := range halves {
 		n += s.n[h]
@@ -311,4 +344,5 @@ func (s *STA) Reset() {
 	}
 	clear(s.sy)
 	s.rejected = 0
+	s.meanN = [2]int64{-1, -1} // the cached means are stale
 }

@@ -45,6 +45,7 @@ func (m *Mapper) Update() *Snapshot {
 		m.ridge.PosteriorDiagTo(sh.pdiag)
 		sh.t1, sh.t2 = m.ridge.HatTraces()
 	}
+	m.sta.CacheMeans()
 	n := len(m.ids)
 	details := make([]*UnitDetail, n)
 	workers := min(runtime.GOMAXPROCS(0), n)
