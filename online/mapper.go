@@ -153,6 +153,7 @@ type Mapper struct {
 	updates    int64
 
 	history [][]HistoryPoint
+	popPeak int // median peak lag of the significant units at the last update
 	trends  []*Trend
 	fits    []shapeFit
 	snap    *Snapshot
@@ -191,6 +192,7 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	}
 	m.stc = map[int]*STC{}
 	m.stcResults = map[int]*STCResult{}
+	m.popPeak = m.defaultPeak()
 	m.snap = m.emptySnapshot()
 	return m, nil
 }
@@ -329,6 +331,7 @@ func (m *Mapper) Reset() {
 	m.stc = map[int]*STC{}
 	m.stcResults = map[int]*STCResult{}
 	m.stcLags = nil
+	m.popPeak = m.defaultPeak()
 	m.snap = m.emptySnapshot()
 }
 
@@ -373,4 +376,10 @@ func (m *Mapper) emptySnapshot() *Snapshot {
 		Units:       []UnitSummary{},
 		details:     map[string]*UnitDetail{},
 	}
+}
+
+// defaultPeak is the lag nearest 60 ms, a typical latency in visual cortex
+// (common practice, no source), used until some unit has a field.
+func (m *Mapper) defaultPeak() int {
+	return min(int(math.Round(0.060/m.cfg.FramePeriod)), m.cfg.Lags-1)
 }

@@ -62,6 +62,7 @@ func (m *Mapper) Update() *Snapshot {
 	}
 	wg.Wait()
 	m.updateSTC(details)
+	m.popPeak = medianPeak(details, m.popPeak)
 
 	snap := m.emptySnapshot()
 	snap.T = Float(float64(m.used) * m.cfg.FramePeriod)
@@ -109,18 +110,6 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	m.sta.STATo(s.sta, u)
 	m.sta.CrossTo(s.cross, u)
 
-	// Split halves: for a white stimulus the STAs of the two halves, which
-	// are independent and each proportional to the filter; otherwise the
-	// ridge fits of each half's counts (see halvesTo), which need many more
-	// bins than dimensions before they stop underestimating.
-	if cfg.White {
-		m.sta.HalvesTo(s.ha, s.hb, u)
-	} else {
-		m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
-	}
-	_, R := SplitHalf(s.ha, s.hb)
-	d.Reliability = Float(R)
-
 	// Noise variance and per-coefficient z from the ridge posterior σ²P.
 	dof := float64(m.used) - 1 - sh.t1
 	sigma2, rss := math.NaN(), math.NaN()
@@ -152,6 +141,19 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	}
 	d.PValue = Float(p)
 	significant := p < cfg.Alpha
+
+	// Split halves: for a white stimulus the STAs of the two halves, which
+	// are independent and each proportional to the filter; otherwise the
+	// ridge fits of each half's counts (see halvesTo), which need many more
+	// bins than dimensions before they stop underestimating.
+	if cfg.White {
+		m.sta.HalvesTo(s.ha, s.hb, u)
+	} else {
+		m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
+	}
+	lo, hi := m.reliabilityWindow(s.w, significant)
+	_, R := SplitHalf(s.ha[lo:hi], s.hb[lo:hi])
+	d.Reliability = Float(R)
 
 	fit := &m.fits[u]
 	fitNow := significant && (!fit.ok || (m.updates+int64(u))%fitEvery == 0)
@@ -191,6 +193,32 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	d.Ridge = FloatsOf(s.w)
 	d.Z = FloatsOf(s.z)
 	return d
+}
+
+// reliabilityLags is the width of the lag window over which the split
+// halves are compared: the main lobe of a field, without the many lags that
+// hold only noise.
+const reliabilityLags = 3
+
+// reliabilityWindow returns the coefficient range [lo, hi) of the lag window
+// for the split-half correlation: centred on the unit's own peak lag once
+// the unit is significant (its field then decides the lag, not its noise),
+// before that on the population's median peak lag, so that under the null
+// the window does not depend on the unit's own data and r stays unbiased.
+func (m *Mapper) reliabilityWindow(w []float64, significant bool) (lo, hi int) {
+	centre := m.popPeak
+	if significant {
+		best := -1.0
+		for l := range m.cfg.Lags {
+			e := dot(w[l*m.pixels:(l+1)*m.pixels], w[l*m.pixels:(l+1)*m.pixels])
+			if e > best {
+				centre, best = l, e
+			}
+		}
+	}
+	n := min(reliabilityLags, m.cfg.Lags)
+	first := min(max(centre-n/2, 0), m.cfg.Lags-n)
+	return first * m.pixels, (first + n) * m.pixels
 }
 
 // fitEvery staggers the Gaussian fits, the costliest per-unit step: each
@@ -302,20 +330,9 @@ func (m *Mapper) updateSTC(details []*UnitDetail) {
 }
 
 // stcWindow picks STC's lags: STCLags lags centred on the median peak lag of
-// the significant units, or on the lag nearest 60 ms (a typical latency in
-// visual cortex; common practice, no source) when there is none yet.
+// the significant units, or on the lag nearest 60 ms when there is none yet.
 func (m *Mapper) stcWindow(details []*UnitDetail) []int {
-	var peaks []int
-	for _, d := range details {
-		if d.Status == Emerging || d.Status == Reliable {
-			peaks = append(peaks, d.PeakLag)
-		}
-	}
-	centre := int(math.Round(0.060 / m.cfg.FramePeriod))
-	if len(peaks) > 0 {
-		slices.Sort(peaks)
-		centre = peaks[len(peaks)/2]
-	}
+	centre := medianPeak(details, m.defaultPeak())
 	n := m.cfg.STCLags
 	first := min(max(centre-n/2, 0), m.cfg.Lags-n)
 	lags := make([]int, n)
@@ -323,4 +340,20 @@ func (m *Mapper) stcWindow(details []*UnitDetail) []int {
 		lags[i] = first + i
 	}
 	return lags
+}
+
+// medianPeak is the median peak lag of the significant units, or old when
+// there is none.
+func medianPeak(details []*UnitDetail, old int) int {
+	var peaks []int
+	for _, d := range details {
+		if d.Status == Emerging || d.Status == Reliable {
+			peaks = append(peaks, d.PeakLag)
+		}
+	}
+	if len(peaks) == 0 {
+		return old
+	}
+	slices.Sort(peaks)
+	return peaks[len(peaks)/2]
 }
