@@ -19,7 +19,7 @@ import (
 func init() {
 	register("serve", command{
 		summary: "map the live stream of one rig and serve the estimates over HTTP",
-		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N] [--api-token T]",
+		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N] [--api-token T] [--shard i/n] [--no-jetstream]",
 		example: "livefield serve --nats nats://127.0.0.1:4222 --rig rig1 --stimuli ./stimuli --http 127.0.0.1:8080",
 		run:     runServe,
 	})
@@ -122,6 +122,8 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	grace := fs.Duration("grace", 250*time.Millisecond, "how long a bin waits for late spikes")
 	maxUnits := fs.Int("max-units", ingest.DefaultMaxUnits, "cap on distinct unit ids per block")
 	apiToken := fs.String("api-token", "", "when set, required by the HTTP commands (POST /api/…) and exports, header "+display.TokenHeader)
+	shardFlag := fs.String("shard", "0/1", "map only the units of shard i of n (FNV-1a-32 of the unit id mod n); every worker reads all frames")
+	noJS := fs.Bool("no-jetstream", false, "read core NATS even when the server has JetStream (messages sent during a disconnect are then lost)")
 	if err := parse(fs, args); err != nil {
 		return err
 	}
@@ -136,7 +138,11 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	if *maxUnits <= 0 {
 		return fmt.Errorf("--max-units %d: must be positive", *maxUnits)
 	}
-	opts, err := nf.options("livefield serve "+*rig, log)
+	shard, err := ingest.ParseShard(*shardFlag)
+	if err != nil {
+		return fmt.Errorf("--shard %s: %w", *shardFlag, err)
+	}
+	opts, err := nf.options("livefield serve "+*rig+" shard "+shard.String(), log)
 	if err != nil {
 		return err
 	}
@@ -150,18 +156,35 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 		return fmt.Errorf("--nats %s: %w", redact(nf.url), err)
 	}
 	defer nc.Close()
+	durable := false
+	if !*noJS {
+		if durable, err = ingest.HasJetStream(ctx, nc); err != nil {
+			return err
+		}
+	}
 	r, err := ingest.Start(ctx, nc, ingest.Options{
 		Prefix:     prefix,
 		StimuliDir: *stimuli,
 		Grace:      grace.Seconds(),
 		MaxUnits:   *maxUnits,
 		Logger:     log,
+		Shard:      shard,
+		Durable:    durable,
 	})
 	if err != nil {
 		return err
 	}
 	defer r.Close()
-	fmt.Fprintf(stdout, "livefield: mapping %s.* from %s\nlivefield: open http://%s/\n", prefix, redact(nf.url), ln.Addr())
+	if h := r.Counters(); h.Durable {
+		fmt.Fprintf(stdout, "livefield: durable: JetStream stream %s, consumer %s, from sequence %d\n", h.Stream, h.Consumer, h.StartSeq)
+	} else {
+		why := "the server has no JetStream"
+		if *noJS {
+			why = "--no-jetstream"
+		}
+		log.Warn("livefield: not durable ("+why+"): "+ingest.CoreWarning, "prefix", prefix)
+	}
+	fmt.Fprintf(stdout, "livefield: mapping %s.* (shard %s) from %s\nlivefield: open http://%s/\n", prefix, shard, redact(nf.url), ln.Addr())
 	return serveHTTP(ctx, ln, r, *apiToken)
 }
 

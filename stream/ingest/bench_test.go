@@ -156,21 +156,18 @@ func BenchmarkLoop(b *testing.B) {
 	b.ReportAllocs()
 	b.ResetTimer()
 	for range b.N {
-		r := &Rig{logged: map[string]time.Time{}}
-		r.opt = Options{Prefix: "bench", Logger: quiet(), UpdateEvery: time.Hour}
-		if err := r.opt.fill(); err != nil {
+		c, err := NewLoop(Options{Prefix: "bench", Logger: quiet(), UpdateEvery: time.Hour})
+		if err != nil {
 			b.Fatal(err)
 		}
-		r.health.Rejected = map[string]uint64{}
-		r.loop.init(r)
-		r.loop.handle(message{subj: subjBlock, data: start})
+		c.st.handle(message{subj: subjBlock, data: start})
 		for _, m := range msgs {
-			r.loop.handle(m)
+			c.st.handle(m)
 		}
-		if n := len(r.health.Rejected); n != 0 {
-			b.Fatalf("rejected %v", r.health.Rejected)
+		if n := len(c.health.Rejected); n != 0 {
+			b.Fatalf("rejected %v", c.health.Rejected)
 		}
-		bins = r.loop.binsTotal
+		bins = c.st.binsTotal
 	}
 	b.ReportMetric(float64(spikes)*float64(b.N)/b.Elapsed().Seconds(), "spikes/s")
 	b.ReportMetric(float64(bins)*float64(b.N)/b.Elapsed().Seconds(), "bins/s")
@@ -303,28 +300,30 @@ func TestSteadyStateNoAlloc(t *testing.T) {
 	msgs, _ := session(t, 6)
 	start, _ := json.Marshal(map[string]any{"kind": "start", "block": "bench", "t": 0, "lags": refLags,
 		"stimulus": binary(refSide, refSide, 3)})
-	r := &Rig{logged: map[string]time.Time{}}
-	r.opt = Options{Prefix: "bench", Logger: quiet(), UpdateEvery: time.Hour}
-	if err := r.opt.fill(); err != nil {
-		t.Fatal(err)
-	}
-	r.health.Rejected = map[string]uint64{}
-	r.loop.init(r)
-	r.loop.handle(message{subj: subjBlock, data: start})
-	warm := len(msgs) / 2
-	for _, m := range msgs[:warm] {
-		r.loop.handle(m)
-	}
-	rest := msgs[warm:]
-	i := 0
-	allocs := testing.AllocsPerRun(len(rest)-1, func() {
-		r.loop.handle(rest[i])
-		i++
-	})
-	if allocs != 0 || len(r.health.Rejected) != 0 {
-		t.Fatalf("%.2f allocations per message (rejected %v), want 0", allocs, r.health.Rejected)
-	}
-	if r.loop.binsTotal < 300 {
-		t.Fatalf("only %d bins: the test did not exercise binning", r.loop.binsTotal)
+	for _, sh := range []Shard{{}, {Index: 1, Count: 2}} {
+		c, err := NewLoop(Options{Prefix: "bench", Logger: quiet(), UpdateEvery: time.Hour, Shard: sh})
+		if err != nil {
+			t.Fatal(err)
+		}
+		c.st.handle(message{subj: subjBlock, data: start})
+		warm := len(msgs) / 2
+		for _, m := range msgs[:warm] {
+			c.st.handle(m)
+		}
+		rest := msgs[warm:]
+		i := 0
+		allocs := testing.AllocsPerRun(len(rest)-1, func() {
+			c.st.handle(rest[i])
+			i++
+		})
+		if allocs != 0 || len(c.health.Rejected) != 0 {
+			t.Fatalf("shard %v: %.2f allocations per message (rejected %v), want 0", sh, allocs, c.health.Rejected)
+		}
+		if c.st.binsTotal < 300 {
+			t.Fatalf("shard %v: only %d bins: the test did not exercise binning", sh, c.st.binsTotal)
+		}
+		if sh.Count == 2 && (c.st.otherShard == 0 || c.st.spikesTotal == 0) {
+			t.Fatalf("shard %v: %d spikes mapped, %d of other shards; want both", sh, c.st.spikesTotal, c.st.otherShard)
+		}
 	}
 }

@@ -43,3 +43,24 @@ func Example() {
 	fmt.Println(h.Block, h.BlockState, "bins:", h.Bins, "spikes:", h.SpikesTotal, "rejected:", len(h.Rejected))
 	// Output: B1 ended bins: 6 spikes: 2 rejected: 0
 }
+
+// ExampleLoop feeds the same messages without NATS, as a replay does: the
+// arrival times are the update clock.
+func ExampleLoop() {
+	l, err := ingest.NewLoop(ingest.Options{})
+	if err != nil {
+		panic(err)
+	}
+	at := time.Date(2026, 5, 1, 9, 0, 0, 0, time.UTC)
+	l.Feed("block", []byte(`{"kind":"start","block":"B1","t":0,"stimulus":{"type":"binary","width":8,"height":8,"seed":1}}`), at)
+	l.Feed("frames", []byte(`{"block":"B1","index":[0,1,2,3,4,5],"t":[0,0.0167,0.0333,0.05,0.0667,0.0833]}`), at)
+	l.Feed("spikes", []byte(`{"unit":["ch01.0","ch01.0"],"t":[0.02,0.07]}`), at)
+	err = l.Feed("spikes", []byte(`{"unit":["ch01.0"],"t":[-1]}`), at)
+	fmt.Println("refused:", err.(*ingest.Error).Reason)
+	l.Feed("block", []byte(`{"kind":"end","block":"B1","t":0.1}`), at.Add(time.Second))
+	t := l.Totals()
+	fmt.Println("bins:", t.Bins, "spikes:", t.Spikes, "units:", len(l.Snapshot().Units))
+	// Output:
+	// refused: negative-time
+	// bins: 6 spikes: 2 units: 1
+}

@@ -37,8 +37,36 @@ type Health struct {
 	// or rejected), over all subjects.
 	Processed uint64 `json:"processed"`
 	// SlowConsumer is the messages nats.go dropped because the
-	// subscription's pending limits were exceeded.
-	SlowConsumer int `json:"slow_consumer_drops"`
+	// subscription's pending limits were exceeded (core NATS), and
+	// SlowConsumerEvents the episodes of it seen (one per tick of the owner
+	// goroutine at most).
+	SlowConsumer       int    `json:"slow_consumer_drops"`
+	SlowConsumerEvents uint64 `json:"slow_consumer_events"`
+	// Queue is the messages waiting for the owner goroutine now.
+	Queue int `json:"queue"`
+
+	// Durable is true when the ingest reads a JetStream stream; Warning
+	// says what is at risk otherwise.
+	Durable bool   `json:"durable"`
+	Warning string `json:"warning,omitempty"`
+	// JetStream only: the stream and durable consumer, the stream sequence
+	// consumption (re)started at and the last one processed, the messages
+	// stored after the last delivered one, redeliveries skipped, consumer
+	// recreations after a gap, and consumer errors.
+	Stream      string `json:"stream,omitempty"`
+	Consumer    string `json:"consumer,omitempty"`
+	StartSeq    uint64 `json:"start_seq,omitempty"`
+	StreamSeq   uint64 `json:"stream_seq,omitempty"`
+	Backlog     uint64 `json:"backlog,omitempty"`
+	Duplicates  uint64 `json:"duplicates"`
+	Resyncs     uint64 `json:"resyncs"`
+	JSErrors    uint64 `json:"jetstream_errors"`
+	JSLastError string `json:"jetstream_last_error,omitempty"`
+
+	// Shard is this worker's share of the units, "i/n"; OtherShardSpikes
+	// the spikes of other shards' units, ignored (not rejected).
+	Shard            string `json:"shard"`
+	OtherShardSpikes uint64 `json:"other_shard_spikes"`
 	// Rejected counts rejected messages by reason; QueueFull ones included.
 	Rejected map[string]uint64 `json:"rejected"`
 
@@ -77,27 +105,47 @@ type Health struct {
 }
 
 // Health returns a copy of the counters. Safe from any goroutine.
+func (c *Loop) Health() any { return c.Counters() }
+
+// Counters is Health with its concrete type.
+func (c *Loop) Counters() Health {
+	c.mu.Lock()
+	h := c.health
+	h.Rejected = maps.Clone(c.health.Rejected)
+	c.mu.Unlock()
+	h.Prefix = c.opt.Prefix
+	h.Processed = c.processed.Load()
+	if n := c.queueDrop.Load(); n > 0 {
+		h.Rejected[ReasonQueueFull] += n
+	}
+	return h
+}
+
+// Health returns a copy of the counters. Safe from any goroutine.
 func (r *Rig) Health() any { return r.Counters() }
 
 // Counters is Health with its concrete type.
 func (r *Rig) Counters() Health {
-	r.mu.Lock()
-	h := r.health
-	h.Rejected = maps.Clone(r.health.Rejected)
-	r.mu.Unlock()
-	h.Prefix = r.opt.Prefix
+	h := r.core.Counters()
 	h.Messages = make(map[string]uint64, nSubjects)
 	for i := range nSubjects {
 		h.Messages[subjectNames[i]] = r.received[i].Load()
 	}
-	if !h.closing {
+	h.Queue = len(r.in)
+	if r.sub != nil && !h.closing {
 		if n, err := r.sub.Dropped(); err == nil {
 			h.SlowConsumer = n
 		}
 	}
-	h.Processed = r.processed.Load()
-	if n := r.queueDrop.Load(); n > 0 {
-		h.Rejected[ReasonQueueFull] += n
+	h.SlowConsumerEvents = r.slowEvents.Load()
+	if d := r.dur; d != nil {
+		h.Durable = true
+		h.Stream, h.Consumer = r.opt.Stream, r.opt.Consumer
+		h.StartSeq, h.StreamSeq, h.Backlog = d.startSeq.Load(), d.lastSeq.Load(), d.pending.Load()
+		h.Duplicates, h.Resyncs, h.JSErrors = d.dups.Load(), d.resyncs.Load(), d.errs.Load()
+		if s := d.lastError.Load(); s != nil {
+			h.JSLastError = *s
+		}
 	}
 	h.Connection = r.nc.Status().String()
 	h.Reconnects = r.nc.Stats().Reconnects

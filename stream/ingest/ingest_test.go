@@ -237,6 +237,8 @@ func TestRejections(t *testing.T) {
 		{"spikes of another block", "spikes", `{"block":"nope","unit":["on"],"t":[10.5]}`, ReasonUnknownBlock},
 		{"broken stimulus spec", "block", `{"kind":"start","block":"b2","t":20,"stimulus":{"type":"spiral","width":8,"height":8}}`, ReasonBadStimulus},
 		{"frames of the rejected block", "frames", `{"block":"b2","index":[0],"t":[20]}`, ReasonBlockRejected},
+		{"movie path outside the stimuli dir", "block", `{"kind":"start","block":"b4","t":20,"stimulus":{"type":"movie","file":"../x.npy"}}`, ReasonBadStimulus},
+		{"absolute movie path", "block", `{"kind":"start","block":"b5","t":20,"stimulus":{"type":"movie","file":"/etc/passwd"}}`, ReasonBadStimulus},
 		{"missing movie file", "block", `{"kind":"start","block":"b3","t":20,"stimulus":{"type":"movie","file":"absent.npy"}}`, ReasonBadStimulus},
 		{"end of another block", "block", `{"kind":"end","block":"b9","t":20}`, ReasonUnknownBlock},
 		{"oversized message", "spikes", huge, wire.ReasonTooLarge},

@@ -4,6 +4,8 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"sync"
+	"sync/atomic"
 	"time"
 
 	"livefield/online"
@@ -20,10 +22,146 @@ const rejectedBlocks = 16
 // latest frame onset: it keeps bins closing while no unit fires.
 const quietAdvance = 2.0
 
-// loop is the state of the owner goroutine. Nothing here is touched from
-// another goroutine.
+// Loop is the NATS-free core of one rig's ingest: it decodes, bins and
+// estimates the messages given to Feed, in the order given, and publishes
+// a snapshot once per UpdateEvery of the arrival clock. Start runs one for
+// the messages it reads from NATS; replay runs one over a session file.
+//
+// Feed, Advance, Update, Finish, Reset, FlagSTC, SetCriterion and Totals
+// must be called from one goroutine at a time (the feeder's). Snapshot,
+// Counters and Health may be called from any goroutine.
+type Loop struct {
+	opt Options
+
+	snap      atomic.Pointer[online.Snapshot]
+	processed atomic.Uint64 // messages handled (accepted or rejected)
+	queueDrop atomic.Uint64 // counted by a Rig's NATS callbacks
+
+	mu     sync.Mutex // guards health, written by the feeding goroutine
+	health Health
+
+	logged map[string]time.Time // last log line per reason; feeder only
+
+	st loop // feeder only
+}
+
+// NewLoop returns a Loop with no block running. Options.Prefix may be
+// empty; the NATS settings (Durable, Stream, Consumer, Queue, Pending…)
+// are not used.
+func NewLoop(opt Options) (*Loop, error) {
+	if err := opt.fill(); err != nil {
+		return nil, err
+	}
+	return newLoop(opt), nil
+}
+
+func newLoop(opt Options) *Loop {
+	c := &Loop{opt: opt, logged: map[string]time.Time{}}
+	c.health.Rejected = map[string]uint64{}
+	nan := online.Float(math.NaN()) // unknown until the first update; JSON null
+	c.health.StreamTime, c.health.BinTime, c.health.StreamLag, c.health.Lag = nan, nan, nan, nan
+	c.health.Shard = opt.Shard.String()
+	c.st.init(c)
+	return c
+}
+
+// Error is a message the ingest refused; the estimates are unchanged.
+type Error struct {
+	Subject string // "block", "frames", "spikes", "control" or another suffix
+	Reason  string // a wire rejection reason or one of the Reason constants
+	Err     error
+}
+
+func (e *Error) Error() string { return e.Err.Error() }
+func (e *Error) Unwrap() error { return e.Err }
+
+// Feed applies one message that arrived at at on the subject suffix
+// subject ("block", "frames", "spikes" or "control"), then runs an update
+// when UpdateEvery has passed on the arrival clock. A refused message is
+// counted and returned as an *Error. data is not kept.
+func (c *Loop) Feed(subject string, data []byte, at time.Time) error {
+	subj := subjectOf(subject)
+	err := c.st.handle(message{subj: subj, data: data, at: at})
+	c.st.maybeUpdate(at)
+	if err != nil {
+		name := subject
+		if subj != subjOther {
+			name = subjectNames[subj]
+		}
+		return &Error{Subject: name, Reason: reasonOf(err), Err: err}
+	}
+	return nil
+}
+
+// Advance runs an update when UpdateEvery has passed on the clock now,
+// without a message (a clock tick).
+func (c *Loop) Advance(now time.Time) { c.st.maybeUpdate(now) }
+
+// Update folds the bins closed so far into the estimates now and publishes
+// the snapshot.
+func (c *Loop) Update(now time.Time) *online.Snapshot {
+	c.st.tick(now)
+	c.st.update(now)
+	return c.Snapshot()
+}
+
+// Finish ends a block still running, as a new block start would, and
+// returns the latest snapshot.
+func (c *Loop) Finish(at time.Time) *online.Snapshot {
+	c.st.tick(at)
+	if c.st.mapper != nil {
+		c.st.endBlock(math.Inf(1), at)
+	}
+	return c.Snapshot()
+}
+
+// Reset forgets the estimates of the running block (the electrode moved);
+// units stay registered and the stream goes on.
+func (c *Loop) Reset() { c.st.reset() }
+
+// FlagSTC asks for (or stops) spike-triggered covariance on one unit, in
+// the running block and the blocks after it.
+func (c *Loop) FlagSTC(id string, on bool) error { return c.st.flagSTC(id, on) }
+
+// SetCriterion changes the target reliability and the block fraction, for
+// the running block and the blocks after it.
+func (c *Loop) SetCriterion(target, fraction float64) error {
+	if !(target > 0 && target < 1) || !(fraction > 0 && fraction <= 1) {
+		return fmt.Errorf("ingest: criterion target %v, fraction %v out of range", target, fraction)
+	}
+	return c.st.setCriterion(target, fraction)
+}
+
+// Snapshot is the latest published update (nil before the first block's
+// first update). Safe from any goroutine.
+func (c *Loop) Snapshot() *online.Snapshot { return c.snap.Load() }
+
+// Totals are a Loop's live counts; Health has those of the last update.
+type Totals struct {
+	Messages uint64  // handled, accepted or rejected
+	Blocks   uint64  // blocks started
+	Bins     uint64  // bins given to the mapper
+	Spikes   uint64  // spikes accepted
+	Block    string  // the running block, "" between blocks
+	StreamT  float64 // latest spike or frame time (0 before any)
+}
+
+// Totals returns the live counts. Call it from the feeding goroutine.
+func (c *Loop) Totals() Totals {
+	t := Totals{Messages: c.processed.Load(), Bins: c.st.binsTotal, Spikes: c.st.spikesTotal, Blocks: c.st.blocks}
+	if c.st.mapper != nil {
+		t.Block = c.st.block
+	}
+	if !math.IsNaN(c.st.streamT) {
+		t.StreamT = c.st.streamT
+	}
+	return t
+}
+
+// loop is the state of the feeding (owner) goroutine. Nothing here is
+// touched from another goroutine.
 type loop struct {
-	r *Rig
+	r *Loop
 
 	dec    wire.Decoder
 	frames wire.Frames // decoded into, reused
@@ -38,6 +176,7 @@ type loop struct {
 	bin      binning.Bin
 	ids      map[string]int // unit id → mapper index, for the running block
 	units    []int          // scratch: unit indices of one spikes message
+	times    []float64      // scratch: spike times of this shard's units
 	fresh    map[string]int // scratch: new ids of one spikes message
 	lastBins uint64         // bins given to the mapper at the last update
 	dirty    bool           // bins added since the last update
@@ -48,6 +187,7 @@ type loop struct {
 	target, fraction float64
 	stc              map[string]bool
 
+	clock       time.Time // latest arrival or clock tick seen
 	lastUpdate  time.Time
 	queueDrops  uint64    // queue drops already logged
 	closedAt    time.Time // arrival of the message that closed the first bin since the last update
@@ -55,12 +195,14 @@ type loop struct {
 	lastBinEnd  float64
 	forgetUntil float64 // bins starting by then are dropped (set by a reset)
 	binsTotal   uint64
+	blocks      uint64
 	lateBase    uint64 // late spikes of the blocks before the running one
 	heldBase    uint64
 	spikesTotal uint64
+	otherShard  uint64 // spikes of units of other shards
 }
 
-func (l *loop) init(r *Rig) {
+func (l *loop) init(r *Loop) {
 	l.r = r
 	l.dec.MaxSize = r.opt.MaxPayload
 	l.fresh = map[string]int{}
@@ -70,10 +212,17 @@ func (l *loop) init(r *Rig) {
 	l.forgetUntil = math.Inf(-1)
 }
 
+func (l *loop) tick(t time.Time) {
+	if t.After(l.clock) {
+		l.clock = t
+	}
+}
+
 // handle decodes one message and applies it. A rejected message changes no
-// estimate.
-func (l *loop) handle(m message) {
+// estimate; it is counted and returned.
+func (l *loop) handle(m message) error {
 	defer l.r.processed.Add(1)
+	l.tick(m.at)
 	var err error
 	switch m.subj {
 	case subjBlock:
@@ -90,6 +239,7 @@ func (l *loop) handle(m message) {
 	if err != nil {
 		l.r.reject(reasonOf(err), err)
 	}
+	return err
 }
 
 // rejection is an ingest-level refusal with its counter key.
@@ -187,6 +337,7 @@ func (l *loop) startBlock(b wire.Block, at time.Time) error {
 	l.r.health.Block = b.Block
 	l.r.health.BlockState = "running"
 	l.r.health.Blocks++
+	l.blocks++
 	l.r.health.Units = 0
 	l.r.mu.Unlock()
 	l.publish(mp.Update())
@@ -208,7 +359,10 @@ func (l *loop) endBlock(t float64, at time.Time) {
 	}
 	l.binner.Flush()
 	l.drain(at)
-	l.update()
+	l.update(at)
+	if f := l.r.opt.OnBlockEnd; f != nil {
+		f(l.block, l.r.snap.Load(), at)
+	}
 	late, held := l.binCounts()
 	l.lateBase, l.heldBase = late, held
 	l.mapper, l.binner, l.src = nil, nil, nil
@@ -270,14 +424,16 @@ func (l *loop) onSpikes(m message) error {
 		return rejectf(ReasonUnknownBlock, "ingest: spikes of block %q, but the running block is %q", s.Block, l.block)
 	}
 	// Check the unit cap before registering anything, so that a refused
-	// message leaves the mapper as it was.
+	// message leaves the mapper as it was. Units of other shards are
+	// neither registered nor counted against the cap.
+	sh := l.r.opt.Shard
 	clear(l.fresh)
 	have := l.mapper.Units()
 	for _, id := range s.Unit {
 		if _, ok := l.fresh[id]; ok {
 			continue
 		}
-		if _, ok := l.ids[id]; ok {
+		if _, ok := l.ids[id]; ok || !sh.Has(id) {
 			continue
 		}
 		l.fresh[id] = 0
@@ -285,18 +441,33 @@ func (l *loop) onSpikes(m message) error {
 			return rejectf(ReasonUnitCap, "ingest: spikes message would pass the cap of %d unit ids", l.r.opt.MaxUnits)
 		}
 	}
-	l.units = l.units[:0]
-	for _, id := range s.Unit {
+	sharded := sh.Count > 1
+	l.units, l.times = l.units[:0], l.times[:0]
+	for i, id := range s.Unit {
 		u, ok := l.ids[id]
 		if !ok {
+			if sharded && !sh.Has(id) {
+				l.otherShard++
+				continue
+			}
 			u = l.mapper.Unit(id)
 			l.ids[id] = u
 		}
 		l.units = append(l.units, u)
+		if sharded {
+			l.times = append(l.times, s.T[i])
+		}
 	}
-	l.binner.AddSpikes(l.units, s.T)
-	l.spikesTotal += uint64(len(s.T))
+	ts := s.T
+	if sharded {
+		ts = l.times
+	}
+	l.binner.AddSpikes(l.units, ts)
+	l.spikesTotal += uint64(len(ts))
 	if k := len(s.T); k > 0 {
+		// The watermark follows every unit's spikes, this shard's or not,
+		// so that bins close as they would in one unsharded worker.
+		l.binner.Advance(s.T[k-1])
 		l.seen(s.T[k-1])
 	}
 	if len(l.fresh) > 0 {
@@ -358,18 +529,18 @@ func (l *loop) drain(at time.Time) {
 	}
 }
 
-func (l *loop) maybeUpdate() {
+func (l *loop) maybeUpdate(now time.Time) {
+	l.tick(now)
 	if l.mapper == nil {
 		return
 	}
-	if now := l.r.opt.Now(); now.Sub(l.lastUpdate) >= l.r.opt.UpdateEvery {
-		l.update()
+	if now.Sub(l.lastUpdate) >= l.r.opt.UpdateEvery {
+		l.update(now)
 	}
 }
 
 // update folds the new bins into the estimates and publishes a snapshot.
-func (l *loop) update() {
-	now := l.r.opt.Now()
+func (l *loop) update(now time.Time) {
 	l.lastUpdate = now
 	if n := l.r.queueDrop.Load(); n > l.queueDrops {
 		// Counted by the NATS callback; logged here, rate-limited.
@@ -404,6 +575,7 @@ func (l *loop) update() {
 		h.Lag = online.Float(lag)
 	}
 	h.Units = l.mapper.Units()
+	h.OtherShardSpikes = l.otherShard
 	l.r.mu.Unlock()
 }
 
@@ -418,6 +590,9 @@ func (l *loop) publish(s *online.Snapshot) {
 		s = &cp
 	}
 	l.r.snap.Store(s)
+	if f := l.r.opt.OnUpdate; f != nil {
+		f(l.block, s, l.clock)
+	}
 }
 
 func (l *loop) reset() {

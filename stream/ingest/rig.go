@@ -4,104 +4,18 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"log/slog"
-	"math"
 	"sync"
 	"sync/atomic"
 	"time"
 
 	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
 
 	"livefield/online"
 )
 
-// Defaults of Options.
-const (
-	DefaultGrace       = 0.25    // seconds a bin stays open for late spikes
-	DefaultMaxUnits    = 4096    // distinct unit ids per block
-	DefaultMaxPayload  = 1 << 20 // bytes of one message
-	DefaultUpdateEvery = time.Second
-	DefaultQueue       = 4096 // messages waiting for the owner goroutine
-	// logEvery is the shortest interval between two log lines for one
-	// rejection reason.
-	logEvery = 5 * time.Second
-	// enqueueWait is how long a NATS callback waits for room in the queue
-	// before it drops the message and counts it.
-	enqueueWait = 200 * time.Millisecond
-	// tickEvery is how often the owner goroutine looks at the clock when
-	// no message arrives.
-	tickEvery = 50 * time.Millisecond
-)
-
-// Options configure one rig's ingest.
-type Options struct {
-	// Prefix of the subjects, e.g. "livefield.rig1": the ingest reads
-	// Prefix+".block", ".frames", ".spikes" and ".control" (one
-	// subscription to Prefix+".*"). Required.
-	Prefix string
-	// StimuliDir is where movie files named by a stimulus spec are looked up.
-	StimuliDir string
-	// Grace is the seconds a bin stays open for late spikes (DefaultGrace).
-	Grace float64
-	// MaxUnits caps the distinct unit ids of one block (DefaultMaxUnits);
-	// a spikes message that would pass it is rejected.
-	MaxUnits int
-	// MaxPayload rejects larger messages (DefaultMaxPayload bytes).
-	MaxPayload int
-	// Queue is the capacity of the queue between the NATS callbacks and the
-	// owner goroutine (DefaultQueue messages).
-	Queue int
-	// UpdateEvery is the wall time between two estimate updates
-	// (DefaultUpdateEvery), measured with Now.
-	UpdateEvery time.Duration
-	// Logger receives rate-limited rejection lines (slog.Default when nil).
-	Logger *slog.Logger
-	// Now is the wall clock (time.Now when nil).
-	Now func() time.Time
-}
-
-func (o *Options) fill() error {
-	if o.Prefix == "" {
-		return errors.New("ingest: Options.Prefix is empty")
-	}
-	if o.Grace == 0 {
-		o.Grace = DefaultGrace
-	}
-	if !(o.Grace > 0) || math.IsInf(o.Grace, 0) {
-		return fmt.Errorf("ingest: Options.Grace %v is not a positive number of seconds", o.Grace)
-	}
-	if o.MaxUnits == 0 {
-		o.MaxUnits = DefaultMaxUnits
-	}
-	if o.MaxUnits < 0 {
-		return fmt.Errorf("ingest: Options.MaxUnits %d is negative", o.MaxUnits)
-	}
-	if o.MaxPayload == 0 {
-		o.MaxPayload = DefaultMaxPayload
-	}
-	if o.MaxPayload < 0 {
-		return fmt.Errorf("ingest: Options.MaxPayload %d is negative", o.MaxPayload)
-	}
-	if o.Queue == 0 {
-		o.Queue = DefaultQueue
-	}
-	if o.Queue < 0 {
-		return fmt.Errorf("ingest: Options.Queue %d is negative", o.Queue)
-	}
-	if o.UpdateEvery == 0 {
-		o.UpdateEvery = DefaultUpdateEvery
-	}
-	if o.UpdateEvery < 0 {
-		return fmt.Errorf("ingest: Options.UpdateEvery %v is negative", o.UpdateEvery)
-	}
-	if o.Logger == nil {
-		o.Logger = slog.Default()
-	}
-	if o.Now == nil {
-		o.Now = time.Now
-	}
-	return nil
-}
+// CoreWarning is the health warning of an ingest on core NATS.
+const CoreWarning = "core NATS: messages sent during a disconnect are lost"
 
 // Subjects, relative to the prefix.
 const (
@@ -119,14 +33,22 @@ type message struct {
 	subj int
 	data []byte
 	at   time.Time // arrival, by Options.Now
+
+	// JetStream only.
+	js  jetstream.Msg
+	seq uint64 // stream sequence
+	gen uint64 // consumer generation it was delivered by
 }
 
-// Rig is the live ingest of one rig: it owns one online.Mapper per running
-// block and publishes an immutable Snapshot once per UpdateEvery.
+// Rig is the live ingest of one rig: a Loop fed from NATS by one owner
+// goroutine, which owns one online.Mapper per running block and publishes
+// an immutable Snapshot once per UpdateEvery.
 type Rig struct {
-	opt Options
-	nc  *nats.Conn
-	sub *nats.Subscription
+	opt  Options
+	core *Loop
+	nc   *nats.Conn
+	sub  *nats.Subscription // core NATS
+	dur  *durable           // JetStream, nil on core NATS
 
 	in   chan message
 	cmds chan func()
@@ -135,61 +57,69 @@ type Rig struct {
 	wg   sync.WaitGroup
 	once sync.Once
 
-	snap atomic.Pointer[online.Snapshot]
-
 	// Counted by the NATS callbacks.
-	received  [nSubjects]atomic.Uint64
-	queueDrop atomic.Uint64
-	processed atomic.Uint64 // messages handled by the owner goroutine
+	received [nSubjects]atomic.Uint64
 
-	mu     sync.Mutex // guards health, written by the owner goroutine
-	health Health
-
-	logged map[string]time.Time // last log line per reason; owner goroutine only
-
-	loop loop // owned by the owner goroutine
+	slowDrops  int           // owner: nats.go drops already seen
+	slowEvents atomic.Uint64 // slow-consumer episodes seen by the owner
 }
 
-// Start subscribes to the rig's four subjects on nc and starts the owner
-// goroutine. The ingest runs until ctx is done or Close is called; nc stays
-// the caller's.
+// Start subscribes to the rig's subjects on nc and starts the owner
+// goroutine. With Options.Durable it first creates or reuses the rig's
+// JetStream stream and (re)creates its durable consumer at the start of the
+// current block (see the package doc). The ingest runs until ctx is done or
+// Close is called; nc stays the caller's.
 func Start(ctx context.Context, nc *nats.Conn, opt Options) (*Rig, error) {
 	if nc == nil {
 		return nil, errors.New("ingest: nil NATS connection")
 	}
-	if err := opt.fill(); err != nil {
+	if err := opt.fillNATS(); err != nil {
 		return nil, err
 	}
 	r := &Rig{
-		opt:    opt,
-		nc:     nc,
-		in:     make(chan message, opt.Queue),
-		cmds:   make(chan func()),
-		logged: map[string]time.Time{},
+		opt:  opt,
+		core: newLoop(opt),
+		nc:   nc,
+		in:   make(chan message, opt.Queue),
+		cmds: make(chan func()),
 	}
-	r.health.Rejected = map[string]uint64{}
-	nan := online.Float(math.NaN()) // unknown until the first update; JSON null
-	r.health.StreamTime, r.health.BinTime, r.health.StreamLag, r.health.Lag = nan, nan, nan, nan
-	r.loop.init(r)
 	r.ctx, r.stop = context.WithCancel(ctx)
-	// One subscription covers the four subjects, so that the messages of
-	// one publisher reach the owner goroutine in the order it sent them (a
-	// block start before the block's frames); nats.go delivers each
-	// subscription on its own goroutine, so four would lose that order.
-	sub, err := nc.Subscribe(opt.Prefix+".*", r.deliver)
-	if err != nil {
-		r.stop()
-		return nil, fmt.Errorf("ingest: subscribing to %s.*: %w", opt.Prefix, err)
-	}
-	r.sub = sub
-	if err := nc.Flush(); err != nil {
-		r.unsubscribe()
-		r.stop()
-		return nil, fmt.Errorf("ingest: subscribing on %s: %w", opt.Prefix, err)
+	if opt.Durable {
+		if err := r.startDurable(); err != nil {
+			r.stop()
+			return nil, err
+		}
+	} else {
+		if err := r.subscribe(); err != nil {
+			r.stop()
+			return nil, err
+		}
 	}
 	r.wg.Add(1)
 	go r.run()
 	return r, nil
+}
+
+func (r *Rig) subscribe() error {
+	r.core.health.Warning = CoreWarning
+	// One subscription covers the four subjects, so that the messages of
+	// one publisher reach the owner goroutine in the order it sent them (a
+	// block start before the block's frames); nats.go delivers each
+	// subscription on its own goroutine, so four would lose that order.
+	sub, err := r.nc.Subscribe(r.opt.Prefix+".*", r.deliver)
+	if err != nil {
+		return fmt.Errorf("ingest: subscribing to %s.*: %w", r.opt.Prefix, err)
+	}
+	r.sub = sub
+	if err := sub.SetPendingLimits(r.opt.PendingMsgs, r.opt.PendingBytes); err != nil {
+		r.unsubscribe()
+		return fmt.Errorf("ingest: pending limits: %w", err)
+	}
+	if err := r.nc.Flush(); err != nil {
+		r.unsubscribe()
+		return fmt.Errorf("ingest: subscribing on %s: %w", r.opt.Prefix, err)
+	}
+	return nil
 }
 
 // Prefix is the rig's subject prefix.
@@ -211,7 +141,7 @@ func (r *Rig) deliver(msg *nats.Msg) {
 	select {
 	case r.in <- m:
 	case <-t.C:
-		r.queueDrop.Add(1)
+		r.core.queueDrop.Add(1)
 	case <-r.ctx.Done():
 	}
 }
@@ -231,14 +161,19 @@ func subjectOf(name string) int {
 	return subjOther
 }
 
-// Close unsubscribes, stops the owner goroutine and waits for it. It may be
-// called more than once and from any goroutine.
+// Close unsubscribes (or stops consuming and acknowledges what was
+// processed), stops the owner goroutine and waits for it. It may be called
+// more than once and from any goroutine.
 func (r *Rig) Close() error {
 	r.once.Do(func() {
-		r.mu.Lock()
-		r.health.closing = true
-		r.mu.Unlock()
+		r.core.mu.Lock()
+		r.core.health.closing = true
+		r.core.mu.Unlock()
 		r.unsubscribe()
+		if r.dur != nil {
+			r.do(r.dur.ack)
+			r.dur.stopConsuming()
+		}
 		r.stop()
 		r.wg.Wait()
 	})
@@ -254,12 +189,40 @@ func (r *Rig) run() {
 		case <-r.ctx.Done():
 			return
 		case m := <-r.in:
-			r.loop.handle(m)
+			r.take(m)
 		case f := <-r.cmds:
 			f()
 		case <-tick.C:
+			r.onTick()
 		}
-		r.loop.maybeUpdate()
+		r.core.st.maybeUpdate(r.opt.Now())
+	}
+}
+
+// take handles one queued message on the owner goroutine.
+func (r *Rig) take(m message) {
+	if r.dur == nil {
+		_ = r.core.st.handle(m)
+		return
+	}
+	if r.dur.admit(m) {
+		_ = r.core.st.handle(m)
+		r.dur.processed(m)
+	}
+}
+
+// onTick acknowledges processed JetStream messages, retries a pending
+// resynchronisation and notices slow-consumer episodes.
+func (r *Rig) onTick() {
+	if r.dur != nil {
+		r.dur.ack()
+		r.dur.retry()
+		return
+	}
+	if n, err := r.sub.Dropped(); err == nil && n > r.slowDrops {
+		r.slowEvents.Add(1)
+		r.core.logRejection("slow-consumer", uint64(n), fmt.Errorf("ingest: nats.go dropped %d messages: the subscription's pending limits (%d messages, %d bytes) were exceeded", n-r.slowDrops, r.opt.PendingMsgs, r.opt.PendingBytes))
+		r.slowDrops = n
 	}
 }
 
@@ -281,7 +244,7 @@ func (r *Rig) do(f func()) bool {
 
 // Snapshot is the latest published update (nil before the first block's
 // first update). Safe from any goroutine.
-func (r *Rig) Snapshot() *online.Snapshot { return r.snap.Load() }
+func (r *Rig) Snapshot() *online.Snapshot { return r.core.Snapshot() }
 
 // Sync processes every message already queued, runs an update now and
 // returns its snapshot. Tests and the end of a replay use it to avoid
@@ -291,26 +254,29 @@ func (r *Rig) Sync() *online.Snapshot {
 		for {
 			select {
 			case m := <-r.in:
-				r.loop.handle(m)
+				r.take(m)
 				continue
 			default:
 			}
 			break
 		}
-		r.loop.update()
+		r.core.st.update(r.opt.Now())
+		if r.dur != nil {
+			r.dur.ack()
+		}
 	})
 	return r.Snapshot()
 }
 
 // Reset forgets the estimates of the running block (the electrode moved);
 // units stay registered and the stream goes on.
-func (r *Rig) Reset() { r.do(r.loop.reset) }
+func (r *Rig) Reset() { r.do(r.core.Reset) }
 
 // FlagSTC asks for (or stops) spike-triggered covariance on one unit of the
 // running block.
 func (r *Rig) FlagSTC(id string, on bool) error {
 	var err error
-	if !r.do(func() { err = r.loop.flagSTC(id, on) }) {
+	if !r.do(func() { err = r.core.FlagSTC(id, on) }) {
 		return errors.New("ingest: closed")
 	}
 	return err
@@ -323,29 +289,29 @@ func (r *Rig) SetCriterion(target, fraction float64) error {
 		return fmt.Errorf("ingest: criterion target %v, fraction %v out of range", target, fraction)
 	}
 	var err error
-	if !r.do(func() { err = r.loop.setCriterion(target, fraction) }) {
+	if !r.do(func() { err = r.core.SetCriterion(target, fraction) }) {
 		return errors.New("ingest: closed")
 	}
 	return err
 }
 
 // reject counts one rejected message and logs it, at most once per reason
-// per logEvery. Called on the owner goroutine.
-func (r *Rig) reject(reason string, err error) {
-	r.mu.Lock()
-	r.health.Rejected[reason]++
-	n := r.health.Rejected[reason]
-	r.mu.Unlock()
-	r.logRejection(reason, n, err)
+// per logEvery. Called on the feeding goroutine.
+func (c *Loop) reject(reason string, err error) {
+	c.mu.Lock()
+	c.health.Rejected[reason]++
+	n := c.health.Rejected[reason]
+	c.mu.Unlock()
+	c.logRejection(reason, n, err)
 }
 
 // logRejection logs one line for reason unless one was logged less than
-// logEvery ago. Called on the owner goroutine.
-func (r *Rig) logRejection(reason string, count uint64, err error) {
-	now := r.opt.Now()
-	if last, seen := r.logged[reason]; seen && now.Sub(last) < logEvery {
+// logEvery ago. Called on the feeding goroutine.
+func (c *Loop) logRejection(reason string, count uint64, err error) {
+	now := c.opt.Now()
+	if last, seen := c.logged[reason]; seen && now.Sub(last) < logEvery {
 		return
 	}
-	r.logged[reason] = now
-	r.opt.Logger.Warn("ingest: message rejected", "prefix", r.opt.Prefix, "reason", reason, "count", count, "err", err)
+	c.logged[reason] = now
+	c.opt.Logger.Warn("ingest: message rejected", "prefix", c.opt.Prefix, "reason", reason, "count", count, "err", err)
 }

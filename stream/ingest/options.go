@@ -1,0 +1,165 @@
+package ingest
+
+import (
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"time"
+
+	"livefield/online"
+)
+
+// Defaults of Options.
+const (
+	DefaultGrace       = 0.25    // seconds a bin stays open for late spikes
+	DefaultMaxUnits    = 4096    // distinct unit ids per block
+	DefaultMaxPayload  = 1 << 20 // bytes of one message
+	DefaultUpdateEvery = time.Second
+	DefaultQueue       = 4096 // messages waiting for the owner goroutine
+
+	// DefaultPendingMsgs and DefaultPendingBytes are the nats.go pending
+	// limits of the core-NATS subscription. The reference workload (16×16
+	// noise at 60 Hz in 50 ms frame batches, 384 units at 10 spikes/s in
+	// 20 ms spike batches) is 70 messages/s and about 110 kB/s (measured by
+	// TestReferenceRates). The limits hold 10 s of it at 10× real time (a
+	// replay), or 100 s of the live stream: 7000 messages and 11 MB,
+	// rounded up. The callback itself never stalls longer than
+	// enqueueWait; the owner goroutine's stalls (one estimate update) are
+	// absorbed by the queue (Options.Queue).
+	DefaultPendingMsgs  = 8192
+	DefaultPendingBytes = 16 << 20
+
+	// logEvery is the shortest interval between two log lines for one
+	// rejection reason.
+	logEvery = 5 * time.Second
+	// enqueueWait is how long a core-NATS callback waits for room in the
+	// queue before it drops the message and counts it.
+	enqueueWait = 200 * time.Millisecond
+	// tickEvery is how often the owner goroutine looks at the clock when
+	// no message arrives.
+	tickEvery = 50 * time.Millisecond
+)
+
+// Options configure one rig's ingest.
+type Options struct {
+	// Prefix of the subjects, e.g. "livefield.rig1": the ingest reads
+	// Prefix+".block", ".frames", ".spikes" and ".control". Required by
+	// Start; NewLoop uses it in log lines only.
+	Prefix string
+	// StimuliDir is where movie files named by a stimulus spec are looked up.
+	StimuliDir string
+	// Grace is the seconds a bin stays open for late spikes (DefaultGrace).
+	Grace float64
+	// MaxUnits caps the distinct unit ids of one block (DefaultMaxUnits);
+	// a spikes message that would pass it is rejected.
+	MaxUnits int
+	// MaxPayload rejects larger messages (DefaultMaxPayload bytes).
+	MaxPayload int
+	// Queue is the capacity of the queue between the NATS callbacks and the
+	// owner goroutine (DefaultQueue messages).
+	Queue int
+	// UpdateEvery is the time between two estimate updates
+	// (DefaultUpdateEvery), on the clock Now (a Rig) or on the arrival
+	// times given to Loop.Feed.
+	UpdateEvery time.Duration
+	// Logger receives rate-limited rejection lines (slog.Default when nil).
+	Logger *slog.Logger
+	// Now is the wall clock (time.Now when nil).
+	Now func() time.Time
+
+	// Shard selects the units this ingest maps (all when Count is 0 or 1).
+	Shard Shard
+
+	// Durable reads the rig through JetStream: a file-backed stream
+	// (StreamConfig) and a durable consumer, acknowledged after the
+	// messages are processed, so that nothing sent while this process or
+	// its connection is down is lost. Start fails when the server has no
+	// JetStream. When false the ingest reads core NATS, where messages sent
+	// during a disconnect are lost.
+	Durable bool
+	// Stream and Consumer name the JetStream stream and durable consumer
+	// (StreamName(Prefix) and ConsumerName(Prefix, Shard) when empty).
+	Stream, Consumer string
+
+	// PendingMsgs and PendingBytes are the core-NATS subscription's
+	// pending limits (DefaultPendingMsgs, DefaultPendingBytes).
+	PendingMsgs, PendingBytes int
+
+	// OnUpdate, when set, is called on the feeding goroutine with the block
+	// id, every snapshot published and the clock it was made at. It must
+	// not call back into the ingest.
+	OnUpdate func(block string, s *online.Snapshot, at time.Time)
+	// OnBlockEnd, when set, is called likewise with each block's final
+	// snapshot.
+	OnBlockEnd func(block string, s *online.Snapshot, at time.Time)
+}
+
+func (o *Options) fill() error {
+	if o.Grace == 0 {
+		o.Grace = DefaultGrace
+	}
+	if !(o.Grace > 0) || math.IsInf(o.Grace, 0) {
+		return fmt.Errorf("ingest: Options.Grace %v is not a positive number of seconds", o.Grace)
+	}
+	if o.MaxUnits == 0 {
+		o.MaxUnits = DefaultMaxUnits
+	}
+	if o.MaxUnits < 0 {
+		return fmt.Errorf("ingest: Options.MaxUnits %d is negative", o.MaxUnits)
+	}
+	if o.MaxPayload == 0 {
+		o.MaxPayload = DefaultMaxPayload
+	}
+	if o.MaxPayload < 0 {
+		return fmt.Errorf("ingest: Options.MaxPayload %d is negative", o.MaxPayload)
+	}
+	if o.Queue == 0 {
+		o.Queue = DefaultQueue
+	}
+	if o.Queue < 0 {
+		return fmt.Errorf("ingest: Options.Queue %d is negative", o.Queue)
+	}
+	if o.UpdateEvery == 0 {
+		o.UpdateEvery = DefaultUpdateEvery
+	}
+	if o.UpdateEvery < 0 {
+		return fmt.Errorf("ingest: Options.UpdateEvery %v is negative", o.UpdateEvery)
+	}
+	if o.PendingMsgs == 0 {
+		o.PendingMsgs = DefaultPendingMsgs
+	}
+	if o.PendingBytes == 0 {
+		o.PendingBytes = DefaultPendingBytes
+	}
+	if o.PendingMsgs < 0 || o.PendingBytes < 0 {
+		return fmt.Errorf("ingest: Options.PendingMsgs %d, PendingBytes %d: negative", o.PendingMsgs, o.PendingBytes)
+	}
+	if err := o.Shard.check(); err != nil {
+		return err
+	}
+	if o.Logger == nil {
+		o.Logger = slog.Default()
+	}
+	if o.Now == nil {
+		o.Now = time.Now
+	}
+	return nil
+}
+
+// fillNATS also checks and fills what Start needs.
+func (o *Options) fillNATS() error {
+	if o.Prefix == "" {
+		return errors.New("ingest: Options.Prefix is empty")
+	}
+	if err := o.fill(); err != nil {
+		return err
+	}
+	if o.Stream == "" {
+		o.Stream = StreamName(o.Prefix)
+	}
+	if o.Consumer == "" {
+		o.Consumer = ConsumerName(o.Prefix, o.Shard)
+	}
+	return nil
+}
