@@ -14,10 +14,17 @@ import (
 	"livefield/stream/wire"
 )
 
+// The demo's units fire faster and more sharply than simulate's defaults, so
+// that most fields become reliable within a few minutes of watching.
+const (
+	demoRate = 16  // Hz
+	demoGain = 1.5 // slope of the exponential nonlinearity
+)
+
 func init() {
 	register("demo", command{
 		summary: "run everything in one process: a NATS server, a synthetic rig, the mapping and the page",
-		usage:   "[--http ADDR] [--seed S] [--units N] [--block-length D]",
+		usage:   "[--http ADDR] [--seed S] [--units N] [--block-length D] [--rate HZ] [--gain G]",
 		example: "livefield demo --http 127.0.0.1:8080",
 		run:     runDemo,
 	})
@@ -31,7 +38,9 @@ func runDemo(ctx context.Context, name string, args []string, stdout, stderr io.
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
 	seed := fs.Uint64("seed", 1, "seed of the synthetic rig")
 	units := fs.Int("units", 48, "number of synthetic units (on 32 channels)")
-	length := fs.Duration("block-length", 10*time.Minute, "length of each synthetic block; blocks follow each other until Ctrl-C")
+	var strength synthSettings
+	addSynthFlags(fs, &strength, demoRate, demoGain)
+	length := fs.Duration("block-length", 15*time.Minute, "length of each synthetic block; blocks follow each other until Ctrl-C")
 	if err := parse(fs, args); err != nil {
 		return err
 	}
@@ -80,7 +89,7 @@ func runDemo(ctx context.Context, name string, args []string, stdout, stderr io.
 	go func() {
 		defer wg.Done()
 		for n := 1; ctx.Err() == nil; n++ {
-			s := synthSettings{seed: *seed + uint64(n-1), units: *units, speed: 1, duration: *length, block: fmt.Sprintf("demo-%d", n)}
+			s := synthSettings{seed: *seed + uint64(n-1), units: *units, speed: 1, duration: *length, block: fmt.Sprintf("demo-%d", n), rate: strength.rate, gain: strength.gain}
 			if err := publishSynth(ctx, pub, prefix, s); err != nil && ctx.Err() == nil {
 				log.Error("demo: synthetic rig stopped", "err", err)
 				cancel()

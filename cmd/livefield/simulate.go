@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -17,7 +18,7 @@ import (
 func init() {
 	register("simulate", command{
 		summary: "publish a synthetic rig (binary noise, LNP units with known fields) to NATS",
-		usage:   "--nats URL --rig NAME [--speed X] [--duration D] [--seed S] [--units N] [--block ID]",
+		usage:   "--nats URL --rig NAME [--speed X] [--duration D] [--seed S] [--units N] [--block ID] [--rate HZ] [--gain G]",
 		example: "livefield simulate --nats nats://127.0.0.1:4222 --rig rig1 --speed 1 --duration 2m --seed 7",
 		run:     runSimulate,
 	})
@@ -30,6 +31,16 @@ type synthSettings struct {
 	speed    float64
 	duration time.Duration
 	block    string
+	rate     float64 // mean rate of a responsive unit, Hz
+	gain     float64 // slope of the units' exponential nonlinearity
+}
+
+// addSynthFlags adds the flags for the units' strength, with defaults that
+// differ between simulate (a plain rig) and demo (fields that form within
+// a few minutes).
+func addSynthFlags(fs *flag.FlagSet, s *synthSettings, rate, gain float64) {
+	fs.Float64Var(&s.rate, "rate", rate, "mean firing rate of a responsive synthetic unit, Hz")
+	fs.Float64Var(&s.gain, "gain", gain, "strength of the synthetic units' fields (slope of the exponential nonlinearity, 0…4]")
 }
 
 // publishSynth plays one synthetic block: 16×16 binary noise at 60 Hz
@@ -40,7 +51,7 @@ func publishSynth(ctx context.Context, nc *nats.Conn, prefix string, s synthSett
 	if err != nil {
 		return err
 	}
-	rig, err := synth.New(synth.Scenario{Seed: s.seed, Units: s.units, Channels: synth.DefaultChannels}, src)
+	rig, err := synth.New(synth.Scenario{Seed: s.seed, Units: s.units, Channels: synth.DefaultChannels, MeanRate: s.rate, Gain: s.gain}, src)
 	if err != nil {
 		return err
 	}
@@ -63,6 +74,8 @@ func runSimulate(ctx context.Context, name string, args []string, stdout, stderr
 	seed := fs.Uint64("seed", 1, "seed of the stimulus and of the units")
 	units := fs.Int("units", 48, "number of synthetic units")
 	block := fs.String("block", synth.DefaultBlock, "block id")
+	var strength synthSettings
+	addSynthFlags(fs, &strength, synth.DefaultMeanRate, synth.DefaultGain)
 	if err := parse(fs, args); err != nil {
 		return err
 	}
@@ -91,7 +104,7 @@ func runSimulate(ctx context.Context, name string, args []string, stdout, stderr
 	}
 	defer nc.Close()
 	fmt.Fprintf(stdout, "livefield: publishing %v of block %s on %s.* (%d units, speed %v)\n", *duration, *block, prefix, *units, *speed)
-	err = publishSynth(ctx, nc, prefix, synthSettings{seed: *seed, units: *units, speed: *speed, duration: *duration, block: *block})
+	err = publishSynth(ctx, nc, prefix, synthSettings{seed: *seed, units: *units, speed: *speed, duration: *duration, block: *block, rate: strength.rate, gain: strength.gain})
 	if err != nil && ctx.Err() == nil {
 		return err
 	}
