@@ -116,10 +116,12 @@ func (c Config) withDefaults() (Config, error) {
 // and the setters; the Snapshots that Update returns are immutable and may be
 // shared freely.
 //
-// Ridge columns: column 0 is the split-half indicator h (1 in half A), and
-// unit u owns column 1+2u (its counts y) and 2+2u (its counts in half A,
-// y·h). The half-A estimate is corrected for the indicator's own fit, so the
-// two half estimates are independent under the null (see halvesTo).
+// Ridge columns, for a white stimulus: unit u owns column u (its counts);
+// its split halves come from the STA. Otherwise column 0 is the split-half
+// indicator h (1 in half A), and unit u owns column 1+2u (its counts y) and
+// 2+2u (its counts in half A, y·h); the half-A estimate is corrected for the
+// indicator's own fit, so the two half estimates are independent under the
+// null (see halvesTo).
 type Mapper struct {
 	cfg    Config
 	pixels int
@@ -181,11 +183,11 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	}
 	m.x = make([]float64, m.dim)
 	m.capUnits = 8
-	m.ridge, err = NewRidge(m.dim, 1+2*m.capUnits, cfg.Lambda, cfg.Forget)
+	m.ridge, err = NewRidge(m.dim, m.columns(m.capUnits), cfg.Lambda, cfg.Forget)
 	if err != nil {
 		return nil, err
 	}
-	m.yrow = make([]float64, 1+2*m.capUnits)
+	m.yrow = make([]float64, m.columns(m.capUnits))
 	m.sta = NewSTA(m.pixels, cfg.Lags)
 	if m.gram, err = NewLagGram(m.pixels, cfg.Lags); err != nil {
 		return nil, err
@@ -239,8 +241,8 @@ func (m *Mapper) growColumns() {
 		m.capUnits *= 2
 	}
 	m.ridge.Flush()
-	m.ridge.SetCols(1 + 2*m.capUnits)
-	m.yrow = make([]float64, 1+2*m.capUnits)
+	m.ridge.SetCols(m.columns(m.capUnits))
+	m.yrow = make([]float64, m.columns(m.capUnits))
 }
 
 // ErrBin is wrapped by AddBin's errors: the bin was refused whole and the
@@ -289,15 +291,18 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	}
 	m.growColumns()
 	m.sta.AddBin(m.x, halfA, counts)
-	if halfA {
+	halves := !m.cfg.White
+	if halfA && halves {
 		m.yrow[0] = 1
 	}
 	for _, c := range counts {
 		m.spikes[c.Unit] += c.N
-		m.yrow[1+2*c.Unit] += c.N
+		m.yrow[m.colY(c.Unit)] += c.N
 		if halfA {
 			m.spikesA[c.Unit] += c.N
-			m.yrow[2+2*c.Unit] += c.N
+			if halves {
+				m.yrow[m.colA(c.Unit)] += c.N
+			}
 		}
 		if s := m.stc[c.Unit]; s != nil {
 			s.AddBin(m.x, c.N)
@@ -309,8 +314,10 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	}
 	m.yrow[0] = 0
 	for _, c := range counts {
-		m.yrow[1+2*c.Unit] = 0
-		m.yrow[2+2*c.Unit] = 0
+		m.yrow[m.colY(c.Unit)] = 0
+		if halves {
+			m.yrow[m.colA(c.Unit)] = 0
+		}
 	}
 	return nil
 }
@@ -383,3 +390,22 @@ func (m *Mapper) emptySnapshot() *Snapshot {
 func (m *Mapper) defaultPeak() int {
 	return min(int(math.Round(0.060/m.cfg.FramePeriod)), m.cfg.Lags-1)
 }
+
+// columns is the number of ridge columns for units units.
+func (m *Mapper) columns(units int) int {
+	if m.cfg.White {
+		return units
+	}
+	return 1 + 2*units
+}
+
+// colY is the ridge column of unit u's counts.
+func (m *Mapper) colY(u int) int {
+	if m.cfg.White {
+		return u
+	}
+	return 1 + 2*u
+}
+
+// colA is the ridge column of unit u's half-A counts (non-white stimuli).
+func (m *Mapper) colA(u int) int { return 2 + 2*u }

@@ -41,7 +41,9 @@ func (m *Mapper) Update() *Snapshot {
 	m.updates++
 	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim), period: m.cfg.FramePeriod}
 	if m.ridge.Rows() > 0 {
-		m.ridge.WeightsTo(sh.wh, 0)
+		if !m.cfg.White {
+			m.ridge.WeightsTo(sh.wh, 0)
+		}
 		m.ridge.PosteriorDiagTo(sh.pdiag)
 		sh.t1, sh.t2 = m.ridge.HatTraces()
 	}
@@ -100,8 +102,10 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 
 	var intercept float64
 	if m.ridge.Rows() > 0 {
-		intercept = m.ridge.WeightsTo(s.w, 1+2*u)
-		m.ridge.WeightsTo(s.wa, 2+2*u)
+		intercept = m.ridge.WeightsTo(s.w, m.colY(u))
+		if !cfg.White {
+			m.ridge.WeightsTo(s.wa, m.colA(u))
+		}
 	} else {
 		clear(s.w)
 		clear(s.wa)
@@ -114,7 +118,7 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	dof := float64(m.used) - 1 - sh.t1
 	sigma2, rss := math.NaN(), math.NaN()
 	if dof > 0 {
-		rss = math.Max(m.ridge.Objective(1+2*u)-cfg.Lambda*dot(s.w, s.w), 0)
+		rss = math.Max(m.ridge.Objective(m.colY(u))-cfg.Lambda*dot(s.w, s.w), 0)
 		sigma2 = rss / dof
 	}
 	for i := range s.z {
