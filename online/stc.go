@@ -5,9 +5,10 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"sync"
 
-	"gonum.org/v1/gonum/blas"
-	"gonum.org/v1/gonum/blas/blas64"
+	"livefield/online/internal/fastmat"
+
 	"gonum.org/v1/gonum/mat"
 )
 
@@ -30,6 +31,13 @@ type STC struct {
 	sum             []float64 // Σ n x_r
 	sq              []float64 // dim×dim, upper triangle of Σ n x_r x_rᵀ
 	xr              []float64 // scratch: the reduced stimulus of one bin
+
+	// Samples √n·x_r wait in a batch, stored as the columns of a d×stcBatch
+	// matrix, and join sq by one rank-k product when the batch is full or
+	// sq is read: a matrix product is several times faster than k rank-one
+	// updates.
+	cols    []float64
+	batched int
 
 	errLen error
 }
@@ -57,8 +65,39 @@ func NewSTC(pixels int, lags []int) (*STC, error) {
 		sum:    make([]float64, d),
 		sq:     make([]float64, d*d),
 		xr:     make([]float64, d),
+		cols:   make([]float64, d*stcBatch),
 		errLen: fmt.Errorf("online: STC.AddBin: lagged stimulus must have at least %d values", need),
 	}, nil
+}
+
+// stcBatch is how many spike-triggered samples wait before they join the
+// second moment.
+const stcBatch = 128
+
+// stcRows holds the row-major copy of a batch during a fold, shared by all
+// STCs so that each keeps one copy of its batch only.
+var stcRows = sync.Pool{New: func() any { return new([]float64) }}
+
+// fold adds the waiting samples to sq: sq += Bᵀ B for the batch B (whole
+// matrix; the readers use the upper triangle).
+func (s *STC) fold() {
+	k := s.batched
+	if k == 0 {
+		return
+	}
+	buf := stcRows.Get().(*[]float64)
+	if cap(*buf) < k*s.dim {
+		*buf = make([]float64, stcBatch*s.dim)
+	}
+	rows := (*buf)[:k*s.dim]
+	for i := range s.dim {
+		for r, v := range s.cols[i*stcBatch : i*stcBatch+k] {
+			rows[r*s.dim+i] = v
+		}
+	}
+	fastmat.MulAdd(s.dim, s.dim, k, 1, s.cols, stcBatch, rows, s.dim, s.sq, s.dim)
+	stcRows.Put(buf)
+	s.batched = 0
 }
 
 // Dim is the dimension of the reduced space, pixels·len(lags).
@@ -70,12 +109,13 @@ func (s *STC) Spikes() float64 { return s.spikes }
 // Bytes is the memory held by the accumulator, for capping the number of
 // units that get STC.
 func (s *STC) Bytes() int {
-	return 8*(len(s.sum)+len(s.sq)+len(s.xr)) + 8*len(s.lags) + 128
+	return 8*(len(s.sum)+len(s.sq)+len(s.xr)+len(s.cols)) + 8*len(s.lags) + 128
 }
 
 // Reset forgets all bins and keeps the storage.
 func (s *STC) Reset() {
 	s.spikes, s.spikes2, s.bins = 0, 0, 0
+	s.batched = 0
 	clear(s.sum)
 	clear(s.sq)
 }
@@ -103,8 +143,14 @@ func (s *STC) AddBin(x []float64, n float64) error {
 	for i, v := range s.xr {
 		s.sum[i] += n * v
 	}
-	blas64.Syr(n, blas64.Vector{N: s.dim, Inc: 1, Data: s.xr},
-		blas64.Symmetric{N: s.dim, Stride: s.dim, Uplo: blas.Upper, Data: s.sq})
+	r, sn := s.batched, math.Sqrt(n)
+	for i, v := range s.xr {
+		s.cols[i*stcBatch+r] = sn * v
+	}
+	s.batched++
+	if s.batched == stcBatch {
+		s.fold()
+	}
 	s.spikes += n
 	s.spikes2 += n * n
 	s.bins++
@@ -124,6 +170,7 @@ func (s *STC) Effective() float64 {
 // dst (an empty dst is sized to Dim), with c² = stimVariance the pixel
 // variance of the white stimulus.
 func (s *STC) CovarianceTo(dst *mat.SymDense, stimVariance float64) error {
+	s.fold()
 	if !(stimVariance >= 0) || math.IsInf(stimVariance, 0) {
 		return fmt.Errorf("online: STC: stimulus variance %v must be finite and non-negative", stimVariance)
 	}
