@@ -29,9 +29,12 @@ type Config struct {
 	Alpha         float64   // significance level (default 0.001)
 	MinSpikes     int64     // spikes before a unit can be called "no field" (default 300)
 	STCMaxUnits   int       // at most this many units get STC (default 16)
-	STCLags       int       // lags in STC's reduced space (default 3)
+	STCLags       int       // lags in STC's reduced space (default: up to 3, keeping pixels·lags ≤ 320)
 	Geometry      *Geometry // optional, for degrees of visual angle
 }
+
+// stcMaxDim bounds the default STC space, pixels·lags.
+const stcMaxDim = 320
 
 // DefaultLambda is the default ridge penalty in units of the pixel variance:
 // small against the Gram matrix's diagonal after a few seconds of 60 Hz noise.
@@ -85,7 +88,10 @@ func (c Config) withDefaults() (Config, error) {
 		c.STCMaxUnits = 16
 	}
 	if c.STCLags == 0 {
-		c.STCLags = 3
+		// Each STC refresh decomposes a d×d matrix, d = pixels·lags, at
+		// O(d³): keep d near 300 or below (a quarter of a second at most on
+		// one core), with up to three lags for small frames.
+		c.STCLags = max(1, min(3, stcMaxDim/(c.Width*c.Height)))
 	}
 	switch {
 	case !(c.FramePeriod > 0) || math.IsInf(c.FramePeriod, 0):
