@@ -41,7 +41,15 @@ func (f *rigSource) set(s *online.Snapshot) {
 	f.mu.Unlock()
 }
 
-func (f *rigSource) Health() any { return map[string]int{"bins": 1} }
+// Health reports a rig whose NATS link is down, on core NATS, with late
+// spikes and refused messages, as /api/health would.
+func (f *rigSource) Health() any {
+	return map[string]any{
+		"bins": 1, "connection": "RECONNECTING", "reconnects": 2, "durable": false,
+		"warning":     "core NATS: messages sent during a disconnect are lost",
+		"late_spikes": 3, "rejected": map[string]int{"syntax": 2, "unit-cap": 1},
+	}
+}
 
 func (f *rigSource) Reset() {
 	f.mu.Lock()

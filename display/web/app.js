@@ -558,5 +558,48 @@ function connect() {
   };
 }
 
+// ---- rig health ------------------------------------------------------------
+
+// renderRig shows the mapper's link to the rig: the NATS connection, whether
+// ingest is durable, late spikes and refused messages, a rejected block.
+function renderRig(h) {
+  const el = $('rig');
+  el.textContent = '';
+  const add = (text, cls, title) => {
+    const span = document.createElement('span');
+    span.textContent = text;
+    if (cls) span.className = cls;
+    if (title) span.title = title;
+    el.appendChild(span);
+  };
+  if (h.connection) {
+    add('NATS ' + h.connection.toLowerCase(), h.connection === 'CONNECTED' ? '' : 'bad',
+      h.reconnects ? h.reconnects + ' reconnects' : '');
+  }
+  if (h.durable === true) add('durable (JetStream)', '', h.stream || '');
+  if (h.warning) add(h.warning, 'warn');
+  if (h.shard) add('shard ' + h.shard);
+  const rejected = Object.values(h.rejected || {}).reduce((a, b) => a + b, 0);
+  if (h.late_spikes) add(h.late_spikes + ' late spikes', 'warn', 'spikes that arrived after their bin had closed; counted, not mapped');
+  if (rejected) {
+    add(rejected + ' messages refused', 'warn',
+      Object.entries(h.rejected).map(([k, v]) => k + ': ' + v).join('\n'));
+  }
+  if (h.slow_consumer_drops) add(h.slow_consumer_drops + ' messages dropped (slow consumer)', 'bad');
+  if (h.block_error) add('block ' + (h.rejected_block || '') + ' refused: ' + h.block_error, 'bad');
+  if (typeof h.lag_s === 'number' && h.lag_s > 5) add('estimates ' + Math.round(h.lag_s) + ' s behind', 'warn');
+}
+
+async function pollHealth() {
+  try {
+    const r = await fetch('api/health');
+    if (r.ok) renderRig(await r.json());
+  } catch (err) {
+    // the websocket badge already says the mapper is unreachable
+  }
+  setTimeout(pollHealth, 2000);
+}
+
 wire();
 connect();
+pollHealth();
