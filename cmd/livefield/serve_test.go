@@ -168,6 +168,7 @@ func TestCommandLine(t *testing.T) {
 		{"serve creds and token", []string{"serve", "--nats", "nats://127.0.0.1:1", "--rig", "r", "--creds", "x", "--token", "y"}, 1, "--creds and --token"},
 		{"serve cert without key", []string{"serve", "--nats", "nats://127.0.0.1:1", "--rig", "r", "--tls-cert", "c"}, 1, "--tls-cert and --tls-key"},
 		{"serve bad grace", []string{"serve", "--nats", "nats://127.0.0.1:1", "--rig", "r", "--grace", "-1s"}, 1, "--grace -1s"},
+		{"serve bad lambda", []string{"serve", "--nats", "nats://127.0.0.1:1", "--rig", "r", "--lambda", "-3"}, 1, "--lambda -3"},
 		{"serve bad max-units", []string{"serve", "--nats", "nats://127.0.0.1:1", "--rig", "r", "--max-units", "0"}, 1, "--max-units 0"},
 		{"serve bad duration flag", []string{"serve", "--grace", "soon"}, 2, `invalid value "soon" for flag -grace`},
 		{"simulate bad speed", []string{"simulate", "--nats", "nats://127.0.0.1:1", "--rig", "r", "--speed", "-2"}, 1, "--speed -2"},

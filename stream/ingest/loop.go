@@ -311,6 +311,7 @@ func (l *loop) startBlock(b wire.Block, at time.Time) error {
 		Target:        l.target,
 		Fraction:      l.fraction,
 		Geometry:      geometry(b.Geometry),
+		Lambda:        l.r.opt.Lambda,
 	}
 	mp, err := online.NewMapper(cfg)
 	if err != nil {

@@ -51,6 +51,9 @@ type Options struct {
 	StimuliDir string
 	// Grace is the seconds a bin stays open for late spikes (DefaultGrace).
 	Grace float64
+	// Lambda is the ridge penalty of every block's estimates; 0 keeps the
+	// estimator's default (online.DefaultLambda times the pixel variance).
+	Lambda float64
 	// MaxUnits caps the distinct unit ids of one block (DefaultMaxUnits);
 	// a spikes message that would pass it is rejected.
 	MaxUnits int
@@ -101,6 +104,9 @@ func (o *Options) fill() error {
 	}
 	if !(o.Grace > 0) || math.IsInf(o.Grace, 0) {
 		return fmt.Errorf("ingest: Options.Grace %v is not a positive number of seconds", o.Grace)
+	}
+	if o.Lambda < 0 || math.IsNaN(o.Lambda) || math.IsInf(o.Lambda, 0) {
+		return fmt.Errorf("ingest: Options.Lambda %v is not a penalty ≥ 0", o.Lambda)
 	}
 	if o.MaxUnits == 0 {
 		o.MaxUnits = DefaultMaxUnits
