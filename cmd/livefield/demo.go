@@ -102,7 +102,7 @@ func runDemo(ctx context.Context, name string, args []string, stdout, stderr io.
 
 	fmt.Fprintf(stdout, "livefield: synthetic rig %q: 16×16 binary noise at 60 Hz, %d units on 32 channels\n", demoRig, *units)
 	fmt.Fprintf(stdout, "livefield: open http://%s/  (Ctrl-C stops)\n", ln.Addr())
-	err = serveHTTP(ctx, ln, r, "")
+	err = serveHTTP(ctx, ln, r, "", stdout)
 	fmt.Fprintln(stdout, "livefield: stopping")
 	return err
 }

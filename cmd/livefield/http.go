@@ -2,9 +2,13 @@ package main
 
 import (
 	"context"
+	"crypto/rand"
+	"encoding/hex"
 	"errors"
 	"fmt"
+	"io"
 	"net"
+	"strconv"
 	"sync"
 	"syscall"
 	"time"
@@ -27,10 +31,35 @@ func listen(addr string) (net.Listener, error) {
 	return ln, nil
 }
 
+// webToken returns the token that guards the commands and exports of a page
+// served on ln: the given one, or, when ln listens beyond loopback and none
+// was given, a new random one, printed on out with the URL that carries it.
+func webToken(ln net.Listener, given string, out io.Writer) (string, error) {
+	a, tcp := ln.Addr().(*net.TCPAddr)
+	if given != "" || (tcp && a.IP.IsLoopback()) {
+		return given, nil
+	}
+	b := make([]byte, 16)
+	if _, err := rand.Read(b); err != nil {
+		return "", fmt.Errorf("http: making a token: %w", err)
+	}
+	token := hex.EncodeToString(b)
+	port := "PORT"
+	if tcp {
+		port = strconv.Itoa(a.Port)
+	}
+	fmt.Fprintf(out, "livefield: %s listens beyond loopback, so controls and exports need this token\nlivefield: open http://<this machine>:%s/?token=%s\n", ln.Addr(), port, token)
+	return token, nil
+}
+
 // serveHTTP serves the page, websocket, JSON API and exports of src on ln
-// until ctx is done, then shuts down gracefully. token, when set, guards
-// the commands and exports.
-func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, token string) error {
+// until ctx is done, then shuts down gracefully. token guards the commands
+// and exports; beyond loopback one is made up when none is given (webToken).
+func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, token string, out io.Writer) error {
+	token, err := webToken(ln, token, out)
+	if err != nil {
+		return err
+	}
 	web := display.NewServer(src, display.Options{Token: token})
 	srv := display.NewHTTPServer("", web) // read, write and idle timeouts set there
 	ctx, cancel := context.WithCancel(ctx)
@@ -48,7 +77,7 @@ func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource,
 	}
 	sctx, stop := context.WithTimeout(context.Background(), shutdownTimeout)
 	defer stop()
-	err := srv.Shutdown(sctx)
+	err = srv.Shutdown(sctx)
 	<-errc
 	return err
 }

@@ -80,7 +80,11 @@ func runPractice(ctx context.Context, name string, args []string, stdout, stderr
 			return err
 		}
 		defer ln.Close()
-		web := display.NewServer(p.Source(), display.Options{})
+		token, err := webToken(ln, "", stdout)
+		if err != nil {
+			return err
+		}
+		web := display.NewServer(p.Source(), display.Options{Token: token})
 		mux := http.NewServeMux()
 		mux.Handle("/api/practice/", p.Handler())
 		mux.Handle("/", web)

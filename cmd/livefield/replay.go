@@ -240,7 +240,7 @@ func runReplay(ctx context.Context, name string, args []string, stdout, stderr i
 	defer wg.Wait()
 	defer cancel()
 	fmt.Fprintf(stdout, "livefield: replaying at %gx through an embedded NATS server\nlivefield: open http://%s/  (Ctrl-C stops)\n", speed, ln.Addr())
-	return serveHTTP(ctx, ln, r, "")
+	return serveHTTP(ctx, ln, r, "", stdout)
 }
 
 // publishSession plays r into nc under prefix.
@@ -301,5 +301,5 @@ func replayDirect(ctx context.Context, f *session.File, play replay.PlayOptions,
 	}
 	defer ln.Close()
 	fmt.Fprintf(stdout, "livefield: open http://%s/  (Ctrl-C stops)\n", ln.Addr())
-	return serveHTTP(ctx, ln, feeder, "")
+	return serveHTTP(ctx, ln, feeder, "", stdout)
 }

@@ -191,7 +191,7 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 		log.Warn("livefield: not durable ("+why+"): "+ingest.CoreWarning, "prefix", prefix)
 	}
 	fmt.Fprintf(stdout, "livefield: mapping %s.* (shard %s) from %s\nlivefield: open http://%s/\n", prefix, shard, redact(nf.url), ln.Addr())
-	return serveHTTP(ctx, ln, r, *apiToken)
+	return serveHTTP(ctx, ln, r, *apiToken, stdout)
 }
 
 // redact drops a user or password from a URL for messages.
