@@ -7,6 +7,7 @@ import (
 	"image/color"
 	"image/png"
 	"math"
+	"net/http"
 	"net/http/httptest"
 	"os"
 	"path/filepath"
@@ -378,4 +379,64 @@ func clockText(seconds float64) string {
 		return fmt.Sprintf("%d:%02d:%02d", s/3600, s%3600/60, s%60)
 	}
 	return fmt.Sprintf("%d:%02d", s/60, s%60)
+}
+
+// practiceReport is what `livefield practice` serves at
+// /api/practice/report once the block is scored (numbers made up for the
+// page test: 30 s block stopped at 13 s).
+const practiceReport = `{"state":"done","block":"B1","stopped":true,"stop_s":13.8,"block_s":30,"saved_s":16.2,
+"saved_fraction":0.54,"ready_at_stop":false,"eta_at_stop_s":null,"rule_stop_s":null,"rule_saved_s":null,"lead_s":null,
+"units":[{"id":"7","spikes_at_stop":82,"spikes_full":160,"status_at_stop":"collecting","status_full":"emerging",
+"reliability_at_stop":0.2,"reliability_full":0.5,"ridge_correlation":0.52,"sta_correlation":0.65,"ridge_correlation_at_rule":null}],
+"overall":{"units":1,"scored":1,"mean_ridge_correlation":0.52,"min_ridge_correlation":0.52,"mean_sta_correlation":0.65,
+"mean_ridge_correlation_at_rule":null,"reliable_at_stop":0,"reliable_full":0},"summary":"block B1: stopped at 13.8 s of 30.0 s"}`
+
+// In practice the page offers a Stop button that posts to the practice
+// endpoint, then shows the score.
+func TestBrowserPractice(t *testing.T) {
+	ctx := newBrowser(t)
+	src := &rigSource{snap: simulated(t)}
+	s := NewServer(src, Options{Poll: 20 * time.Millisecond})
+	rctx, stop := context.WithCancel(context.Background())
+	done := make(chan struct{})
+	go func() { s.Run(rctx); close(done) }()
+	var mu sync.Mutex
+	stopped := false
+	mux := http.NewServeMux()
+	mux.HandleFunc("POST /api/practice/stop", func(w http.ResponseWriter, _ *http.Request) {
+		mu.Lock()
+		stopped = true
+		mu.Unlock()
+		w.WriteHeader(http.StatusAccepted)
+	})
+	mux.HandleFunc("GET /api/practice/report", func(w http.ResponseWriter, _ *http.Request) {
+		mu.Lock()
+		defer mu.Unlock()
+		w.Header().Set("Content-Type", "application/json")
+		if !stopped {
+			fmt.Fprint(w, `{"state":"running"}`)
+			return
+		}
+		fmt.Fprint(w, practiceReport)
+	})
+	mux.Handle("/", s)
+	srv := httptest.NewServer(mux)
+	t.Cleanup(func() { stop(); <-done; srv.Close() })
+
+	if err := chromedp.Do(ctx,
+		chromedp.Navigate(srv.URL+"/?practice=1"),
+		chromedp.WaitVisible(chromedp.ID("p-stop")),
+		chromedp.Click(chromedp.ID("p-stop")),
+		chromedp.WaitVisible(chromedp.ID("p-score")),
+	); err != nil {
+		t.Fatalf("practice page: %v", err)
+	}
+	for sel, want := range map[string]string{"#p-stop-s": "0:13", "#p-block-s": "0:30", "#p-saved": "0:16 (54 %)", "#p-mean": "0.52", "#p-rule": "never"} {
+		if got := text(t, ctx, sel); got != want {
+			t.Errorf("%s = %q, want %q", sel, got, want)
+		}
+	}
+	if got := text(t, ctx, "#p-units tbody"); !strings.Contains(got, "7") || !strings.Contains(got, "0.65") {
+		t.Errorf("unit table %q lacks unit 7 and its STA correlation", got)
+	}
 }

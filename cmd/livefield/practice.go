@@ -93,7 +93,7 @@ func runPractice(ctx context.Context, name string, args []string, stdout, stderr
 		go func() { defer wg.Done(); web.Run(ctx) }()
 		go func() { defer wg.Done(); _ = srv.Serve(ln) }()
 		defer srv.Close()
-		fmt.Fprintf(stdout, "livefield: open http://%s/ ; stop with Enter here or POST /api/practice/stop\n", ln.Addr())
+		fmt.Fprintf(stdout, "livefield: open http://%s/?practice=1%s ; stop with the page's Stop button, Enter here, or POST /api/practice/stop\n", ln.Addr(), tokenQuery(token))
 	} else {
 		fmt.Fprintln(stdout, "livefield: press Enter to stop the block")
 	}
@@ -138,4 +138,12 @@ func fmtR(v online.Float) string {
 		return "—"
 	}
 	return fmt.Sprintf("%.3f", float64(v))
+}
+
+// tokenQuery is the URL query part that hands the page its token.
+func tokenQuery(token string) string {
+	if token == "" {
+		return ""
+	}
+	return "&token=" + token
 }
