@@ -8,8 +8,6 @@ import (
 	"sync"
 	"time"
 
-	"github.com/nats-io/nats.go"
-
 	"livefield/stream/ingest"
 	"livefield/stream/wire"
 )
@@ -57,23 +55,13 @@ func runDemo(ctx context.Context, name string, args []string, stdout, stderr io.
 	}
 	defer ln.Close()
 
-	srv, err := startEmbedded()
+	srv, err := startEmbeddedRig("demo", log)
 	if err != nil {
 		return err
 	}
 	defer srv.close()
 	fmt.Fprintf(stdout, "livefield: NATS server at %s (JetStream store %s)\n", srv.url(), srv.store)
-
-	sub, err := nats.Connect(srv.url(), ConnectOptions("livefield demo ingest", log)...)
-	if err != nil {
-		return fmt.Errorf("embedded nats: %w", err)
-	}
-	defer sub.Close()
-	pub, err := nats.Connect(srv.url(), ConnectOptions("livefield demo rig", log)...)
-	if err != nil {
-		return fmt.Errorf("embedded nats: %w", err)
-	}
-	defer pub.Close()
+	sub, pub := srv.sub, srv.pub
 
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()

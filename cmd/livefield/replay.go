@@ -196,21 +196,12 @@ func runReplay(ctx context.Context, name string, args []string, stdout, stderr i
 		return err
 	}
 	defer ln.Close()
-	srv, err := startEmbedded()
+	srv, err := startEmbeddedRig("replay", log)
 	if err != nil {
 		return err
 	}
 	defer srv.close()
-	sub, err := nats.Connect(srv.url(), ConnectOptions("livefield replay ingest", log)...)
-	if err != nil {
-		return fmt.Errorf("embedded nats: %w", err)
-	}
-	defer sub.Close()
-	pub, err := nats.Connect(srv.url(), ConnectOptions("livefield replay", log)...)
-	if err != nil {
-		return fmt.Errorf("embedded nats: %w", err)
-	}
-	defer pub.Close()
+	sub, pub := srv.sub, srv.pub
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
 	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, StimuliDir: *stimuli, Logger: log})
