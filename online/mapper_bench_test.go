@@ -53,6 +53,19 @@ func (bw *benchWorkload) second() {
 	}
 }
 
+// run times b.N seconds of data, each 60 bins and one Update, and reports
+// the real-time factor and the memory.
+func (bw *benchWorkload) run(b *testing.B) {
+	b.ReportAllocs()
+	b.ResetTimer()
+	start := time.Now()
+	for range b.N {
+		bw.second()
+		bw.m.Update()
+	}
+	reportRealtime(b, start, bw)
+}
+
 func reportRealtime(b *testing.B, start time.Time, bw *benchWorkload) {
 	perSecond := time.Since(start).Seconds() / float64(b.N)
 	b.ReportMetric(1/perSecond, "x-realtime")
@@ -73,15 +86,7 @@ func reportRealtime(b *testing.B, start time.Time, bw *benchWorkload) {
 // 16×16 at 60 Hz, 12 lags (D = 3072), 384 units at 10 spikes/s.
 // x-realtime is seconds of data per second of compute.
 func BenchmarkReferenceWorkload(b *testing.B) {
-	bw := newBenchWorkload(b, 16, 16, 12, 384, 10)
-	b.ReportAllocs()
-	b.ResetTimer()
-	start := time.Now()
-	for range b.N {
-		bw.second()
-		bw.m.Update()
-	}
-	reportRealtime(b, start, bw)
+	newBenchWorkload(b, 16, 16, 12, 384, 10).run(b)
 }
 
 // BenchmarkUpdateScaling shows how the per-second cost grows with the
@@ -92,15 +97,7 @@ func BenchmarkUpdateScaling(b *testing.B) {
 		{16, 12, 96}, {16, 12, 768},
 	} {
 		b.Run(fmt.Sprintf("D=%d/units=%d", c.side*c.side*c.lags, c.units), func(b *testing.B) {
-			bw := newBenchWorkload(b, c.side, c.side, c.lags, c.units, 10)
-			b.ReportAllocs()
-			b.ResetTimer()
-			start := time.Now()
-			for range b.N {
-				bw.second()
-				bw.m.Update()
-			}
-			reportRealtime(b, start, bw)
+			newBenchWorkload(b, c.side, c.side, c.lags, c.units, 10).run(b)
 		})
 	}
 }
