@@ -63,6 +63,9 @@ func TestLoad(t *testing.T) {
 	var samples []sample
 	var pubT float64 // stream time published so far
 	stop := make(chan struct{})
+	// The live heap (after a collection) after the first minute and at the
+	// end tells growth apart from garbage awaiting collection.
+	var liveEarly, liveLate uint64
 	var wg sync.WaitGroup
 	t0w := time.Now()
 	wg.Add(1)
@@ -76,6 +79,15 @@ func TestLoad(t *testing.T) {
 			case <-stop:
 				return
 			case <-tick.C:
+			}
+			mu.Lock()
+			now := pubT
+			mu.Unlock()
+			if liveEarly == 0 && now >= 60 {
+				liveEarly = liveHeap() // after one minute of stream
+			}
+			if liveLate == 0 && now >= seconds-30 {
+				liveLate = liveHeap() // in the last minute, the block still running
 			}
 			runtime.ReadMemStats(&ms)
 			h := r.Counters()
@@ -165,6 +177,7 @@ func TestLoad(t *testing.T) {
 	t.Logf("%.0f s of stream in %.1f s wall (publisher %.1f s): %.1f× real time; %d messages, %.0f kB/s of stream; %d bins, %d spikes, %d updates",
 		seconds, doneWall, pubWall, seconds/doneWall, msgs, float64(bytes)/seconds/1e3, h.Bins, h.SpikesTotal, h.Updates)
 	t.Logf("first minute: heap in use %.1f MB (median), queue ≤ %d, JetStream backlog ≤ %d, estimates trail the publisher ≤ %.1f s of stream, update ≤ %.0f ms", float64(h1)/1e6, q1, b1, tr1, u1*1e3)
+	t.Logf("live heap after a collection: %.1f MB after the first minute, %.1f MB in the last", float64(liveEarly)/1e6, float64(liveLate)/1e6)
 	t.Logf("last minute:  heap in use %.1f MB (median), queue ≤ %d, JetStream backlog ≤ %d, estimates trail the publisher ≤ %.1f s of stream, update ≤ %.0f ms", float64(h2)/1e6, q2, b2, tr2, u2*1e3)
 	if len(h.Rejected) != 0 || h.Duplicates != 0 {
 		t.Errorf("rejected %v, duplicates %d", h.Rejected, h.Duplicates)
@@ -175,4 +188,12 @@ func TestLoad(t *testing.T) {
 	if float64(h2) > 1.5*float64(h1)+50e6 {
 		t.Errorf("heap grew from %.1f MB to %.1f MB", float64(h1)/1e6, float64(h2)/1e6)
 	}
+}
+
+// liveHeap is the heap in use right after a collection.
+func liveHeap() uint64 {
+	runtime.GC()
+	var ms runtime.MemStats
+	runtime.ReadMemStats(&ms)
+	return ms.HeapAlloc
 }
