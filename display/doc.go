@@ -6,7 +6,9 @@
 // estimate, the ingest health counters, and the few commands an
 // experimenter gives during a session (reset after the electrode moved,
 // spike-triggered covariance on a unit, the reliability criterion). The
-// web page is served from other files of this package.
+// websocket fan-out (hub.go), the embedded page (page.go, web/), the
+// server-side PNG renderers (png.go), the NPY and JSON exports (export.go),
+// and Server (server.go), which mounts them all behind the token guard.
 //
 // # Goroutines
 //
@@ -15,6 +17,13 @@
 // SnapshotSource, whose methods must therefore be safe for concurrent use.
 // Snapshots are immutable, so a response is encoded from one consistent
 // update without locks.
+//
+// Hub.Run owns the set of websocket clients; Publish, Stats and ServeHTTP
+// may be called from any goroutine. Each websocket has exactly one reader
+// and one writer goroutine, and a one-slot queue in which a newer update
+// replaces one not yet sent, so a slow browser never holds up the hub.
+// Server.Run is called once and returns after every connection has closed.
+// The renderers are pure functions of an immutable Snapshot.
 //
 // # Limits
 //
