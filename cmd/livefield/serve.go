@@ -8,6 +8,7 @@ import (
 	"io"
 	"log/slog"
 	"math"
+	"strconv"
 	"strings"
 	"time"
 
@@ -20,7 +21,7 @@ import (
 func init() {
 	register("serve", command{
 		summary: "map the live stream of one rig and serve the estimates over HTTP",
-		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N] [--lambda L] [--api-token T] [--shard i/n] [--no-jetstream]",
+		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N] [--lambda L|evidence] [--api-token T] [--shard i/n] [--no-jetstream]",
 		example: "livefield serve --nats nats://127.0.0.1:4222 --rig rig1 --stimuli ./stimuli --http 127.0.0.1:8080",
 		run:     runServe,
 	})
@@ -121,7 +122,7 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
 	grace := fs.Duration("grace", 250*time.Millisecond, "how long a bin waits for late spikes")
-	lambda := fs.Float64("lambda", 0, "ridge penalty λ; 0 takes the default, 100 × the stimulus pixel variance")
+	lambdaFlag := fs.String("lambda", "0", "ridge penalty λ; 0 takes the default, 100 × the stimulus pixel variance; \"evidence\" chooses it by empirical Bayes at the end of each block for the blocks that follow")
 	maxUnits := fs.Int("max-units", ingest.DefaultMaxUnits, "cap on distinct unit ids per block")
 	apiToken := fs.String("api-token", "", "when set, required by the HTTP commands (POST /api/…) and exports, header "+display.TokenHeader)
 	shardFlag := fs.String("shard", "0/1", "map only the units of shard i of n (FNV-1a-32 of the unit id mod n); every worker reads all frames")
@@ -134,8 +135,13 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	if err != nil {
 		return err
 	}
-	if *lambda < 0 || math.IsNaN(*lambda) || math.IsInf(*lambda, 0) {
-		return fmt.Errorf("--lambda %v: must be a number ≥ 0", *lambda)
+	lambda, evidence := 0.0, *lambdaFlag == "evidence"
+	if !evidence {
+		v, err := strconv.ParseFloat(*lambdaFlag, 64)
+		if err != nil || v < 0 || math.IsNaN(v) || math.IsInf(v, 0) {
+			return fmt.Errorf("--lambda %s: must be a number ≥ 0 or \"evidence\"", *lambdaFlag)
+		}
+		lambda = v
 	}
 	if *grace <= 0 {
 		return fmt.Errorf("--grace %v: must be positive", *grace)
@@ -171,7 +177,8 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 		Prefix:     prefix,
 		StimuliDir: *stimuli,
 		Grace:      grace.Seconds(),
-		Lambda:     *lambda,
+		Lambda:     lambda,
+		Evidence:   evidence,
 		MaxUnits:   *maxUnits,
 		Logger:     log,
 		Shard:      shard,

@@ -79,6 +79,13 @@ type Health struct {
 	Blocks        uint64 `json:"blocks"`
 	Units         int    `json:"units"`
 
+	// The evidence choice of λ (Options.Evidence): the block whose fit is
+	// running, the last result and the block it came from, an error.
+	EvidenceRunning string       `json:"evidence_running,omitempty"`
+	EvidenceLambda  online.Float `json:"evidence_lambda"`
+	EvidenceBlock   string       `json:"evidence_block,omitempty"`
+	EvidenceError   string       `json:"evidence_error,omitempty"`
+
 	Bins        uint64 `json:"bins"`        // bins given to the mapper
 	LateSpikes  uint64 `json:"late_spikes"` // spikes that arrived after their bin had closed
 	HeldFrames  uint64 `json:"held_frames"` // bins whose frame was held over from the one before

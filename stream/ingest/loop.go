@@ -37,8 +37,10 @@ type Loop struct {
 	processed atomic.Uint64 // messages handled (accepted or rejected)
 	queueDrop atomic.Uint64 // counted by a Rig's NATS callbacks
 
-	mu     sync.Mutex // guards health, written by the feeding goroutine
-	health Health
+	mu       sync.Mutex // guards health and lambdas
+	health   Health
+	lambdas  map[string]float64 // evidence λ by stimulus shape (stimulusShape)
+	evidence sync.WaitGroup     // running evidence fits
 
 	logged map[string]time.Time // last log line per reason; feeder only
 
@@ -56,10 +58,11 @@ func NewLoop(opt Options) (*Loop, error) {
 }
 
 func newLoop(opt Options) *Loop {
-	c := &Loop{opt: opt, logged: map[string]time.Time{}}
+	c := &Loop{opt: opt, logged: map[string]time.Time{}, lambdas: map[string]float64{}}
 	c.health.Rejected = map[string]uint64{}
 	nan := online.Float(math.NaN()) // unknown until the first update; JSON null
 	c.health.StreamTime, c.health.BinTime, c.health.StreamLag, c.health.Lag = nan, nan, nan, nan
+	c.health.EvidenceLambda = nan
 	c.health.Shard = opt.Shard.String()
 	c.st.init(c)
 	return c
@@ -169,6 +172,7 @@ type loop struct {
 
 	// The running block; mapper is nil while none runs.
 	block    string
+	shape    string // stimulusShape of the running block
 	src      stimulus.Source
 	binner   *binning.Binner
 	mapper   *online.Mapper
@@ -311,7 +315,7 @@ func (l *loop) startBlock(b wire.Block, at time.Time) error {
 		Target:        l.target,
 		Fraction:      l.fraction,
 		Geometry:      geometry(b.Geometry),
-		Lambda:        l.r.opt.Lambda,
+		Lambda:        l.r.lambdaFor(stimulusShape(src, b)),
 	}
 	mp, err := online.NewMapper(cfg)
 	if err != nil {
@@ -326,6 +330,7 @@ func (l *loop) startBlock(b wire.Block, at time.Time) error {
 		l.endBlock(math.Inf(1), at)
 	}
 	l.block, l.src, l.mapper, l.binner = b.Block, src, mp, bn
+	l.shape = stimulusShape(src, b)
 	l.frame = make([]float64, src.Width()*src.Height())
 	l.ids = map[string]int{}
 	l.lastBins, l.dirty = 0, false
@@ -366,6 +371,9 @@ func (l *loop) endBlock(t float64, at time.Time) {
 	}
 	late, held := l.binCounts()
 	l.lateBase, l.heldBase = late, held
+	if l.r.opt.Evidence && l.r.opt.Lambda == 0 {
+		l.r.fitEvidence(l.block, l.shape, l.mapper)
+	}
 	l.mapper, l.binner, l.src = nil, nil, nil
 	l.r.mu.Lock()
 	l.r.health.BlockState = "ended"
@@ -631,3 +639,55 @@ func (l *loop) setCriterion(target, fraction float64) error {
 	}
 	return nil
 }
+
+// stimulusShape names what the evidence choice of λ carries from one block
+// to the next: the frame size and lags, and for white noise its pixel
+// variance, for other stimuli the whole spec (the seed of a noise stimulus
+// does not change the best penalty; a movie's content does).
+func stimulusShape(src stimulus.Source, b wire.Block) string {
+	if src.White() {
+		return fmt.Sprintf("%d×%d×%d white %g", src.Width(), src.Height(), b.Lags, src.PixelVariance())
+	}
+	return fmt.Sprintf("%d×%d×%d %s", src.Width(), src.Height(), b.Lags, b.Stimulus)
+}
+
+// lambdaFor is the penalty for a block of this stimulus shape: the one
+// given, else the evidence choice of an earlier block of the same shape,
+// else 0 (the estimator's default).
+func (c *Loop) lambdaFor(shape string) float64 {
+	if c.opt.Lambda > 0 || !c.opt.Evidence {
+		return c.opt.Lambda
+	}
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return c.lambdas[shape]
+}
+
+// fitEvidence chooses λ by the evidence from a finished block's mapper, in
+// its own goroutine: the mapper is no longer fed, so the goroutine owns it.
+// Close waits for it (WaitEvidence).
+func (c *Loop) fitEvidence(block, shape string, m *online.Mapper) {
+	c.mu.Lock()
+	c.health.EvidenceRunning = block
+	c.mu.Unlock()
+	c.evidence.Add(1)
+	go func() {
+		defer c.evidence.Done()
+		lambda, _, err := m.Evidence()
+		c.mu.Lock()
+		defer c.mu.Unlock()
+		c.health.EvidenceRunning = ""
+		if err != nil || !(lambda > 0) || math.IsInf(lambda, 0) {
+			c.health.EvidenceError = fmt.Sprintf("block %s: %v (λ = %v)", block, err, lambda)
+			return
+		}
+		c.lambdas[shape] = lambda
+		c.health.EvidenceLambda = online.Float(lambda)
+		c.health.EvidenceBlock = block
+		c.health.EvidenceError = ""
+		c.opt.Logger.Info("ingest: evidence choice of the ridge penalty", "block", block, "lambda", lambda)
+	}()
+}
+
+// WaitEvidence waits for the evidence fits still running.
+func (c *Loop) WaitEvidence() { c.evidence.Wait() }

@@ -54,6 +54,13 @@ type Options struct {
 	// Lambda is the ridge penalty of every block's estimates; 0 keeps the
 	// estimator's default (online.DefaultLambda times the pixel variance).
 	Lambda float64
+	// Evidence, with Lambda 0, chooses the penalty by the evidence
+	// (online.Mapper.Evidence) at the end of each block, in the background,
+	// and gives it to the later blocks with the same stimulus shape. The fit
+	// takes about a minute at 16×16 pixels × 12 lags; it touches nothing but
+	// the finished block's estimator and the Loop's guarded state, and one
+	// still running when the process ends is abandoned (WaitEvidence waits).
+	Evidence bool
 	// MaxUnits caps the distinct unit ids of one block (DefaultMaxUnits);
 	// a spikes message that would pass it is rejected.
 	MaxUnits int
