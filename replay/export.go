@@ -185,15 +185,17 @@ func floats64(v online.Floats) []float64 {
 	return out
 }
 
-// FileName turns a unit id into a safe file name: letters, digits, '_' and
-// '-' stay, every other byte becomes %XX (so "." and "/" cannot escape the
-// directory, and distinct ids give distinct names).
+// FileName turns a unit id into a safe file name: letters, digits, '_', '-'
+// and '.' (except as the first byte) stay, every other byte becomes %XX (so
+// "..", "/" and hidden names cannot arise, and distinct ids give distinct
+// names).
 func FileName(id string) string {
 	var b strings.Builder
 	for i := 0; i < len(id); i++ {
 		c := id[i]
 		switch {
-		case c >= 'a' && c <= 'z', c >= 'A' && c <= 'Z', c >= '0' && c <= '9', c == '_', c == '-':
+		case c >= 'a' && c <= 'z', c >= 'A' && c <= 'Z', c >= '0' && c <= '9', c == '_', c == '-',
+			c == '.' && i > 0: // "ch07.1" stays readable; a leading dot would hide the file or name "." and ".."
 			b.WriteByte(c)
 		default:
 			fmt.Fprintf(&b, "%%%02X", c)

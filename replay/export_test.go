@@ -186,7 +186,10 @@ func TestFileName(t *testing.T) {
 	cases := []struct{ id, want string }{
 		{"12", "12"},
 		{"ch3_u-1", "ch3_u-1"},
-		{"..", "%2E%2E"},
+		{"..", "%2E."},
+		{"ch07.1", "ch07.1"},
+		{".hidden", "%2Ehidden"},
+		{"a%2Eb", "a%252Eb"},
 		{"a/b", "a%2Fb"},
 		{"é", "%C3%A9"},
 	}
