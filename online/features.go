@@ -16,6 +16,9 @@ type FeatureFinder struct {
 	// estimates that are not significant: a fit to noise costs the most and
 	// means nothing.
 	MomentsOnly bool
+	// SkipSeparable leaves Separability (NaN), Spatial and Temporal (nil)
+	// out, for a caller that keeps them from an earlier call.
+	SkipSeparable bool
 	// Warm, when set, starts the fit from this earlier fit of the same unit
 	// instead of from the moments, and allows fewer steps: the field moves
 	// little between updates. The moments still decide when the fit fails.
@@ -162,6 +165,10 @@ func (f *FeatureFinder) FeaturesTo(dst *Features, est []float64) error {
 	dst.CentreX, dst.CentreY = Float(g.x0), Float(g.y0)
 	dst.SigmaX, dst.SigmaY, dst.Angle = Float(g.s1), Float(g.s2), Float(g.angle)
 	f.degrees(dst)
+	if f.SkipSeparable {
+		dst.Spatial, dst.Temporal = nil, nil
+		return nil
+	}
 	return f.separable(dst, est)
 }
 

@@ -162,6 +162,7 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	fit := &m.fits[u]
 	fitNow := significant && (!fit.ok || (m.updates+int64(u))%fitEvery == 0)
 	s.features.MomentsOnly = !fitNow
+	s.features.SkipSeparable = !fitNow && significant && fit.ok
 	s.features.Warm = nil
 	if fit.ok {
 		s.features.Warm = &Features{CentreX: fit.cx, CentreY: fit.cy, SigmaX: fit.sx, SigmaY: fit.sy, Angle: fit.angle}
@@ -225,25 +226,31 @@ func (m *Mapper) reliabilityWindow(w []float64, significant bool) (lo, hi int) {
 	return first * m.pixels, (first + n) * m.pixels
 }
 
-// fitEvery staggers the Gaussian fits, the costliest per-unit step: each
-// significant unit is refitted every fitEvery updates, units taking turns,
-// and keeps its last fit in between.
+// fitEvery staggers the Gaussian fits and the space–time SVDs, the
+// costliest per-unit steps: each significant unit is refitted every
+// fitEvery updates, units taking turns, and keeps its last fit in between.
 const fitEvery = 4
 
-// shapeFit is a unit's last Gaussian fit.
+// shapeFit is a unit's last Gaussian fit and separable approximation,
+// shown until the next refit. Spatial and Temporal are shared with earlier
+// snapshots, which never write them.
 type shapeFit struct {
 	ok                                        bool
 	cx, cy, sx, sy, angle, cxd, cyd, sxd, syd Float
+	separability                              Float
+	spatial, temporal                         Floats
 }
 
 func (f *shapeFit) save(ft *Features) {
 	*f = shapeFit{true, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
-		ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg}
+		ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg,
+		ft.Separability, ft.Spatial, ft.Temporal}
 }
 
 func (f *shapeFit) restore(ft *Features) {
 	ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle = f.cx, f.cy, f.sx, f.sy, f.angle
 	ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg = f.cxd, f.cyd, f.sxd, f.syd
+	ft.Separability, ft.Spatial, ft.Temporal = f.separability, f.spatial, f.temporal
 }
 
 // halvesTo writes the two split-half ridge estimates of unit u. With y_A the
