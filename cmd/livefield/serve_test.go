@@ -16,7 +16,8 @@ import (
 	"time"
 )
 
-// natsServerBinary finds Debian's nats-server (package nats-server).
+// natsServerBinary finds Debian's nats-server (package nats-server). Without
+// it the test skips, or fails when LIVEFIELD_REQUIRE_NATS_SERVER=1 (as in CI).
 func natsServerBinary(t *testing.T) string {
 	for _, p := range []string{"/usr/bin/nats-server", "/usr/sbin/nats-server"} {
 		if _, err := os.Stat(p); err == nil {
@@ -25,6 +26,9 @@ func natsServerBinary(t *testing.T) string {
 	}
 	if p, err := exec.LookPath("nats-server"); err == nil {
 		return p
+	}
+	if os.Getenv("LIVEFIELD_REQUIRE_NATS_SERVER") == "1" {
+		t.Fatal("LIVEFIELD_REQUIRE_NATS_SERVER=1 but no nats-server binary: install Debian's package nats-server")
 	}
 	t.Skip("nats-server binary not found (install Debian's package nats-server); skipping the standalone-server test")
 	return ""
