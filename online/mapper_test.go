@@ -287,10 +287,13 @@ func TestMapperNullCalibration(t *testing.T) {
 			nR++
 		}
 	}
-	// Binomial(240, 0.05): mean 12, sd 3.4; a 99.9 % two-sided band is about ±3.3 sd.
+	// Binomial(240, 0.05): mean 12, sd 3.4; a 99.9 % two-sided band is about
+	// ±3.3 sd (normal approximation to the binomial; common practice, no source).
 	if sig < 1 || sig > 24 {
 		t.Errorf("%d of %d null units significant at α = 0.05, want 12 ± 11", sig, units)
 	}
+	// 240 units, each r with sd about 1/√(3·36) ≈ 0.1 over the 3-lag window:
+	// the mean's sd is about 0.006, so ±0.05 is far outside chance.
 	meanR := sumR / float64(nR)
 	if math.Abs(meanR) > 0.05 {
 		t.Errorf("mean split-half reliability under the null = %.3f, want 0 ± 0.05", meanR)
