@@ -15,6 +15,12 @@ import (
 // about a minute at D = 3072 on one core, so it belongs at the end of a block
 // (the next block can start with it) or in an offline pass, not in Update.
 func (m *Mapper) Evidence() (shared float64, perUnit []float64, err error) {
+	if bins := m.gram.Bins(); bins < m.dim {
+		// With fewer bins than dimensions the model can fit the noise
+		// exactly, and the fixed point runs off to λ → 0.
+		return 0, nil, fmt.Errorf("online: evidence: %d bins for %d dimensions; it needs at least as many bins as dimensions (%.0f s of data)",
+			bins, m.dim, float64(m.dim)*m.cfg.FramePeriod)
+	}
 	g, cross, err := m.centredMoments()
 	if err != nil {
 		return 0, nil, err

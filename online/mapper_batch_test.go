@@ -145,3 +145,12 @@ func TestAddBinRefusesBadBins(t *testing.T) {
 		t.Errorf("refused bins changed the spike count: %d → %d", before.Spikes, after.Spikes)
 	}
 }
+
+// With fewer bins than dimensions the evidence fixed point is degenerate
+// (the model fits the noise exactly and λ runs off to 0): refused.
+func TestMapperEvidenceNeedsBins(t *testing.T) {
+	sim := smallSimulation(t, 2) // 117 bins, 144 dimensions
+	if _, _, err := sim.m.Evidence(); err == nil {
+		t.Fatal("evidence with fewer bins than dimensions was accepted")
+	}
+}

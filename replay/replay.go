@@ -36,6 +36,12 @@ type FeedOptions struct {
 	// the feeder locked (on the feeding goroutine, or on the goroutine of a
 	// Reset or SetCriterion) and must not call the feeder.
 	OnUpdate func(block string, s *online.Snapshot, at time.Time)
+	// Lambda is the ridge penalty of every block (0: the estimator's
+	// default); Evidence chooses it by the evidence at each block end for the
+	// later blocks of the same stimulus shape (ingest.Options.Evidence), and
+	// EvidenceLambda reports the choice.
+	Lambda   float64
+	Evidence bool
 	// OnBlockEnd, when set, is called likewise with the final snapshot of
 	// each block.
 	OnBlockEnd func(block string, s *online.Snapshot, at time.Time)
@@ -87,6 +93,8 @@ func NewFeeder(opt FeedOptions) (*Feeder, error) {
 		Logger:      discard,
 		OnUpdate:    opt.OnUpdate,
 		OnBlockEnd:  opt.OnBlockEnd,
+		Lambda:      opt.Lambda,
+		Evidence:    opt.Evidence,
 	})
 	if err != nil {
 		return nil, fmt.Errorf("replay: %w", err)
@@ -154,6 +162,25 @@ func (f *Feeder) Stats() FeedStats {
 
 // Health is Stats, for the display.
 func (f *Feeder) Health() any { return f.Stats() }
+
+// EvidenceLambda waits for the evidence fits of the ended blocks
+// (FeedOptions.Evidence) and returns the choice of λ from the named block,
+// or from the last block that ended when block is "".
+func (f *Feeder) EvidenceLambda(block string) (float64, error) {
+	f.loop.WaitEvidence()
+	h := f.loop.Counters()
+	if block == "" {
+		block = h.EvidenceBlock
+	}
+	if lambda, ok := f.loop.EvidenceOf(block); ok {
+		return lambda, nil
+	}
+	why := h.EvidenceError
+	if why == "" {
+		why = "no block ended"
+	}
+	return 0, fmt.Errorf("replay: no evidence choice of λ for block %q: %s", block, why)
+}
 
 // Reset forgets the running block's estimates.
 func (f *Feeder) Reset() {

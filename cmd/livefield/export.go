@@ -2,18 +2,23 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
+	"math"
 	"path/filepath"
+	"strconv"
 	"time"
 
+	"livefield/online"
 	"livefield/replay"
+	"livefield/replay/session"
 )
 
 func init() {
 	register("export", command{
 		summary: "run a whole session at full speed and write every unit's estimates (NPY, JSON) and a contact sheet (PNG)",
-		usage:   "FILE --out DIR [--block ID] [--stimuli DIR]",
+		usage:   "FILE --out DIR [--block ID] [--stimuli DIR] [--lambda L|evidence]",
 		example: "livefield export testdata/sessions/synth-30s.lfs --out synth-30s-export",
 		run:     runExport,
 	})
@@ -25,6 +30,7 @@ func runExport(ctx context.Context, name string, args []string, stdout, stderr i
 	out := fs.String("out", "", "directory to write into (required; created if needed)")
 	block := fs.String("block", "", "block to export (default: the last one)")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
+	lambdaFlag := fs.String("lambda", "0", "ridge penalty λ; 0 takes the default, 100 × the stimulus pixel variance; \"evidence\" first chooses it by empirical Bayes on the exported block (one more pass)")
 	file, err := fileArg(fs, args)
 	if err != nil {
 		return err
@@ -32,14 +38,22 @@ func runExport(ctx context.Context, name string, args []string, stdout, stderr i
 	if *out == "" {
 		return fmt.Errorf("--out is required (e.g. --out %s-export)", filepath.Base(file))
 	}
+	start := time.Now()
+	lambda := 0.0
+	if *lambdaFlag == "evidence" {
+		if lambda, err = evidencePass(ctx, file, *block, *stimuli, stdout, stderr); err != nil {
+			return err
+		}
+	} else if lambda, err = strconv.ParseFloat(*lambdaFlag, 64); err != nil || lambda < 0 || math.IsNaN(lambda) || math.IsInf(lambda, 0) {
+		return fmt.Errorf("--lambda %s: must be a number ≥ 0 or \"evidence\"", *lambdaFlag)
+	}
 	f, _, err := openSession(file, stdout)
 	if err != nil {
 		return err
 	}
 	defer f.Close()
-	start := time.Now()
 	res, err := replay.Export(ctx, f.Reader, *out, replay.ExportOptions{
-		Feed:     replay.FeedOptions{StimuliDir: *stimuli},
+		Feed:     replay.FeedOptions{StimuliDir: *stimuli, Lambda: lambda},
 		Block:    *block,
 		OnDamage: damageLogger(stderr),
 		Progress: func(s replay.FeedStats) {
@@ -54,4 +68,44 @@ func runExport(ctx context.Context, name string, args []string, stdout, stderr i
 		fmt.Fprintf(stdout, "livefield: %d damaged spans of the file were skipped\n", res.Damaged)
 	}
 	return nil
+}
+
+// evidencePass runs the session once to choose λ by the evidence on the
+// exported block (the named one, else the last), printing progress.
+func evidencePass(ctx context.Context, file, block, stimuli string, stdout, stderr io.Writer) (float64, error) {
+	f, _, err := openSession(file, io.Discard)
+	if err != nil {
+		return 0, err
+	}
+	defer f.Close()
+	last := ""
+	enough := errors.New("the exported block has ended")
+	feeder, err := replay.NewFeeder(replay.FeedOptions{
+		StimuliDir: stimuli, Evidence: true, UpdateEvery: time.Hour,
+		OnBlockEnd: func(b string, _ *online.Snapshot, _ time.Time) { last = b },
+	})
+	if err != nil {
+		return 0, err
+	}
+	fmt.Fprintln(stdout, "livefield: choosing λ by the evidence (one pass over the session, then the fit; about a minute at 16×16×12)")
+	_, err = replay.Play(ctx, f.Reader, replay.PlayOptions{OnDamage: damageLogger(stderr)}, func(r session.Record) error {
+		if block != "" && last == block {
+			return enough
+		}
+		_ = feeder.Record(r) // refusals are counted, as in the export itself
+		return nil
+	})
+	if err != nil && !errors.Is(err, enough) {
+		return 0, err
+	}
+	feeder.Finish()
+	if block == "" {
+		block = last
+	}
+	lambda, err := feeder.EvidenceLambda(block)
+	if err != nil {
+		return 0, err
+	}
+	fmt.Fprintf(stdout, "livefield: evidence choice for block %s: λ = %.4g\n", block, lambda)
+	return lambda, nil
 }

@@ -135,6 +135,8 @@ func TestSessionCommandErrors(t *testing.T) {
 		{"bad from", []string{"replay", path, "--from", "soon"}, "--from", 1},
 		{"not a session", []string{"export", "replay_test.go", "--out", t.TempDir()}, "not a session file", 1},
 		{"export without out", []string{"export", path}, "--out is required", 1},
+		{"export bad lambda", []string{"export", path, "--out", t.TempDir(), "--lambda", "-1"}, "--lambda -1", 1},
+		{"export evidence on a short block", []string{"export", path, "--out", t.TempDir(), "--lambda", "evidence"}, "needs at least as many bins as dimensions", 1},
 		{"practice at max without stop", []string{"practice", path, "--speed", "max"}, "--stop-at", 1},
 		{"record without rig", []string{"record", "--nats", "nats://127.0.0.1:1", "--out", "x.lfs"}, "--rig is required", 1},
 	}

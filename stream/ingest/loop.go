@@ -40,6 +40,7 @@ type Loop struct {
 	mu       sync.Mutex // guards health and lambdas
 	health   Health
 	lambdas  map[string]float64 // evidence λ by stimulus shape (stimulusShape)
+	byBlock  map[string]float64 // evidence λ by block id
 	evidence sync.WaitGroup     // running evidence fits
 
 	logged map[string]time.Time // last log line per reason; feeder only
@@ -58,7 +59,7 @@ func NewLoop(opt Options) (*Loop, error) {
 }
 
 func newLoop(opt Options) *Loop {
-	c := &Loop{opt: opt, logged: map[string]time.Time{}, lambdas: map[string]float64{}}
+	c := &Loop{opt: opt, logged: map[string]time.Time{}, lambdas: map[string]float64{}, byBlock: map[string]float64{}}
 	c.health.Rejected = map[string]uint64{}
 	nan := online.Float(math.NaN()) // unknown until the first update; JSON null
 	c.health.StreamTime, c.health.BinTime, c.health.StreamLag, c.health.Lag = nan, nan, nan, nan
@@ -682,6 +683,7 @@ func (c *Loop) fitEvidence(block, shape string, m *online.Mapper) {
 			return
 		}
 		c.lambdas[shape] = lambda
+		c.byBlock[block] = lambda
 		c.health.EvidenceLambda = online.Float(lambda)
 		c.health.EvidenceBlock = block
 		c.health.EvidenceError = ""
@@ -691,3 +693,12 @@ func (c *Loop) fitEvidence(block, shape string, m *online.Mapper) {
 
 // WaitEvidence waits for the evidence fits still running.
 func (c *Loop) WaitEvidence() { c.evidence.Wait() }
+
+// EvidenceOf is the evidence choice of λ from the named block, once its fit
+// has finished (WaitEvidence); ok is false when there is none.
+func (c *Loop) EvidenceOf(block string) (lambda float64, ok bool) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	lambda, ok = c.byBlock[block]
+	return lambda, ok
+}
