@@ -115,7 +115,7 @@ func TestSessionCommands(t *testing.T) {
 	if err != nil || json.Unmarshal(b, &rep) != nil || rep.State != "done" || rep.StopS != 1.5 || len(rep.Units) == 0 {
 		t.Errorf("practice report %v: %s", err, b)
 	}
-	for _, name := range []string{"contact.png", "summary.json", "units/ch00%2E1.npy", "units/ch00%2E1.sta.npy", "units/ch00%2E1.json"} {
+	for _, name := range []string{"contact.png", "summary.json", "units/ch00.1.npy", "units/ch00.1.sta.npy", "units/ch00.1.json"} {
 		if _, err := os.Stat(filepath.Join(dir, "x", name)); err != nil {
 			t.Errorf("export: %v", err)
 		}
