@@ -66,11 +66,16 @@ func runDemo(ctx context.Context, name string, args []string, stdout, stderr io.
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
 	prefix := wire.Prefix(demoRig)
-	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, Logger: log})
+	// The embedded server has JetStream, so the demo maps durably, as serve
+	// does on such a server.
+	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, Logger: log, Durable: true})
 	if err != nil {
 		return err
 	}
 	defer r.Close()
+	if h := r.Counters(); h.Durable {
+		fmt.Fprintf(stdout, "livefield: durable: JetStream stream %s, consumer %s\n", h.Stream, h.Consumer)
+	}
 
 	var wg sync.WaitGroup
 	wg.Add(1)
