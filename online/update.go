@@ -12,7 +12,6 @@ type shared struct {
 	wh     []float64 // ridge weights of the half indicator
 	pdiag  []float64 // diagonal of the weights block of P
 	t1, t2 float64   // hat-matrix traces
-	period float64
 }
 
 // scratch is one worker's buffers for per-unit statistics.
@@ -39,7 +38,7 @@ func (m *Mapper) newScratch() *scratch {
 func (m *Mapper) Update() *Snapshot {
 	m.ridge.Flush()
 	m.updates++
-	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim), period: m.cfg.FramePeriod}
+	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim)}
 	if m.ridge.Rows() > 0 {
 		if !m.cfg.White {
 			m.ridge.WeightsTo(sh.wh, 0)
