@@ -5,9 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"math"
 	"path/filepath"
-	"strconv"
 	"time"
 
 	"livefield/online"
@@ -39,13 +37,14 @@ func runExport(ctx context.Context, name string, args []string, stdout, stderr i
 		return fmt.Errorf("--out is required (e.g. --out %s-export)", filepath.Base(file))
 	}
 	start := time.Now()
-	lambda := 0.0
-	if *lambdaFlag == "evidence" {
+	lambda, evidence, err := parseLambda(*lambdaFlag)
+	if err != nil {
+		return err
+	}
+	if evidence {
 		if lambda, err = evidencePass(ctx, file, *block, *stimuli, stdout, stderr); err != nil {
 			return err
 		}
-	} else if lambda, err = strconv.ParseFloat(*lambdaFlag, 64); err != nil || lambda < 0 || math.IsNaN(lambda) || math.IsInf(lambda, 0) {
-		return fmt.Errorf("--lambda %s: must be a number ≥ 0 or \"evidence\"", *lambdaFlag)
 	}
 	f, _, err := openSession(file, stdout)
 	if err != nil {

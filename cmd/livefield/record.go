@@ -7,8 +7,6 @@ import (
 	"log/slog"
 	"time"
 
-	"github.com/nats-io/nats.go"
-
 	"livefield/replay"
 	"livefield/replay/session"
 )
@@ -43,13 +41,9 @@ func runRecord(ctx context.Context, name string, args []string, stdout, stderr i
 	if *out == "" {
 		return fmt.Errorf("--out is required (e.g. --out %s.lfs)", *rig)
 	}
-	opts, err := nf.options("livefield record "+*rig, log)
+	nc, err := nf.dial("livefield record "+*rig, log)
 	if err != nil {
 		return err
-	}
-	nc, err := nats.Connect(nf.url, opts...)
-	if err != nil {
-		return fmt.Errorf("--nats %s: %w", redact(nf.url), err)
 	}
 	defer nc.Close()
 	w, err := session.Create(*out, session.Header{Rig: *rig, Prefix: prefix, Created: time.Now().UTC()})

@@ -47,6 +47,26 @@ func (n *natsFlags) add(fs interface {
 }
 
 // options turns the flags into nats.go options; errors name the flag.
+// dial checks the flags and connects, as a client called name.
+func (n *natsFlags) dial(name string, log *slog.Logger) (*nats.Conn, error) {
+	opts, err := n.options(name, log)
+	if err != nil {
+		return nil, err
+	}
+	return n.connect(opts)
+}
+
+// connect opens the connection with opts; its error names the server
+// without the credentials in its URL.
+func (n *natsFlags) connect(opts []nats.Option) (*nats.Conn, error) {
+	nc, err := nats.Connect(n.url, opts...)
+	if err != nil {
+		return nil, fmt.Errorf("--nats %s: %w", redact(n.url), err)
+	}
+	return nc, nil
+}
+
+// options checks the flags and turns them into nats.go options.
 func (n *natsFlags) options(name string, log *slog.Logger) ([]nats.Option, error) {
 	if n.url == "" {
 		return nil, errors.New("--nats is required (e.g. --nats nats://127.0.0.1:4222)")
@@ -135,13 +155,9 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	if err != nil {
 		return err
 	}
-	lambda, evidence := 0.0, *lambdaFlag == "evidence"
-	if !evidence {
-		v, err := strconv.ParseFloat(*lambdaFlag, 64)
-		if err != nil || v < 0 || math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("--lambda %s: must be a number ≥ 0 or \"evidence\"", *lambdaFlag)
-		}
-		lambda = v
+	lambda, evidence, err := parseLambda(*lambdaFlag)
+	if err != nil {
+		return err
 	}
 	if *grace <= 0 {
 		return fmt.Errorf("--grace %v: must be positive", *grace)
@@ -162,9 +178,9 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 		return err
 	}
 	defer ln.Close()
-	nc, err := nats.Connect(nf.url, opts...)
+	nc, err := nf.connect(opts)
 	if err != nil {
-		return fmt.Errorf("--nats %s: %w", redact(nf.url), err)
+		return err
 	}
 	defer nc.Close()
 	durable := false
@@ -210,4 +226,17 @@ func redact(u string) string {
 		return "[redacted]@" + u[i+1:]
 	}
 	return u
+}
+
+// parseLambda reads a --lambda flag: a penalty ≥ 0 (0: the estimator's
+// default) or "evidence".
+func parseLambda(s string) (lambda float64, evidence bool, err error) {
+	if s == "evidence" {
+		return 0, true, nil
+	}
+	v, err := strconv.ParseFloat(s, 64)
+	if err != nil || v < 0 || math.IsNaN(v) || math.IsInf(v, 0) {
+		return 0, false, fmt.Errorf("--lambda %s: must be a number ≥ 0 or \"evidence\"", s)
+	}
+	return v, false, nil
 }

@@ -94,13 +94,9 @@ func runSimulate(ctx context.Context, name string, args []string, stdout, stderr
 	case *block == "":
 		return errors.New("--block: must not be empty")
 	}
-	opts, err := nf.options("livefield simulate "+*rig, log)
+	nc, err := nf.dial("livefield simulate "+*rig, log)
 	if err != nil {
 		return err
-	}
-	nc, err := nats.Connect(nf.url, opts...)
-	if err != nil {
-		return fmt.Errorf("--nats %s: %w", redact(nf.url), err)
 	}
 	defer nc.Close()
 	fmt.Fprintf(stdout, "livefield: publishing %v of block %s on %s.* (%d units, speed %v)\n", *duration, *block, prefix, *units, *speed)
