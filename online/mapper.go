@@ -366,15 +366,15 @@ func (m *Mapper) FlagSTC(id string, on bool) bool {
 	return true
 }
 
-// SetCriterion changes the target reliability and the block fraction; a
-// value outside (0, 1) leaves that setting as it was.
-func (m *Mapper) SetCriterion(target, fraction float64) {
-	if target > 0 && target < 1 {
-		m.cfg.Target = target
+// SetCriterion changes the target reliability and the block fraction. A
+// criterion that fails Criterion.Check is refused whole with its error.
+func (m *Mapper) SetCriterion(target, fraction float64) error {
+	c := Criterion{Target: target, Fraction: fraction}
+	if err := c.Check(); err != nil {
+		return err
 	}
-	if fraction > 0 && fraction <= 1 {
-		m.cfg.Fraction = fraction
-	}
+	m.cfg.Target, m.cfg.Fraction = c.Target, c.Fraction
+	return nil
 }
 
 // Snapshot is the result of the latest Update.

@@ -148,12 +148,16 @@ func (f *Feeder) Snapshot() *online.Snapshot { return f.loop.Snapshot() }
 
 // Stats returns the counts so far.
 func (f *Feeder) Stats() FeedStats {
-	f.mu.Lock()
-	t := f.loop.Totals()
-	f.mu.Unlock()
 	h := f.loop.Counters()
-	s := FeedStats{Messages: int64(t.Messages), Blocks: int64(t.Blocks), Bins: int64(t.Bins), Spikes: int64(t.Spikes),
-		Block: t.Block, Stream: t.StreamT, Rejected: make(map[string]int64, len(h.Rejected))}
+	block, stream := h.Block, float64(h.StreamTime)
+	if h.BlockState != "running" {
+		block = ""
+	}
+	if math.IsNaN(stream) {
+		stream = 0
+	}
+	s := FeedStats{Messages: int64(h.Processed), Blocks: int64(h.Blocks), Bins: int64(h.Bins), Spikes: int64(h.SpikesTotal),
+		Block: block, Stream: stream, Rejected: make(map[string]int64, len(h.Rejected))}
 	for k, v := range h.Rejected {
 		s.Rejected[k] = int64(v)
 	}

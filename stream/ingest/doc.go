@@ -1,18 +1,29 @@
 // Package ingest runs the live mapping of one rig: it reads the rig's block,
 // frames, spikes and control messages from NATS (JetStream or core), bins
 // them, feeds an online.Mapper per block and publishes an immutable
-// online.Snapshot once per second of wall time.
+// online.Snapshot at most once per second of wall time. Load costs
+// freshness, never data: the message path only decodes and bins, and the
+// estimates trail the stream (Health.StreamLag) while the estimator catches
+// up, each update folding in every bin that has queued up, exactly.
 //
 // # What it owns
 //
-// A Loop (NewLoop) is the NATS-free core: fed messages one at a time with
-// their arrival times (Feed), it owns for the running block the stimulus
-// Source, the binning.Binner and the online.Mapper, and publishes a
-// snapshot once per UpdateEvery of that clock. replay.Feeder is a Loop
-// behind a lock.
+// A Loop (NewLoop) is the NATS-free core, in two parts joined by an
+// unbounded, ordered event queue. The intake, fed messages one at a time
+// with their arrival times (Feed), owns the decoder, the running block's
+// binning.Binner and the unit numbering, and queues closed bins, new units,
+// block starts and ends and controls. The estimator owns the block's
+// online.Mapper: it applies the events in order (AddBin only adds to the
+// sufficient statistics) and updates at most once per UpdateEvery; the
+// mapper picks the route of each update (a block RLS update for a few
+// bins, one exact re-solve from the Gram matrix for many). In a Loop made
+// by NewLoop the estimator runs inline on the feeding goroutine, paced by
+// the arrival times (replay, export: deterministic). replay.Feeder is such
+// a Loop behind a lock.
 //
 // A Rig, made by Start, feeds a Loop from NATS through a bounded queue to
-// one owner goroutine. Spikes and frames are aligned by their payload
+// the intake goroutine, and runs the estimator on a goroutine of its own.
+// Spikes and frames are aligned by their payload
 // times (the binner's watermark and grace), never by arrival order.
 // Several Rigs with different prefixes may share one *nats.Conn and never
 // see each other's messages.
@@ -49,20 +60,22 @@
 // # Goroutines
 //
 //   - A Loop is fed by one goroutine at a time (Feed, Advance, Update,
-//     Finish, Reset, FlagSTC, SetCriterion, Totals); Snapshot, Counters
-//     and Health may be called from any goroutine. Options.OnUpdate and
-//     OnBlockEnd run on the feeding goroutine.
+//     Finish, Reset, FlagSTC, SetCriterion); Snapshot, Counters, Health
+//     and EvidenceOf may be called from any goroutine. Options.OnUpdate and
+//     OnBlockEnd run on the estimator's goroutine (the feeding goroutine of
+//     a NewLoop).
 //   - A Rig's NATS delivery goroutine only counts the message and hands it
-//     to the queue (Options.Queue messages). On core NATS, when the queue
-//     stays full for 200 ms the message is dropped and counted as
-//     "queue-full"; nats.go's own pending limits come before that and count
-//     their drops (slow_consumer_drops, with slow_consumer_events).
-//   - The owner goroutine decodes, bins, estimates and acknowledges, and is
-//     the only one that touches the Loop. It runs until the context of
-//     Start ends or Close is called.
+//     to the queue (Options.Queue messages); when the queue is full it
+//     waits, and nats.go holds the messages up to its pending limits, the
+//     only place where core NATS can drop (counted: slow_consumer_drops,
+//     with slow_consumer_events). livefield itself drops nothing.
+//   - The intake goroutine decodes, bins, numbers units and acknowledges;
+//     the estimator goroutine folds bins in and updates. Both run until
+//     the context of Start ends or Close is called, which also cancels the
+//     evidence fits and waits for all of them.
 //   - Any goroutine may call a Rig's Snapshot, Health, Counters, Reset,
-//     FlagSTC, SetCriterion, Sync and Close. Snapshot is an atomic load; the
-//     commands run on the owner goroutine and wait for it.
+//     FlagSTC, SetCriterion, Sync, WaitProcessed and Close. Snapshot is an
+//     atomic load; the commands run on the intake goroutine and wait for it.
 //
 // # Blocks
 //

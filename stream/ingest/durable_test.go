@@ -9,6 +9,7 @@ import (
 	"net/http/httptest"
 	"runtime"
 	"slices"
+	"sync"
 	"testing"
 	"time"
 
@@ -324,8 +325,12 @@ func TestDurableMapperRestart(t *testing.T) {
 	if len(ids) != 8 {
 		t.Fatalf("units %v, want u0…u7", ids)
 	}
-	// Same messages in the same order into the same code: bit for bit.
-	sameUnits(t, again.Snapshot(), whole.Snapshot(), ids, 0)
+	// Same messages in the same order: the same exact ridge. Which bins
+	// fall into which update follows the machine's timing (the estimator
+	// folds whatever has queued up), so the two differ by round-off only:
+	// weights of order 1e-2 from a well-conditioned λI + XᵀX (λ is 100×
+	// the pixel variance) agree to far better than 1e-12.
+	sameUnits(t, again.Snapshot(), whole.Snapshot(), ids, 1e-12)
 }
 
 // TestShards runs two workers (shards 0/2 and 1/2) and one unsharded
@@ -384,7 +389,7 @@ func TestShards(t *testing.T) {
 	t.Logf("%d units: %d on shard 0, %d on shard 1; largest ridge difference from one worker %.3g", len(ids), len(ids0), len(ids1), max(w0, w1))
 }
 
-// TestSlowConsumer holds the owner goroutine with a one-message queue and
+// TestSlowConsumer holds the intake goroutine with a one-message queue and
 // small pending limits on core NATS: nats.go drops what overflows, and the
 // drops and the episode show in /api/health.
 func TestSlowConsumer(t *testing.T) {
@@ -392,6 +397,9 @@ func TestSlowConsumer(t *testing.T) {
 	nc := connect(t, srv)
 	r := startRig(t, nc, Options{Prefix: "test.slow", Queue: 1, PendingMsgs: 4, PendingBytes: 1 << 20})
 	started, release := make(chan struct{}), make(chan struct{})
+	var once sync.Once
+	free := func() { once.Do(func() { close(release) }) }
+	t.Cleanup(free) // before the rig's Close, which needs the intake
 	go r.do(func() { close(started); <-release })
 	<-started
 	p := &publisher{t: t, nc: connect(t, srv), prefix: "test.slow"}
@@ -401,10 +409,10 @@ func TestSlowConsumer(t *testing.T) {
 	if err := p.nc.Flush(); err != nil {
 		t.Fatal(err)
 	}
-	// The callback holds 1 message in the queue, waits 200 ms with a second
-	// one, and nats.go keeps 4 pending: the other 44 or more overflow.
+	// The queue holds 1 message, the callback waits with a second one, and
+	// nats.go keeps 4 pending: the other 44 overflow in nats.go.
 	pollHealth(t, r, "slow-consumer drops", func(h Health) bool { return h.SlowConsumer >= 40 })
-	close(release)
+	free()
 	h := pollHealth(t, r, "the episode", func(h Health) bool { return h.SlowConsumerEvents >= 1 })
 
 	web := httptest.NewServer(display.NewAPI(r))

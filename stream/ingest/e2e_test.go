@@ -53,6 +53,7 @@ func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Sc
 			sent += n
 		}
 		if h.BlockState == "ended" && h.Processed == sent {
+			r.Sync() // and the estimates have folded in every bin
 			return rig
 		}
 		if time.Now().After(deadline) {

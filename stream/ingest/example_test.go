@@ -58,8 +58,8 @@ func ExampleLoop() {
 	err = l.Feed("spikes", []byte(`{"unit":["ch01.0"],"t":[-1]}`), at)
 	fmt.Println("refused:", err.(*ingest.Error).Reason)
 	l.Feed("block", []byte(`{"kind":"end","block":"B1","t":0.1}`), at.Add(time.Second))
-	t := l.Totals()
-	fmt.Println("bins:", t.Bins, "spikes:", t.Spikes, "units:", len(l.Snapshot().Units))
+	h := l.Counters()
+	fmt.Println("bins:", h.Bins, "spikes:", h.SpikesTotal, "units:", len(l.Snapshot().Units))
 	// Output:
 	// refused: negative-time
 	// bins: 6 spikes: 2 units: 1

@@ -2,6 +2,7 @@ package ingest
 
 import (
 	"maps"
+	"math"
 	"time"
 
 	"livefield/online"
@@ -20,7 +21,7 @@ const (
 	ReasonBadFrames     = "bad-frames"         // frames the binner refuses (time running backwards, …)
 	ReasonUnitCap       = "unit-cap"           // spikes that would pass Options.MaxUnits
 	ReasonUnknownCmd    = "unknown-command"    // a control command the ingest does not know
-	ReasonQueueFull     = "queue-full"         // dropped before decoding: the owner fell behind
+	ReasonBadBin        = "bad-bin"            // a bin the estimator refused (a movie frame with a non-finite pixel)
 	ReasonSubject       = "unknown-subject"    // a subject under the prefix that is none of the four
 )
 
@@ -42,7 +43,9 @@ type Health struct {
 	// goroutine at most).
 	SlowConsumer       int    `json:"slow_consumer_drops"`
 	SlowConsumerEvents uint64 `json:"slow_consumer_events"`
-	// Queue is the messages waiting for the owner goroutine now.
+	// Queue is the messages waiting for the intake goroutine now. The
+	// NATS callbacks wait for room rather than drop: past the queue, nats.go
+	// holds messages up to its pending limits (SlowConsumer beyond).
 	Queue int `json:"queue"`
 
 	// Durable is true when the ingest reads a JetStream stream; Warning
@@ -67,7 +70,8 @@ type Health struct {
 	// the spikes of other shards' units, ignored (not rejected).
 	Shard            string `json:"shard"`
 	OtherShardSpikes uint64 `json:"other_shard_spikes"`
-	// Rejected counts rejected messages by reason; QueueFull ones included.
+	// Rejected counts rejected messages (and bins the estimator refused) by
+	// reason.
 	Rejected map[string]uint64 `json:"rejected"`
 
 	Block      string `json:"block"`
@@ -86,7 +90,7 @@ type Health struct {
 	EvidenceBlock   string       `json:"evidence_block,omitempty"`
 	EvidenceError   string       `json:"evidence_error,omitempty"`
 
-	Bins        uint64 `json:"bins"`        // bins given to the mapper
+	Bins        uint64 `json:"bins"`        // bins in the published estimates
 	LateSpikes  uint64 `json:"late_spikes"` // spikes that arrived after their bin had closed
 	HeldFrames  uint64 `json:"held_frames"` // bins whose frame was held over from the one before
 	SpikesTotal uint64 `json:"spikes"`      // spikes accepted
@@ -97,41 +101,71 @@ type Health struct {
 	UpdateSeconds float64      `json:"update_s"`
 	LastUpdate    string       `json:"last_update"` // RFC 3339, wall clock
 	StreamTime    online.Float `json:"stream_t"`    // latest spike or frame time seen (null before any)
-	BinTime       online.Float `json:"bin_t"`       // end of the latest bin given to the mapper
+	BinTime       online.Float `json:"bin_t"`       // end of the latest bin closed
+	// EstimateTime is the end of the latest bin in the published estimates,
+	// and BinsWaiting the bins closed but not in them yet.
+	EstimateTime online.Float `json:"estimate_t"`
+	BinsWaiting  uint64       `json:"bins_waiting"`
 	// IdleSpikes are spikes received while no block ran (not mapped).
 	IdleSpikes uint64 `json:"idle_spikes"`
-	// StreamLag is StreamTime minus BinTime: how far the estimates trail
-	// the data received (at least the grace).
+	// StreamLag is StreamTime minus EstimateTime: how far, in seconds of
+	// stream, the published estimates trail the data received (at least the
+	// grace). It grows while the estimator catches up with a backlog.
 	StreamLag online.Float `json:"stream_lag_s"`
 	// Lag is the wall time from the arrival of the message that closed the
 	// first bin of the latest update to that update: how long closed bins
 	// wait before readers see them (at most about UpdateEvery).
 	Lag online.Float `json:"lag_s"`
-
-	closing bool
 }
 
-// Health returns a copy of the counters. Safe from any goroutine.
+// Health returns a copy of the counters, for the display. Safe from any
+// goroutine.
 func (c *Loop) Health() any { return c.Counters() }
 
-// Counters is Health with its concrete type.
+// Counters returns a copy of the counters. Safe from any goroutine.
 func (c *Loop) Counters() Health {
+	h := Health{Prefix: c.opt.Prefix, Shard: c.opt.Shard.String()}
 	c.mu.Lock()
-	h := c.health
-	h.Rejected = maps.Clone(c.health.Rejected)
+	h.Rejected = maps.Clone(c.rejected)
+	b := c.block
 	c.mu.Unlock()
-	h.Prefix = c.opt.Prefix
-	h.Processed = c.processed.Load()
-	if n := c.queueDrop.Load(); n > 0 {
-		h.Rejected[ReasonQueueFull] += n
-	}
+	h.Block, h.BlockState, h.RejectedBlock, h.BlockError = b.block, b.state, b.rejected, b.err
+	n := &c.n
+	h.Processed = n.processed.Load()
+	h.Blocks = n.blocks.Load()
+	h.SpikesTotal = n.spikes.Load()
+	h.IdleSpikes = n.idleSpikes.Load()
+	h.OtherShardSpikes = n.otherShard.Load()
+	h.Resets = n.resets.Load()
+	h.LateSpikes, h.HeldFrames = n.late.Load(), n.held.Load()
+	h.Units = int(n.units.Load())
+	h.StreamTime = online.Float(n.streamTime())
+	h.BinTime = online.Float(math.Float64frombits(n.binT.Load()))
+
+	e := c.estimates.Load()
+	h.Updates = e.Updates
+	h.UpdateSeconds = e.UpdateSeconds
+	h.LastUpdate = stamp(e.LastUpdate)
+	h.EstimateTime = online.Float(e.EstimateT)
+	h.Bins = e.Bins - e.Refused
+	h.BinsWaiting = n.bins.Load() - e.Bins
+	h.Lag = online.Float(e.Wait)
+	// How far the published estimates trail the data received.
+	h.StreamLag = online.Float(n.streamTime() - e.EstimateT)
+
+	f := &c.fits
+	f.mu.Lock()
+	h.EvidenceRunning, h.EvidenceLambda, h.EvidenceBlock, h.EvidenceError = f.running, online.Float(f.lambda), f.block, f.errorMsg
+	f.mu.Unlock()
 	return h
 }
 
-// Health returns a copy of the counters. Safe from any goroutine.
+// Health returns a copy of the counters, for the display. Safe from any
+// goroutine.
 func (r *Rig) Health() any { return r.Counters() }
 
-// Counters is Health with its concrete type.
+// Counters returns a copy of the counters, with the NATS side's. Safe from
+// any goroutine.
 func (r *Rig) Counters() Health {
 	h := r.core.Counters()
 	h.Messages = make(map[string]uint64, nSubjects)
@@ -139,12 +173,16 @@ func (r *Rig) Counters() Health {
 		h.Messages[subjectNames[i]] = r.received[i].Load()
 	}
 	h.Queue = len(r.in)
-	if r.sub != nil && !h.closing {
+	h.SlowConsumer = int(r.slowDrops.Load())
+	if r.sub != nil {
 		if n, err := r.sub.Dropped(); err == nil {
 			h.SlowConsumer = n
 		}
 	}
 	h.SlowConsumerEvents = r.slowEvents.Load()
+	if r.dur == nil {
+		h.Warning = CoreWarning
+	}
 	if d := r.dur; d != nil {
 		h.Durable = true
 		h.Stream, h.Consumer = r.opt.Stream, r.opt.Consumer

@@ -133,9 +133,9 @@ func (p *publisher) settle(r *Rig) Health {
 		p.t.Fatal(err)
 	}
 	deadline := time.Now().Add(20 * time.Second)
-	for r.core.processed.Load() < p.sent {
+	for r.core.n.processed.Load() < p.sent {
 		if time.Now().After(deadline) {
-			p.t.Fatalf("rig %s handled %d of %d messages", r.Prefix(), r.core.processed.Load(), p.sent)
+			p.t.Fatalf("rig %s handled %d of %d messages", r.Prefix(), r.core.n.processed.Load(), p.sent)
 		}
 		time.Sleep(2 * time.Millisecond)
 	}

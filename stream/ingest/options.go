@@ -16,7 +16,7 @@ const (
 	DefaultMaxUnits    = 4096    // distinct unit ids per block
 	DefaultMaxPayload  = 1 << 20 // bytes of one message
 	DefaultUpdateEvery = time.Second
-	DefaultQueue       = 4096 // messages waiting for the owner goroutine
+	DefaultQueue       = 4096 // messages waiting for the intake goroutine
 
 	// DefaultPendingMsgs and DefaultPendingBytes are the nats.go pending
 	// limits of the core-NATS subscription. The reference workload (16×16
@@ -24,18 +24,15 @@ const (
 	// 20 ms spike batches) is 70 messages/s and about 110 kB/s (measured by
 	// TestReferenceRates). The limits hold 10 s of it at 10× real time (a
 	// replay), or 100 s of the live stream: 7000 messages and 11 MB,
-	// rounded up. The callback itself never stalls longer than
-	// enqueueWait; the owner goroutine's stalls (one estimate update) are
-	// absorbed by the queue (Options.Queue).
+	// rounded up. The intake only decodes and bins (estimate updates run
+	// on their own goroutine), so it drains the queue far faster than any
+	// rig sends; the limits absorb stalls of the whole process.
 	DefaultPendingMsgs  = 8192
 	DefaultPendingBytes = 16 << 20
 
 	// logEvery is the shortest interval between two log lines for one
 	// rejection reason.
 	logEvery = 5 * time.Second
-	// enqueueWait is how long a core-NATS callback waits for room in the
-	// queue before it drops the message and counts it.
-	enqueueWait = 200 * time.Millisecond
 	// tickEvery is how often the owner goroutine looks at the clock when
 	// no message arrives.
 	tickEvery = 50 * time.Millisecond
@@ -67,7 +64,8 @@ type Options struct {
 	// MaxPayload rejects larger messages (DefaultMaxPayload bytes).
 	MaxPayload int
 	// Queue is the capacity of the queue between the NATS callbacks and the
-	// owner goroutine (DefaultQueue messages).
+	// intake goroutine (DefaultQueue messages); a full queue makes the
+	// callbacks wait, never drop.
 	Queue int
 	// UpdateEvery is the time between two estimate updates
 	// (DefaultUpdateEvery), on the clock Now (a Rig) or on the arrival
@@ -96,7 +94,8 @@ type Options struct {
 	// pending limits (DefaultPendingMsgs, DefaultPendingBytes).
 	PendingMsgs, PendingBytes int
 
-	// OnUpdate, when set, is called on the feeding goroutine with the block
+	// OnUpdate, when set, is called on the estimator's goroutine (the
+	// feeding goroutine of a NewLoop) with the block
 	// id, every snapshot published and the clock it was made at. It must
 	// not call back into the ingest.
 	OnUpdate func(block string, s *online.Snapshot, at time.Time)

@@ -40,9 +40,10 @@ type message struct {
 	gen uint64 // consumer generation it was delivered by
 }
 
-// Rig is the live ingest of one rig: a Loop fed from NATS by one owner
-// goroutine, which owns one online.Mapper per running block and publishes
-// an immutable Snapshot once per UpdateEvery.
+// Rig is the live ingest of one rig: NATS callbacks hand messages to the
+// intake goroutine (decode and bin: the message path), which queues the
+// closed bins for the estimator goroutine (the running block's
+// online.Mapper, an immutable Snapshot at most once per UpdateEvery).
 type Rig struct {
 	opt  Options
 	core *Loop
@@ -60,15 +61,15 @@ type Rig struct {
 	// Counted by the NATS callbacks.
 	received [nSubjects]atomic.Uint64
 
-	slowDrops  int           // owner: nats.go drops already seen
-	slowEvents atomic.Uint64 // slow-consumer episodes seen by the owner
+	slowDrops  atomic.Int64  // nats.go drops seen by the intake
+	slowEvents atomic.Uint64 // slow-consumer episodes seen by the intake
 }
 
-// Start subscribes to the rig's subjects on nc and starts the owner
-// goroutine. With Options.Durable it first creates or reuses the rig's
-// JetStream stream and (re)creates its durable consumer at the start of the
-// current block (see the package doc). The ingest runs until ctx is done or
-// Close is called; nc stays the caller's.
+// Start subscribes to the rig's subjects on nc and starts the intake and
+// estimator goroutines. With Options.Durable it first creates or reuses
+// the rig's JetStream stream and (re)creates its durable consumer at the
+// start of the current block (see the package doc). The ingest runs until
+// ctx is done or Close is called; nc stays the caller's.
 func Start(ctx context.Context, nc *nats.Conn, opt Options) (*Rig, error) {
 	if nc == nil {
 		return nil, errors.New("ingest: nil NATS connection")
@@ -78,7 +79,7 @@ func Start(ctx context.Context, nc *nats.Conn, opt Options) (*Rig, error) {
 	}
 	r := &Rig{
 		opt:  opt,
-		core: newLoop(opt),
+		core: newLoop(opt, true),
 		nc:   nc,
 		in:   make(chan message, opt.Queue),
 		cmds: make(chan func()),
@@ -87,11 +88,13 @@ func Start(ctx context.Context, nc *nats.Conn, opt Options) (*Rig, error) {
 	if opt.Durable {
 		if err := r.startDurable(); err != nil {
 			r.stop()
+			r.core.Close()
 			return nil, err
 		}
 	} else {
 		if err := r.subscribe(); err != nil {
 			r.stop()
+			r.core.Close()
 			return nil, err
 		}
 	}
@@ -101,7 +104,6 @@ func Start(ctx context.Context, nc *nats.Conn, opt Options) (*Rig, error) {
 }
 
 func (r *Rig) subscribe() error {
-	r.core.health.Warning = CoreWarning
 	// One subscription covers the four subjects, so that the messages of
 	// one publisher reach the owner goroutine in the order it sent them (a
 	// block start before the block's frames); nats.go delivers each
@@ -125,23 +127,16 @@ func (r *Rig) subscribe() error {
 // Prefix is the rig's subject prefix.
 func (r *Rig) Prefix() string { return r.opt.Prefix }
 
-// deliver runs on the subscription's NATS delivery goroutine: it never
-// waits longer than enqueueWait, and counts what it drops.
+// deliver runs on the subscription's NATS delivery goroutine. It waits
+// for room in the queue rather than drop: the intake only decodes and bins,
+// so the queue drains fast, and while it is full nats.go holds the messages
+// up to its pending limits (beyond them it drops and counts: the slow
+// consumer, reported in Health).
 func (r *Rig) deliver(msg *nats.Msg) {
 	subj := subjectOf(msg.Subject[len(r.opt.Prefix)+1:])
 	r.received[subj].Add(1)
-	m := message{subj: subj, data: msg.Data, at: r.opt.Now()}
 	select {
-	case r.in <- m:
-		return
-	default:
-	}
-	t := time.NewTimer(enqueueWait)
-	defer t.Stop()
-	select {
-	case r.in <- m:
-	case <-t.C:
-		r.core.queueDrop.Add(1)
+	case r.in <- message{subj: subj, data: msg.Data, at: r.opt.Now()}:
 	case <-r.ctx.Done():
 	}
 }
@@ -162,13 +157,11 @@ func subjectOf(name string) int {
 }
 
 // Close unsubscribes (or stops consuming and acknowledges what was
-// processed), stops the owner goroutine and waits for it. It may be called
-// more than once and from any goroutine.
+// processed), stops the intake and estimator goroutines and the evidence
+// fits, and waits for them. It may be called more than once and from any
+// goroutine.
 func (r *Rig) Close() error {
 	r.once.Do(func() {
-		r.core.mu.Lock()
-		r.core.health.closing = true
-		r.core.mu.Unlock()
 		r.unsubscribe()
 		if r.dur != nil {
 			r.do(r.dur.ack)
@@ -176,10 +169,12 @@ func (r *Rig) Close() error {
 		}
 		r.stop()
 		r.wg.Wait()
+		r.core.Close()
 	})
 	return nil
 }
 
+// run is the intake goroutine.
 func (r *Rig) run() {
 	defer r.wg.Done()
 	tick := time.NewTicker(tickEvery)
@@ -195,18 +190,17 @@ func (r *Rig) run() {
 		case <-tick.C:
 			r.onTick()
 		}
-		r.core.st.maybeUpdate(r.opt.Now())
 	}
 }
 
-// take handles one queued message on the owner goroutine.
+// take handles one queued message on the intake goroutine.
 func (r *Rig) take(m message) {
 	if r.dur == nil {
-		_ = r.core.st.handle(m)
+		_ = r.core.in.handle(m)
 		return
 	}
 	if r.dur.admit(m) {
-		_ = r.core.st.handle(m)
+		_ = r.core.in.handle(m)
 		r.dur.processed(m)
 	}
 }
@@ -214,19 +208,21 @@ func (r *Rig) take(m message) {
 // onTick acknowledges processed JetStream messages, retries a pending
 // resynchronisation and notices slow-consumer episodes.
 func (r *Rig) onTick() {
+	r.core.in.tick(r.opt.Now())
 	if r.dur != nil {
 		r.dur.ack()
 		r.dur.retry()
 		return
 	}
-	if n, err := r.sub.Dropped(); err == nil && n > r.slowDrops {
+	n, err := r.sub.Dropped()
+	if old := int(r.slowDrops.Load()); err == nil && n > old {
 		r.slowEvents.Add(1)
-		r.core.logRejection("slow-consumer", uint64(n), fmt.Errorf("ingest: nats.go dropped %d messages: the subscription's pending limits (%d messages, %d bytes) were exceeded", n-r.slowDrops, r.opt.PendingMsgs, r.opt.PendingBytes))
-		r.slowDrops = n
+		r.core.logRejection("slow-consumer", uint64(n), fmt.Errorf("ingest: nats.go dropped %d messages: the subscription's pending limits (%d messages, %d bytes) were exceeded", n-old, r.opt.PendingMsgs, r.opt.PendingBytes))
+		r.slowDrops.Store(int64(n))
 	}
 }
 
-// do runs f on the owner goroutine and waits for it; false once closed.
+// do runs f on the intake goroutine and waits for it; false once closed.
 func (r *Rig) do(f func()) bool {
 	done := make(chan struct{})
 	select {
@@ -246,9 +242,9 @@ func (r *Rig) do(f func()) bool {
 // first update). Safe from any goroutine.
 func (r *Rig) Snapshot() *online.Snapshot { return r.core.Snapshot() }
 
-// Sync processes every message already queued, runs an update now and
-// returns its snapshot. Tests and the end of a replay use it to avoid
-// waiting for the next UpdateEvery.
+// Sync processes every message already queued, waits for the estimator to
+// fold in every bin closed so far, and returns the snapshot of that update.
+// Tests and the end of a replay use it.
 func (r *Rig) Sync() *online.Snapshot {
 	r.do(func() {
 		for {
@@ -260,58 +256,51 @@ func (r *Rig) Sync() *online.Snapshot {
 			}
 			break
 		}
-		r.core.st.update(r.opt.Now())
 		if r.dur != nil {
 			r.dur.ack()
 		}
 	})
+	r.core.sync(r.opt.Now())
 	return r.Snapshot()
+}
+
+// WaitProcessed waits until the intake has handled n messages or ctx is
+// done, and reports whether it got there.
+func (r *Rig) WaitProcessed(ctx context.Context, n uint64) bool {
+	t := time.NewTicker(tickEvery / 5)
+	defer t.Stop()
+	for r.core.n.processed.Load() < n {
+		select {
+		case <-ctx.Done():
+			return false
+		case <-t.C:
+		}
+	}
+	return true
 }
 
 // Reset forgets the estimates of the running block (the electrode moved);
 // units stay registered and the stream goes on.
-func (r *Rig) Reset() { r.do(r.core.Reset) }
+func (r *Rig) Reset() { r.do(func() { r.core.in.reset(r.core.in.clock) }) }
 
 // FlagSTC asks for (or stops) spike-triggered covariance on one unit of the
-// running block.
+// running block and the blocks after it.
 func (r *Rig) FlagSTC(id string, on bool) error {
-	var err error
-	if !r.do(func() { err = r.core.FlagSTC(id, on) }) {
+	if !r.do(func() { r.core.in.flagSTC(id, on, r.core.in.clock) }) {
 		return errors.New("ingest: closed")
 	}
-	return err
+	return nil
 }
 
 // SetCriterion changes the target reliability and the block fraction, for
-// the running block and the blocks after it.
+// the running block and the blocks after it. A criterion that fails
+// online.Criterion.Check is refused with its error and changes nothing.
 func (r *Rig) SetCriterion(target, fraction float64) error {
-	if !(target > 0 && target < 1) || !(fraction > 0 && fraction <= 1) {
-		return fmt.Errorf("ingest: criterion target %v, fraction %v out of range", target, fraction)
-	}
 	var err error
-	if !r.do(func() { err = r.core.SetCriterion(target, fraction) }) {
+	if !r.do(func() {
+		err = r.core.in.setCriterion(online.Criterion{Target: target, Fraction: fraction}, r.core.in.clock)
+	}) {
 		return errors.New("ingest: closed")
 	}
 	return err
-}
-
-// reject counts one rejected message and logs it, at most once per reason
-// per logEvery. Called on the feeding goroutine.
-func (c *Loop) reject(reason string, err error) {
-	c.mu.Lock()
-	c.health.Rejected[reason]++
-	n := c.health.Rejected[reason]
-	c.mu.Unlock()
-	c.logRejection(reason, n, err)
-}
-
-// logRejection logs one line for reason unless one was logged less than
-// logEvery ago. Called on the feeding goroutine.
-func (c *Loop) logRejection(reason string, count uint64, err error) {
-	now := c.opt.Now()
-	if last, seen := c.logged[reason]; seen && now.Sub(last) < logEvery {
-		return
-	}
-	c.logged[reason] = now
-	c.opt.Logger.Warn("ingest: message rejected", "prefix", c.opt.Prefix, "reason", reason, "count", count, "err", err)
 }

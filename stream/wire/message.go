@@ -253,8 +253,10 @@ func (c *Control) check() *Error {
 		return &Error{Reason: ReasonUnexpectedField, Detail: "unit: not used by " + c.Command}
 	}
 	if crit {
-		if !(c.Target > 0 && c.Target <= 1) || !(c.Fraction > 0 && c.Fraction <= 1) {
-			return &Error{Reason: ReasonBadCriterion, Detail: "target and fraction must be in (0, 1]"}
+		// The range is the estimator's rule (online.Criterion.Check), applied
+		// where the criterion is used; here only the fields' presence.
+		if c.Target == 0 || c.Fraction == 0 {
+			return &Error{Reason: ReasonMissingField, Detail: "target and fraction are both needed"}
 		}
 	} else if c.Target != 0 || c.Fraction != 0 {
 		return &Error{Reason: ReasonUnexpectedField, Detail: "target, fraction: not used by " + c.Command}
