@@ -445,6 +445,7 @@ const (
 	phaseVSum
 	phaseP
 	phaseHat
+	phaseMirror
 )
 
 // ridgeJob hands the tile work of one phase to fastmat.Each.
@@ -496,6 +497,8 @@ func (j *ridgeJob) Do(i, w int) {
 		buf.MulAdd(mi, mj, bp, -1, r.u[i0*bp:], bp, r.ut[j0:], ld, r.p[i0*ld+j0:], ld)
 	case phaseHat:
 		r.hatRows(i)
+	case phaseMirror:
+		r.mirrorRows(i)
 	}
 }
 

@@ -30,16 +30,48 @@ type ridgeGolden struct {
 		Stimulus    string  `json:"stimulus"`
 		Lambda      float64 `json:"lambda"`
 		Forget      float64 `json:"forget"`
-		Checkpoints []struct {
-			N         int         `json:"n"`
-			Coef      [][]float64 `json:"coef"`
-			Intercept []float64   `json:"intercept"`
-			Objective []float64   `json:"objective"`
-			PostDiag  []float64   `json:"post_diag"`
-			T1        float64     `json:"t1"`
-			T2        float64     `json:"t2"`
-		} `json:"checkpoints"`
+		Checkpoints []ridgeCheckpoint `json:"checkpoints"`
 	} `json:"cases"`
+}
+
+// ridgeCheckpoint is the reference state after the first N rows.
+type ridgeCheckpoint struct {
+	N         int         `json:"n"`
+	Coef      [][]float64 `json:"coef"`
+	Intercept []float64   `json:"intercept"`
+	Objective []float64   `json:"objective"`
+	PostDiag  []float64   `json:"post_diag"`
+	T1        float64     `json:"t1"`
+	T2        float64     `json:"t2"`
+}
+
+// checkRidgeCheckpoint compares r with a golden checkpoint: weights,
+// intercept and objective of every column, the posterior diagonal and the
+// hat traces, each to 1e-8 relative.
+func checkRidgeCheckpoint(t *testing.T, r *Ridge, cp *ridgeCheckpoint) {
+	t.Helper()
+	w := make([]float64, r.Dim())
+	post := make([]float64, r.Dim())
+	for u := range r.Cols() {
+		b := r.WeightsTo(w, u)
+		if e := ridgeRelVec(w, cp.Coef[u]); e > 1e-8 {
+			t.Errorf("n=%d unit %d: weights off by %.3g relative (w[0]=%v, sklearn %v)", cp.N, u, e, w[0], cp.Coef[u][0])
+		}
+		if e := ridgeRel(b, cp.Intercept[u]); e > 1e-8 {
+			t.Errorf("n=%d unit %d: intercept %v, sklearn %v", cp.N, u, b, cp.Intercept[u])
+		}
+		if e := ridgeRel(r.Objective(u), cp.Objective[u]); e > 1e-8 {
+			t.Errorf("n=%d unit %d: objective %v, numpy %v", cp.N, u, r.Objective(u), cp.Objective[u])
+		}
+	}
+	r.PosteriorDiagTo(post)
+	if e := ridgeRelVec(post, cp.PostDiag); e > 1e-8 {
+		t.Errorf("n=%d: posterior diagonal off by %.3g relative (first %v, numpy %v)", cp.N, e, post[0], cp.PostDiag[0])
+	}
+	t1, t2 := r.HatTraces()
+	if ridgeRel(t1, cp.T1) > 1e-8 || ridgeRel(t2, cp.T2) > 1e-8 {
+		t.Errorf("n=%d: hat traces %v, %v; numpy eigenvalues give %v, %v", cp.N, t1, t2, cp.T1, cp.T2)
+	}
 }
 
 func loadRidgeGolden(t *testing.T) *ridgeGolden {
@@ -108,8 +140,6 @@ func TestRidgeAgainstScikitLearn(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			w := make([]float64, dim)
-			post := make([]float64, dim)
 			row, blk := 0, ci // start the pattern at a different place per case
 			for _, cp := range c.Checkpoints {
 				for row < cp.N {
@@ -124,26 +154,7 @@ func TestRidgeAgainstScikitLearn(t *testing.T) {
 				if r.Rows() != int64(cp.N) || r.Pending() != 0 {
 					t.Fatalf("rows %d pending %d, want %d and 0", r.Rows(), r.Pending(), cp.N)
 				}
-				for u := range cols {
-					b := r.WeightsTo(w, u)
-					if e := ridgeRelVec(w, cp.Coef[u]); e > 1e-8 {
-						t.Errorf("n=%d unit %d: weights off by %.3g relative (w[0]=%v, sklearn %v)", cp.N, u, e, w[0], cp.Coef[u][0])
-					}
-					if e := ridgeRel(b, cp.Intercept[u]); e > 1e-8 {
-						t.Errorf("n=%d unit %d: intercept %v, sklearn %v", cp.N, u, b, cp.Intercept[u])
-					}
-					if e := ridgeRel(r.Objective(u), cp.Objective[u]); e > 1e-8 {
-						t.Errorf("n=%d unit %d: objective %v, numpy %v", cp.N, u, r.Objective(u), cp.Objective[u])
-					}
-				}
-				r.PosteriorDiagTo(post)
-				if e := ridgeRelVec(post, cp.PostDiag); e > 1e-8 {
-					t.Errorf("n=%d: posterior diagonal off by %.3g relative (first %v, numpy %v)", cp.N, e, post[0], cp.PostDiag[0])
-				}
-				t1, t2 := r.HatTraces()
-				if ridgeRel(t1, cp.T1) > 1e-8 || ridgeRel(t2, cp.T2) > 1e-8 {
-					t.Errorf("n=%d: hat traces %v, %v; numpy eigenvalues give %v, %v", cp.N, t1, t2, cp.T1, cp.T2)
-				}
+				checkRidgeCheckpoint(t, r, &cp)
 			}
 			if r.Err() != nil || r.Rejected() != 0 {
 				t.Errorf("unexpected error %v, %d rejected", r.Err(), r.Rejected())

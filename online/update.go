@@ -36,7 +36,7 @@ func (m *Mapper) newScratch() *scratch {
 // Update folds the bins added since the last call into the estimates,
 // recomputes every unit's statistics and returns a new Snapshot.
 func (m *Mapper) Update() *Snapshot {
-	m.ridge.Flush()
+	m.fold()
 	m.updates++
 	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim)}
 	if m.ridge.Rows() > 0 {
@@ -68,6 +68,7 @@ func (m *Mapper) Update() *Snapshot {
 	snap := m.emptySnapshot()
 	snap.T = Float(float64(m.used) * m.cfg.FramePeriod)
 	snap.Bins = m.used
+	snap.Solve = m.solve
 	snap.Units = make([]UnitSummary, n)
 	for u, d := range details {
 		d.History = append(m.history[u], HistoryPoint{T: snap.T, Spikes: d.Spikes, Reliability: d.Reliability})
