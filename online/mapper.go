@@ -14,9 +14,6 @@ type Config struct {
 	// Lambda is the ridge penalty; 0 picks the default: DefaultLambda times
 	// the pixel variance (or times 1 when that is unknown).
 	Lambda float64
-	// Forget is the RLS forgetting factor in (0, 1]; 1 (the default) keeps the
-	// exact ridge solution over all bins.
-	Forget float64
 	// White marks a stimulus with independent pixels and frames (the noise
 	// types); it enables the STA test against the white-noise null.
 	White bool
@@ -72,7 +69,6 @@ func (c Config) withDefaults() (Config, error) {
 		}
 		c.Lambda = DefaultLambda * v
 	}
-	def(&c.Forget, 1)
 	def(&c.Target, 0.9)
 	def(&c.Fraction, 0.8)
 	def(&c.Aperture, 0.9)
@@ -95,8 +91,6 @@ func (c Config) withDefaults() (Config, error) {
 		return c, fmt.Errorf("%w: frame period %g s", ErrConfig, c.FramePeriod)
 	case !(c.Lambda > 0) || math.IsInf(c.Lambda, 0):
 		return c, fmt.Errorf("%w: lambda %g", ErrConfig, c.Lambda)
-	case !(c.Forget > 0 && c.Forget <= 1):
-		return c, fmt.Errorf("%w: forgetting factor %g (need 0 < ρ ≤ 1)", ErrConfig, c.Forget)
 	case !(c.Target > 0 && c.Target < 1):
 		return c, fmt.Errorf("%w: target reliability %g (need 0…1)", ErrConfig, c.Target)
 	case !(c.Fraction > 0 && c.Fraction <= 1):
@@ -197,7 +191,7 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	}
 	m.x = make([]float64, m.dim)
 	m.capUnits = 8
-	m.ridge, err = NewRidge(m.dim, m.columns(m.capUnits), cfg.Lambda, cfg.Forget)
+	m.ridge, err = NewRidge(m.dim, m.columns(m.capUnits), cfg.Lambda)
 	if err != nil {
 		return nil, err
 	}

@@ -72,19 +72,16 @@ func ridgeStateOff(a, b *Ridge) (p, w, obj float64) {
 func TestRidgeAnchorAgainstScikitLearn(t *testing.T) {
 	g := loadRidgeGolden(t)
 	for _, c := range g.Cases {
-		if c.Forget != 1 {
-			continue
-		}
 		t.Run(fmt.Sprintf("%s/lambda=%g", c.Stimulus, c.Lambda), func(t *testing.T) {
 			st := g.Stimuli[c.Stimulus]
 			X := ridgeLagRows(st.Frames, g.Lags)
 			Y := st.Y
 			dim, cols := len(X[0]), len(Y[0])
-			r, err := NewRidge(dim, cols, c.Lambda, 1)
+			r, err := NewRidge(dim, cols, c.Lambda)
 			if err != nil {
 				t.Fatal(err)
 			}
-			pure, _ := NewRidge(dim, cols, c.Lambda, 1)
+			pure, _ := NewRidge(dim, cols, c.Lambda)
 			row := 0
 			for i, cp := range c.Checkpoints {
 				for ; row < cp.N; row++ {

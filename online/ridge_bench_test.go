@@ -27,7 +27,7 @@ func BenchmarkRidgeFlush(b *testing.B) {
 		for _, cols := range []int{129, 769, 1537} {
 			b.Run(fmt.Sprintf("D=%d/cols=%d", d, cols), func(b *testing.B) {
 				rng := rand.New(rand.NewPCG(uint64(d), uint64(cols)))
-				r, err := NewRidge(d, cols, 100, 1)
+				r, err := NewRidge(d, cols, 100)
 				if err != nil {
 					b.Fatal(err)
 				}
@@ -91,7 +91,7 @@ func BenchmarkRidgeAnchor(b *testing.B) {
 	for i := range yy {
 		yy[i] = 1e6
 	}
-	r, err := NewRidge(d, cols, 100, 1)
+	r, err := NewRidge(d, cols, 100)
 	if err != nil {
 		b.Fatal(err)
 	}
