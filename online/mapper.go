@@ -162,6 +162,11 @@ type Mapper struct {
 	stcTurn    int
 	updates    int64
 
+	common  ridgeCommon // what every unit reads in an Update
+	scratch []*scratch  // per worker of the per-unit statistics
+	refit   []bool      // per unit: refit its features in this Update
+	fitTurn int         // the next unit whose turn to be refitted it is
+
 	history [][]HistoryPoint
 	popPeak int // median peak lag of the significant units at the last update
 	trends  []*Trend

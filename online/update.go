@@ -5,10 +5,12 @@ import (
 	"runtime"
 	"slices"
 	"sync"
+	"sync/atomic"
 )
 
-// shared holds what every unit's statistics read during one Update.
-type shared struct {
+// ridgeCommon holds the ridge quantities that every unit's statistics read
+// during one Update.
+type ridgeCommon struct {
 	wh     []float64 // ridge weights of the half indicator
 	pdiag  []float64 // diagonal of the weights block of P
 	t1, t2 float64   // hat-matrix traces
@@ -38,7 +40,13 @@ func (m *Mapper) newScratch() *scratch {
 func (m *Mapper) Update() *Snapshot {
 	m.fold()
 	m.updates++
-	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim)}
+	sh := &m.common
+	if len(sh.wh) != m.dim {
+		sh.wh, sh.pdiag = make([]float64, m.dim), make([]float64, m.dim)
+	}
+	clear(sh.wh)
+	clear(sh.pdiag)
+	sh.t1, sh.t2 = 0, 0
 	if m.ridge.Rows() > 0 {
 		if !m.cfg.White {
 			m.ridge.WeightsTo(sh.wh, 0)
@@ -49,19 +57,28 @@ func (m *Mapper) Update() *Snapshot {
 	m.sta.CacheMeans()
 	n := len(m.ids)
 	details := make([]*UnitDetail, n)
-	workers := min(runtime.GOMAXPROCS(0), n)
-	var wg sync.WaitGroup
-	for w := range workers {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			s := m.newScratch()
-			for u := w; u < n; u += workers {
-				details[u] = m.unitDetail(u, &sh, s)
-			}
-		}()
+	m.planRefits(n)
+	// The per-unit work on every core, units handed out one at a time; the
+	// STC refresh of one unit alongside.
+	workers := max(1, min(runtime.GOMAXPROCS(0), n))
+	for len(m.scratch) < workers {
+		m.scratch = append(m.scratch, m.newScratch())
 	}
+	var wg sync.WaitGroup
+	var next atomic.Int64
+	for w := range workers {
+		wg.Go(func() {
+			s := m.scratch[w]
+			for u := int(next.Add(1) - 1); u < n; u = int(next.Add(1) - 1) {
+				details[u] = m.unitDetail(u, sh, s)
+			}
+		})
+	}
+	refreshed := m.refreshSTC()
 	wg.Wait()
+	if refreshed != nil {
+		refreshed()
+	}
 	m.updateSTC(details)
 	m.popPeak = medianPeak(details, m.popPeak)
 
@@ -83,7 +100,7 @@ func (m *Mapper) Update() *Snapshot {
 
 // unitDetail computes every statistic of unit u. It reads the shared state
 // only, so units run in parallel.
-func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
+func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	cfg := &m.cfg
 	d := &UnitDetail{
 		Shape:       [3]int{cfg.Lags, cfg.Height, cfg.Width},
@@ -160,9 +177,9 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	d.Reliability = Float(R)
 
 	fit := &m.fits[u]
-	fitNow := significant && (!fit.ok || (m.updates+int64(u))%fitEvery == 0)
+	fitNow := significant && m.refit[u]
 	s.features.MomentsOnly = !fitNow
-	s.features.SkipSeparable = !fitNow && significant && fit.ok
+	s.features.KeepShape = !fitNow && significant && fit.ok
 	s.features.Warm = nil
 	if fit.ok {
 		s.features.Warm = &Features{CentreX: fit.cx, CentreY: fit.cy, SigmaX: fit.sx, SigmaY: fit.sy, Angle: fit.angle}
@@ -173,7 +190,7 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 		fit.save(&d.Features)
 	case significant && fit.ok:
 		fit.restore(&d.Features)
-	default:
+	case !significant:
 		fit.ok = false
 	}
 	d.PeakLag = d.Features.PeakLag
@@ -226,10 +243,32 @@ func (m *Mapper) reliabilityWindow(w []float64, significant bool) (lo, hi int) {
 	return first * m.pixels, (first + n) * m.pixels
 }
 
-// fitEvery staggers the Gaussian fits and the space–time SVDs, the
-// costliest per-unit steps: each significant unit is refitted every
-// fitEvery updates, units taking turns, and keeps its last fit in between.
-const fitEvery = 4
+// fitsPerCycle spreads the Gaussian fits and the space–time decompositions,
+// the costliest per-unit steps, over updates: each update refits the
+// significant units among the next ⌈units/fitCycle⌉ (at least fitMin) in
+// turn, so every unit is refitted every fitCycle updates or more often, and
+// the cost per update stays bounded whatever the number of units. In
+// between a unit keeps its last fit (a newly significant unit shows its
+// moments until its turn). The turn depends on the update count only, so
+// replays give the same features.
+const (
+	fitCycle = 8
+	fitMin   = 8
+)
+
+// planRefits marks the units whose turn to be refitted it is.
+func (m *Mapper) planRefits(n int) {
+	m.refit = slices.Grow(m.refit[:0], n)[:n]
+	clear(m.refit)
+	if n == 0 {
+		return
+	}
+	k := min(n, max(fitMin, (n+fitCycle-1)/fitCycle))
+	for i := range k {
+		m.refit[(m.fitTurn+i)%n] = true
+	}
+	m.fitTurn = (m.fitTurn + k) % n
+}
 
 // shapeFit is a unit's last Gaussian fit and separable approximation,
 // shown until the next refit. Spatial and Temporal are shared with earlier
@@ -293,9 +332,8 @@ const stcEvery = 2
 const stcMinSamples = 2
 
 // updateSTC starts STC for flagged units and for units with no linear field
-// (within the cap), refreshes one unit's result in turn, and attaches the
-// latest results to the details. STC needs a white stimulus, whose prior
-// covariance c²I is known.
+// (within the cap) and attaches the latest results to the details. STC needs
+// a white stimulus, whose prior covariance c²I is known.
 func (m *Mapper) updateSTC(details []*UnitDetail) {
 	if !m.cfg.White {
 		return
@@ -313,29 +351,46 @@ func (m *Mapper) updateSTC(details []*UnitDetail) {
 			}
 		}
 	}
-	if len(m.stc) == 0 {
-		return
-	}
-	if m.updates%stcEvery == 0 {
-		units := make([]int, 0, len(m.stc))
-		for u := range m.stc {
-			units = append(units, u)
-		}
-		slices.Sort(units)
-		u := units[m.stcTurn%len(units)]
-		m.stcTurn++
-		// The null bound needs many more samples than dimensions.
-		if acc := m.stc[u]; acc.Effective() >= stcMinSamples*float64(acc.Dim()) {
-			if res, err := acc.Result(m.cfg.PixelVariance, math.NaN(), math.NaN()); err == nil {
-				res.Spikes = int64(acc.Spikes())
-				m.stcResults[u] = &res
-			}
-		}
-	}
 	for u, d := range details {
 		if r := m.stcResults[u]; r != nil && m.stc[u] != nil {
 			d.STC = r
 			d.HasSTC = true
+		}
+	}
+}
+
+// refreshSTC recomputes, every stcEvery updates, one STC unit's result in
+// turn, in the background while the per-unit statistics run; the function
+// it returns waits for it and stores the result (nil when there is nothing
+// to refresh).
+func (m *Mapper) refreshSTC() func() {
+	if !m.cfg.White || len(m.stc) == 0 || m.updates%stcEvery != 0 {
+		return nil
+	}
+	units := make([]int, 0, len(m.stc))
+	for u := range m.stc {
+		units = append(units, u)
+	}
+	slices.Sort(units)
+	u := units[m.stcTurn%len(units)]
+	m.stcTurn++
+	acc := m.stc[u]
+	// The null bound needs many more samples than dimensions.
+	if acc.Effective() < stcMinSamples*float64(acc.Dim()) {
+		return nil
+	}
+	var res STCResult
+	var err error
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		res, err = acc.Result(m.cfg.PixelVariance, math.NaN(), math.NaN())
+	}()
+	return func() {
+		<-done
+		if err == nil {
+			res.Spikes = int64(acc.Spikes())
+			m.stcResults[u] = &res
 		}
 	}
 }
