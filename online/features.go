@@ -38,8 +38,8 @@ type FeatureFinder struct {
 	sv1     float64   // σ₁ of the last separable call
 	pos     []float64 // the map times its polarity
 	sorted  []float64
-	all     []int32   // every pixel index
-	win     []int32   // the pixels the fit uses: all, or winBuf
+	all     []int32 // every pixel index
+	win     []int32 // the pixels the fit uses: all, or winBuf
 	winBuf  []int32
 	jac     []float64 // pixels × gaussParams
 	resid   []float64
