@@ -252,8 +252,8 @@ func (m *Mapper) reliabilityWindow(w []float64, significant bool) (lo, hi int) {
 // moments until its turn). The turn depends on the update count only, so
 // replays give the same features.
 const (
-	fitCycle = 8
-	fitMin   = 8
+	fitCycle = 16
+	fitMin   = 4
 )
 
 // planRefits marks the units whose turn to be refitted it is.
