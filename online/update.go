@@ -128,8 +128,8 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		clear(s.wa)
 	}
 	d.Intercept = Float(intercept)
-	m.sta.STATo(s.sta, u)
 	m.sta.CrossTo(s.cross, u)
+	staFromCross(s.sta, s.cross, m.sta.Spikes(u))
 
 	// Noise variance and per-coefficient z from the ridge posterior σ²P.
 	dof := float64(m.used) - 1 - sh.t1
@@ -176,22 +176,22 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	_, R := SplitHalf(s.ha[lo:hi], s.hb[lo:hi])
 	d.Reliability = Float(R)
 
+	// The shape (centre, extent, separable profiles) is recomputed on the
+	// unit's turn or when its significance changed, else kept.
 	fit := &m.fits[u]
-	fitNow := significant && m.refit[u]
-	s.features.MomentsOnly = !fitNow
-	s.features.KeepShape = !fitNow && significant && fit.ok
+	keep := fit.ok && !m.refit[u] && fit.significant == significant
+	gauss := significant && m.refit[u]
+	s.features.MomentsOnly = !gauss
+	s.features.KeepShape = keep
 	s.features.Warm = nil
-	if fit.ok {
+	if fit.ok && fit.gauss {
 		s.features.Warm = &Features{CentreX: fit.cx, CentreY: fit.cy, SigmaX: fit.sx, SigmaY: fit.sy, Angle: fit.angle}
 	}
 	_ = s.features.FeaturesTo(&d.Features, s.w)
-	switch {
-	case fitNow:
-		fit.save(&d.Features)
-	case significant && fit.ok:
+	if keep {
 		fit.restore(&d.Features)
-	case !significant:
-		fit.ok = false
+	} else {
+		fit.save(&d.Features, significant, gauss)
 	}
 	d.PeakLag = d.Features.PeakLag
 	d.LatencyMS = d.Features.LatencyMS
@@ -243,14 +243,15 @@ func (m *Mapper) reliabilityWindow(w []float64, significant bool) (lo, hi int) {
 	return first * m.pixels, (first + n) * m.pixels
 }
 
-// fitsPerCycle spreads the Gaussian fits and the space–time decompositions,
-// the costliest per-unit steps, over updates: each update refits the
-// significant units among the next ⌈units/fitCycle⌉ (at least fitMin) in
-// turn, so every unit is refitted every fitCycle updates or more often, and
-// the cost per update stays bounded whatever the number of units. In
-// between a unit keeps its last fit (a newly significant unit shows its
-// moments until its turn). The turn depends on the update count only, so
-// replays give the same features.
+// fitCycle and fitMin spread the shape features (the Gaussian fit, the
+// moments, the space–time decomposition), the costliest per-unit steps,
+// over updates: each update recomputes them for the next ⌈units/fitCycle⌉
+// units (at least fitMin) in turn, with the Gaussian fit for the
+// significant ones, so every unit is refreshed every fitCycle updates or
+// more often and the cost per update stays bounded whatever the number of
+// units. In between a unit keeps its last shape unless its significance
+// changed (a newly significant unit shows its moments until its turn). The
+// turn depends on the update count only, so replays give the same features.
 const (
 	fitCycle = 16
 	fitMin   = 4
@@ -270,18 +271,20 @@ func (m *Mapper) planRefits(n int) {
 	m.fitTurn = (m.fitTurn + k) % n
 }
 
-// shapeFit is a unit's last Gaussian fit and separable approximation,
-// shown until the next refit. Spatial and Temporal are shared with earlier
+// shapeFit is a unit's last shape (Gaussian fit or moments) and separable
+// approximation, shown until the next refresh; significant tells whether
+// the unit was significant then, gauss whether the shape is a fit (which a
+// later fit starts from). Spatial and Temporal are shared with earlier
 // snapshots, which never write them.
 type shapeFit struct {
-	ok                                        bool
+	ok, significant, gauss                    bool
 	cx, cy, sx, sy, angle, cxd, cyd, sxd, syd Float
 	separability                              Float
 	spatial, temporal                         Floats
 }
 
-func (f *shapeFit) save(ft *Features) {
-	*f = shapeFit{true, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
+func (f *shapeFit) save(ft *Features, significant, gauss bool) {
+	*f = shapeFit{true, significant, gauss, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
 		ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg,
 		ft.Separability, ft.Spatial, ft.Temporal}
 }
@@ -309,6 +312,19 @@ func (m *Mapper) halvesTo(a, b, w, wa, wh []float64, u int) {
 	for i := range a {
 		a[i] = wa[i] - meanA*wh[i]
 		b[i] = w[i] - wa[i] + meanB*wh[i]
+	}
+}
+
+// staFromCross writes the STA, cross/spikes (zeros without spikes), as
+// STA.STATo does, from the cross-correlation already at hand.
+func staFromCross(sta, cross []float64, spikes float64) {
+	if spikes == 0 {
+		clear(sta)
+		return
+	}
+	inv := 1 / spikes
+	for i, v := range cross {
+		sta[i] = v * inv
 	}
 }
 
