@@ -153,3 +153,33 @@ func BenchmarkAddBin(b *testing.B) {
 	}
 	b.ReportMetric(float64(b.N)/busy.Seconds(), "x-realtime")
 }
+
+// BenchmarkReferenceCatchUp is a backlog at the reference workload: 300 s of
+// bins arrive with no Update between them (a restart mid-block, a full-speed
+// replay), then one Update folds them all. The cost model picks the re-solve
+// from the sufficient statistics; s-update is that Update's time, s-fold the
+// re-solve's part of it, and MB-live the heap after it.
+func BenchmarkReferenceCatchUp(b *testing.B) {
+	const seconds = 300
+	for range b.N {
+		b.StopTimer()
+		bw := newBenchWorkload(b, 16, 16, 12, 384, 10)
+		for range seconds {
+			bw.second()
+		}
+		b.StartTimer()
+		start := time.Now()
+		snap := bw.m.Update()
+		b.ReportMetric(time.Since(start).Seconds(), "s-update")
+		b.ReportMetric(snap.Solve.Seconds, "s-fold")
+		if snap.Solve.Route != RouteResolve || bw.m.Folded() != bw.m.Bins() {
+			b.Fatalf("route %s, %d of %d bins folded", snap.Solve.Route, bw.m.Folded(), bw.m.Bins())
+		}
+		var ms runtime.MemStats
+		runtime.GC()
+		runtime.ReadMemStats(&ms)
+		b.ReportMetric(float64(ms.HeapAlloc)/(1<<20), "MB-live")
+		b.ReportMetric(float64(ms.Sys)/(1<<20), "MB-sys")
+		runtime.KeepAlive(bw)
+	}
+}
