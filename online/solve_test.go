@@ -7,8 +7,14 @@ import (
 	"testing"
 )
 
-// routeBins makes bins of a stimulus with three units of LNP-like counts;
-// unit 2 first spikes half-way and unit 0 sometimes comes twice in one bin.
+// routeUnits units have LNP-like counts in routeBins' bins; units from
+// routeLate on are registered half-way, beyond the mapper's first column
+// capacity (8 units).
+const routeUnits, routeLate = 12, 3
+
+// routeBins makes bins of a stimulus with routeUnits units of LNP-like
+// counts; unit 2 and the late units first spike half-way and unit 0
+// sometimes comes twice in one bin.
 func routeBins(n, pixels int, frame func(rng *rand.Rand, dst []float64)) (frames [][]float64, counts [][]Count) {
 	rng := rand.New(rand.NewPCG(21, 22))
 	for k := range n {
@@ -16,8 +22,8 @@ func routeBins(n, pixels int, frame func(rng *rand.Rand, dst []float64)) (frames
 		frame(rng, f)
 		frames = append(frames, f)
 		var c []Count
-		for u := range 3 {
-			if u == 2 && k < n/2 {
+		for u := range routeUnits {
+			if u >= 2 && k < n/2 {
 				continue
 			}
 			drive := 0.3 + 0.2*f[u%pixels] - 0.1*f[(u+5)%pixels]
@@ -36,7 +42,8 @@ func routeBins(n, pixels int, frame func(rng *rand.Rand, dst []float64)) (frames
 // TestMapperRoutesAgree feeds the same bins to mappers that fold them by the
 // block update only, by re-solves only, by the cost model with an overflowing
 // log (a re-solve, then block updates on top), with updates at irregular
-// times: every unit's ridge weights, intercept and z must agree to 1e-8
+// times, units registered half-way beyond the first column capacity: every
+// unit's ridge weights, intercept and z must agree to 1e-8
 // relative, and with an independent batch solve (BatchRidgeTo: centred Gram,
 // one Cholesky), for a white and a correlated stimulus. (Both routes being
 // exact, they differ by round-off only: common practice, no source.)
@@ -72,12 +79,17 @@ func TestMapperRoutesAgree(t *testing.T) {
 					t.Fatal(err)
 				}
 				m.forceRoute = r.route
-				for u := range 3 {
+				for u := range routeLate {
 					m.Unit("u" + strconv.Itoa(u))
 				}
 				seen := map[string]bool{}
 				next, turn := r.every[0], 0
 				for k := range frames {
+					if k == len(frames)/2 {
+						for u := routeLate; u < routeUnits; u++ {
+							m.Unit("u" + strconv.Itoa(u))
+						}
+					}
 					if r.limit > 0 {
 						m.log.limit = r.limit
 					}
@@ -102,15 +114,15 @@ func TestMapperRoutesAgree(t *testing.T) {
 				}
 				snaps = append(snaps, s)
 				if r.name == "woodbury" {
-					wts := make([][]float64, 3)
+					wts := make([][]float64, routeUnits)
 					for u := range wts {
 						wts[u] = make([]float64, w*h*lags)
 					}
-					icpt := make([]float64, 3)
+					icpt := make([]float64, routeUnits)
 					if err := m.BatchRidgeTo(wts, icpt, m.cfg.Lambda); err != nil {
 						t.Fatal(err)
 					}
-					for u := range 3 {
+					for u := range routeUnits {
 						d, _ := s.Detail("u" + strconv.Itoa(u))
 						if e := ridgeRelVec(floats(d.Ridge), wts[u]); e > 1e-8 {
 							t.Errorf("unit %d: recursion and batch solve differ by %.3g", u, e)
@@ -119,7 +131,7 @@ func TestMapperRoutesAgree(t *testing.T) {
 				}
 			}
 			for i, s := range snaps[1:] {
-				for u := range 3 {
+				for u := range routeUnits {
 					id := "u" + strconv.Itoa(u)
 					a, _ := snaps[0].Detail(id)
 					b, _ := s.Detail(id)
