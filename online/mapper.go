@@ -148,7 +148,6 @@ type Mapper struct {
 	hist       [][]float64 // scratch for the log's history frames
 	folded     int64       // used bins folded into the ridge
 	solve      SolveInfo   // how the latest Update folded
-	solveErr   error       // the first failed re-solve
 	forceRoute string      // tests: always this route ("" = the cost model)
 
 	sta      *STA

@@ -19,6 +19,9 @@ type SolveInfo struct {
 	Route   string  `json:"route"`   // RouteNone, RouteWoodbury or RouteResolve
 	Bins    int64   `json:"bins"`    // bins folded by this update
 	Seconds float64 `json:"seconds"` // wall time of the fold
+	// Error is set when the re-solve failed (statistics that are not finite
+	// or a Gram that lost definiteness): the ridge then starts again empty.
+	Error string `json:"error,omitempty"`
 }
 
 // The cost model that picks the route. Rates were measured on the reference
@@ -70,13 +73,13 @@ const flushRows = 240
 func (m *Mapper) fold() {
 	start := time.Now()
 	pending := m.used - m.folded
-	route := RouteNone
+	route, msg := RouteNone, ""
 	switch {
 	case pending == 0:
 	case m.forceRoute == RouteResolve || (m.forceRoute == "" && m.resolveCheaper(int(pending))) || m.log.dropped:
 		route = RouteResolve
 		if err := m.resolve(); err != nil {
-			m.solveErr = err
+			msg = err.Error()
 		}
 	default:
 		route = RouteWoodbury
@@ -85,7 +88,7 @@ func (m *Mapper) fold() {
 	m.folded = m.used
 	m.log.limit = m.logLimit()
 	m.log.start(m.ringHistory())
-	m.solve = SolveInfo{Route: route, Bins: pending, Seconds: time.Since(start).Seconds()}
+	m.solve = SolveInfo{Route: route, Bins: pending, Seconds: time.Since(start).Seconds(), Error: msg}
 }
 
 func (m *Mapper) resolveCheaper(bins int) bool {
