@@ -254,6 +254,10 @@ func (m *Mapper) Bins() int64 { return m.used }
 // period is how far the estimates trail the stream.
 func (m *Mapper) Folded() int64 { return m.folded }
 
+// Trailing is how far the estimates trail the bins added, in seconds of
+// data: (Bins − Folded) × the frame period.
+func (m *Mapper) Trailing() float64 { return float64(m.used-m.folded) * m.cfg.FramePeriod }
+
 // growColumns makes room in the ridge for every registered unit (the ridge
 // holds no pending rows between updates).
 func (m *Mapper) growColumns() {

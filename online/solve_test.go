@@ -102,9 +102,12 @@ func TestMapperRoutesAgree(t *testing.T) {
 						next = r.every[turn%len(r.every)]
 					}
 				}
+				if want := float64(m.Bins()-m.Folded()) / 60; math.Abs(m.Trailing()-want) > 1e-9 || want == 0 {
+					t.Errorf("%s: trailing %v s with %d of %d bins folded", r.name, m.Trailing(), m.Folded(), m.Bins())
+				}
 				s := m.Update()
-				if s.Solve.Route == RouteNone && m.Folded() != m.Bins() {
-					t.Errorf("%s: %d of %d bins folded", r.name, m.Folded(), m.Bins())
+				if m.Folded() != m.Bins() || m.Trailing() != 0 || s.Solve.Bins == 0 {
+					t.Errorf("%s: %d of %d bins folded, %v s trailing, %d bins in the last fold", r.name, m.Folded(), m.Bins(), m.Trailing(), s.Solve.Bins)
 				}
 				if r.want != "" && (len(seen) > 2 || !seen[r.want]) {
 					t.Errorf("%s: routes %v", r.name, seen)
