@@ -130,6 +130,15 @@ func TestAddBinDoesNotAllocate(t *testing.T) {
 	if allocs != 0 {
 		t.Errorf("AddBin allocated %.1f times per bin, want 0", allocs)
 	}
+	// Past the bin log's limit the log is dropped (the next Update
+	// re-solves); adding bins still does not allocate.
+	m.log.limit = 10
+	if allocs := testing.AllocsPerRun(50, func() { m.AddBin(frame, counts) }); allocs != 0 || !m.log.dropped {
+		t.Errorf("with the log dropped (%v), AddBin allocated %.1f times per bin, want 0", m.log.dropped, allocs)
+	}
+	if s := m.Update(); s.Solve.Route != RouteResolve || m.Folded() != m.Bins() {
+		t.Errorf("after the log overflowed: route %q, %d of %d bins folded", s.Solve.Route, m.Folded(), m.Bins())
+	}
 }
 
 // BenchmarkAddBin is the message path alone at the reference workload
