@@ -4,13 +4,16 @@
 // # What it owns
 //
 // Mapper is the whole per-block estimator: feed it one bin at a time
-// (AddBin: the frame on screen and the spike counts per unit) and once a
-// second call Update, which returns an immutable Snapshot. Its parts are
-// usable on their own:
+// (AddBin: the frame on screen and the spike counts per unit; it only
+// updates sufficient statistics, cheaply) and once a second call Update,
+// which folds the new bins into the ridge by the cheaper exact route (the
+// block update, or a re-solve from the statistics after a backlog) and
+// returns an immutable Snapshot. Its parts are usable on their own:
 //
 //   - Ridge: the exact ridge solution with a free intercept for many
 //     response columns, kept by block recursive least squares with one
-//     inverse-covariance state shared by all columns (units);
+//     inverse-covariance state shared by all columns (units), or re-anchored
+//     from sufficient statistics (Anchor);
 //   - STA: spike-triggered averages, their split halves and the centred
 //     cross-correlations and spike-count autocovariances;
 //   - WhiteTest and PosteriorTest: significance against the white-noise null

@@ -14,9 +14,6 @@ type Config struct {
 	// Lambda is the ridge penalty; 0 picks the default: DefaultLambda times
 	// the pixel variance (or times 1 when that is unknown).
 	Lambda float64
-	// Forget is the RLS forgetting factor in (0, 1]; 1 (the default) keeps the
-	// exact ridge solution over all bins.
-	Forget float64
 	// White marks a stimulus with independent pixels and frames (the noise
 	// types); it enables the STA test against the white-noise null.
 	White bool
@@ -39,9 +36,6 @@ const stcMaxDim = 320
 // DefaultLambda is the default ridge penalty in units of the pixel variance:
 // small against the Gram matrix's diagonal after a few seconds of 60 Hz noise.
 const DefaultLambda = 100
-
-// maxPending bounds the ridge's row buffer between updates.
-const maxPending = 256
 
 // Count is the number of spikes of one unit (by index) in one bin.
 type Count struct {
@@ -75,7 +69,6 @@ func (c Config) withDefaults() (Config, error) {
 		}
 		c.Lambda = DefaultLambda * v
 	}
-	def(&c.Forget, 1)
 	def(&c.Target, 0.9)
 	def(&c.Fraction, 0.8)
 	def(&c.Aperture, 0.9)
@@ -98,8 +91,6 @@ func (c Config) withDefaults() (Config, error) {
 		return c, fmt.Errorf("%w: frame period %g s", ErrConfig, c.FramePeriod)
 	case !(c.Lambda > 0) || math.IsInf(c.Lambda, 0):
 		return c, fmt.Errorf("%w: lambda %g", ErrConfig, c.Lambda)
-	case !(c.Forget > 0 && c.Forget <= 1):
-		return c, fmt.Errorf("%w: forgetting factor %g (need 0 < ρ ≤ 1)", ErrConfig, c.Forget)
 	case !(c.Target > 0 && c.Target < 1):
 		return c, fmt.Errorf("%w: target reliability %g (need 0…1)", ErrConfig, c.Target)
 	case !(c.Fraction > 0 && c.Fraction <= 1):
@@ -148,6 +139,16 @@ type Mapper struct {
 	usedA   int64
 	spikes  []float64 // per unit, over used bins
 	spikesA []float64
+	yy, yyA []float64 // per unit, Σ y² over used bins and over half A's
+	binY    []float64 // per unit, the counts of the bin being added
+
+	// Folding into the ridge: the bins since the last fold are logged for
+	// the block update; the sufficient statistics carry all of them.
+	log        binLog
+	hist       [][]float64 // scratch for the log's history frames
+	folded     int64       // used bins folded into the ridge
+	solve      SolveInfo   // how the latest Update folded
+	forceRoute string      // tests: always this route ("" = the cost model)
 
 	sta      *STA
 	ridge    *Ridge
@@ -159,6 +160,11 @@ type Mapper struct {
 	stcLags    []int
 	stcTurn    int
 	updates    int64
+
+	common  ridgeCommon // what every unit reads in an Update
+	scratch []*scratch  // per worker of the per-unit statistics
+	refit   []bool      // per unit: refit its features in this Update
+	fitTurn int         // the next unit whose turn to be refitted it is
 
 	history [][]HistoryPoint
 	popPeak int // median peak lag of the significant units at the last update
@@ -189,7 +195,7 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	}
 	m.x = make([]float64, m.dim)
 	m.capUnits = 8
-	m.ridge, err = NewRidge(m.dim, m.columns(m.capUnits), cfg.Lambda, cfg.Forget)
+	m.ridge, err = NewRidge(m.dim, m.columns(m.capUnits), cfg.Lambda)
 	if err != nil {
 		return nil, err
 	}
@@ -201,6 +207,9 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	m.stc = map[int]*STC{}
 	m.stcResults = map[int]*STCResult{}
 	m.popPeak = m.defaultPeak()
+	m.log = binLog{pixels: m.pixels, lags: cfg.Lags}
+	m.log.limit = m.logLimit()
+	m.log.start(nil)
 	m.snap = m.emptySnapshot()
 	return m, nil
 }
@@ -221,6 +230,9 @@ func (m *Mapper) Unit(id string) int {
 	m.received = append(m.received, 0)
 	m.spikes = append(m.spikes, 0)
 	m.spikesA = append(m.spikesA, 0)
+	m.yy = append(m.yy, 0)
+	m.yyA = append(m.yyA, 0)
+	m.binY = append(m.binY, 0)
 	m.history = append(m.history, nil)
 	m.trends = append(m.trends, NewTrend(trendPoints))
 	m.fits = append(m.fits, shapeFit{})
@@ -237,8 +249,17 @@ func (m *Mapper) Units() int { return len(m.ids) }
 // Bins is the number of bins added with full lag history.
 func (m *Mapper) Bins() int64 { return m.used }
 
-// growColumns makes room in the ridge for every registered unit. Buffered
-// rows are folded in first, since they were written with the old width.
+// Folded is the number of those bins folded into the ridge estimates: all of
+// them right after Update, fewer in between. (Bins − Folded) × the frame
+// period is how far the estimates trail the stream.
+func (m *Mapper) Folded() int64 { return m.folded }
+
+// Trailing is how far the estimates trail the bins added, in seconds of
+// data: (Bins − Folded) × the frame period.
+func (m *Mapper) Trailing() float64 { return float64(m.used-m.folded) * m.cfg.FramePeriod }
+
+// growColumns makes room in the ridge for every registered unit (the ridge
+// holds no pending rows between updates).
 func (m *Mapper) growColumns() {
 	if len(m.ids) <= m.capUnits {
 		return
@@ -246,7 +267,6 @@ func (m *Mapper) growColumns() {
 	for m.capUnits < len(m.ids) {
 		m.capUnits *= 2
 	}
-	m.ridge.Flush()
 	m.ridge.SetCols(m.columns(m.capUnits))
 	m.yrow = make([]float64, m.columns(m.capUnits))
 }
@@ -259,8 +279,10 @@ var ErrBin = errors.New("online: bin refused")
 // (row-major, width×height); counts are the spikes per unit index in the bin.
 // Unit indices must come from Unit. A frame of the wrong size or with a
 // non-finite value, an unknown unit or a negative or non-finite count is
-// refused whole with an error wrapping ErrBin. It does not allocate in
-// steady state.
+// refused whole with an error wrapping ErrBin. It does only cheap work: the
+// sufficient statistics (STA sums, lag cross-products, per-unit Σy and Σy²,
+// STC samples) and a compact log of the bin for the next Update's block
+// update. It does not allocate in steady state.
 func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	if len(frame) != m.pixels {
 		return fmt.Errorf("%w: frame of %d pixels, want %d", ErrBin, len(frame), m.pixels)
@@ -281,6 +303,7 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	m.head = (m.head + 1) % len(m.ring)
 	copy(m.ring[m.head], frame)
 	_ = m.gram.AddFrame(frame) // cannot fail: the frame was checked above
+	m.log.addFrame(frame)
 	m.added++
 	if m.added < int64(m.cfg.Lags) {
 		return nil // not yet a full history: the bin is not used
@@ -297,33 +320,28 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	}
 	m.growColumns()
 	m.sta.AddBin(m.x, halfA, counts)
-	halves := !m.cfg.White
-	if halfA && halves {
-		m.yrow[0] = 1
-	}
+	m.log.addBin(halfA, counts)
 	for _, c := range counts {
 		m.spikes[c.Unit] += c.N
-		m.yrow[m.colY(c.Unit)] += c.N
+		m.binY[c.Unit] += c.N
 		if halfA {
 			m.spikesA[c.Unit] += c.N
-			if halves {
-				m.yrow[m.colA(c.Unit)] += c.N
-			}
 		}
 		if s := m.stc[c.Unit]; s != nil {
 			s.AddBin(m.x, c.N)
 		}
 	}
-	m.ridge.AddRow(m.x, m.yrow)
-	if m.ridge.Pending() >= maxPending {
-		m.ridge.Flush() // bounded buffer when Update is called rarely
-	}
-	m.yrow[0] = 0
+	// Σy² of the bin's total per unit (a unit may come more than once).
 	for _, c := range counts {
-		m.yrow[m.colY(c.Unit)] = 0
-		if halves {
-			m.yrow[m.colA(c.Unit)] = 0
+		y := m.binY[c.Unit]
+		if y == 0 {
+			continue
 		}
+		m.yy[c.Unit] += y * y
+		if halfA {
+			m.yyA[c.Unit] += y * y
+		}
+		m.binY[c.Unit] = 0
 	}
 	return nil
 }
@@ -334,11 +352,15 @@ func (m *Mapper) Reset() {
 	m.added, m.used, m.usedA = 0, 0, 0
 	for i := range m.ids {
 		m.received[i], m.spikes[i], m.spikesA[i] = 0, 0, 0
+		m.yy[i], m.yyA[i] = 0, 0
 		m.history[i] = nil
 		m.trends[i].Reset()
 		m.fits[i] = shapeFit{}
 	}
 	m.ridge.Reset()
+	m.folded, m.solve = 0, SolveInfo{}
+	m.log.limit = m.logLimit()
+	m.log.start(nil)
 	m.sta.Reset()
 	m.gram.Reset()
 	m.stc = map[int]*STC{}

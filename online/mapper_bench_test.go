@@ -59,11 +59,15 @@ func (bw *benchWorkload) run(b *testing.B) {
 	b.ReportAllocs()
 	b.ResetTimer()
 	start := time.Now()
+	var fold float64
 	for range b.N {
 		bw.second()
-		bw.m.Update()
+		fold += bw.m.Update().Solve.Seconds
 	}
 	reportRealtime(b, start, bw)
+	// fold-share is the part of the time spent folding the bins into the
+	// ridge (the block update); the rest is AddBin and the per-unit work.
+	b.ReportMetric(fold/time.Since(start).Seconds(), "fold-share")
 }
 
 func reportRealtime(b *testing.B, start time.Time, bw *benchWorkload) {
@@ -125,5 +129,66 @@ func TestAddBinDoesNotAllocate(t *testing.T) {
 	})
 	if allocs != 0 {
 		t.Errorf("AddBin allocated %.1f times per bin, want 0", allocs)
+	}
+	// Past the bin log's limit the log is dropped (the next Update
+	// re-solves); adding bins still does not allocate.
+	m.log.limit = 10
+	if allocs := testing.AllocsPerRun(50, func() { m.AddBin(frame, counts) }); allocs != 0 || !m.log.dropped {
+		t.Errorf("with the log dropped (%v), AddBin allocated %.1f times per bin, want 0", m.log.dropped, allocs)
+	}
+	if s := m.Update(); s.Solve.Route != RouteResolve || m.Folded() != m.Bins() {
+		t.Errorf("after the log overflowed: route %q, %d of %d bins folded", s.Solve.Route, m.Folded(), m.Bins())
+	}
+}
+
+// BenchmarkAddBin is the message path alone at the reference workload
+// (16×16 binary noise at 60 Hz, 12 lags, 384 units at 10 spikes/s): one
+// second of bins per iteration, the bin log emptied between seconds as
+// Update would (outside the timing). Run it on one core, as the target
+// (≥ 50× real time) is stated: -cpu 1.
+func BenchmarkAddBin(b *testing.B) {
+	bw := newBenchWorkload(b, 16, 16, 12, 384, 10)
+	m := bw.m
+	b.ReportAllocs()
+	b.ResetTimer()
+	var busy time.Duration
+	for range b.N {
+		start := time.Now()
+		bw.second()
+		busy += time.Since(start)
+		b.StopTimer()
+		m.log.start(m.ringHistory())
+		b.StartTimer()
+	}
+	b.ReportMetric(float64(b.N)/busy.Seconds(), "x-realtime")
+}
+
+// BenchmarkReferenceCatchUp is a backlog at the reference workload: 300 s of
+// bins arrive with no Update between them (a restart mid-block, a full-speed
+// replay), then one Update folds them all. The cost model picks the re-solve
+// from the sufficient statistics; s-update is that Update's time, s-fold the
+// re-solve's part of it, and MB-live the heap after it.
+func BenchmarkReferenceCatchUp(b *testing.B) {
+	const seconds = 300
+	for range b.N {
+		b.StopTimer()
+		bw := newBenchWorkload(b, 16, 16, 12, 384, 10)
+		for range seconds {
+			bw.second()
+		}
+		b.StartTimer()
+		start := time.Now()
+		snap := bw.m.Update()
+		b.ReportMetric(time.Since(start).Seconds(), "s-update")
+		b.ReportMetric(snap.Solve.Seconds, "s-fold")
+		if snap.Solve.Route != RouteResolve || bw.m.Folded() != bw.m.Bins() {
+			b.Fatalf("route %s, %d of %d bins folded", snap.Solve.Route, bw.m.Folded(), bw.m.Bins())
+		}
+		var ms runtime.MemStats
+		runtime.GC()
+		runtime.ReadMemStats(&ms)
+		b.ReportMetric(float64(ms.HeapAlloc)/(1<<20), "MB-live")
+		b.ReportMetric(float64(ms.Sys)/(1<<20), "MB-sys")
+		runtime.KeepAlive(bw)
 	}
 }

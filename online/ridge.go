@@ -27,11 +27,8 @@ import (
 // HatTraces remove it exactly when they read (Sherman–Morrison):
 // (M)⁻¹ = P_ε + ε P_ε e eᵀ P_ε / (1 − ε eᵀ P_ε e), e the intercept axis.
 //
-// With a forgetting factor ρ < 1 all earlier information, the penalty
-// included, is multiplied by ρ before each row, so after n rows the state is
-// the weighted ridge solution of Σ_k ρ^(n−1−k) (y_k − b − x_k·w)² +
-// ρⁿλ‖w‖². The result does not depend on how rows are grouped into Flushes.
-// The penalty fades, so the window 1/(1−ρ) should be long compared with Dim.
+// The result does not depend on how rows are grouped into Flushes, and
+// Anchor sets the state from the rows' sufficient statistics instead.
 //
 // P is kept in the lower triangle only (tiles of tileSize, diagonal tiles
 // in full); the products run on all cores through fastmat. AddRow and Flush
@@ -43,8 +40,7 @@ type Ridge struct {
 	n, ld     int // augmented size dim+1, and the padded stride (multiple of 12)
 	nt        int // tiles per side of P
 	lambda    float64
-	forget    float64
-	lam, eps  float64 // current penalty and intercept prior precision (both fade with ρ)
+	lam, eps  float64 // the penalty and the intercept's prior precision ε
 	rows      int64
 
 	p   []float64 // ld×ld; lower-triangle tiles current, diagonal tiles in full
@@ -84,9 +80,8 @@ const maxRidgeDim = 16000
 const interceptPrior = 1.0
 
 // NewRidge returns an empty ridge for rows of dim stimulus values and cols
-// response columns, with penalty lambda > 0 and forgetting factor forget in
-// (0, 1] (1 keeps the exact ridge solution of all rows).
-func NewRidge(dim, cols int, lambda, forget float64) (*Ridge, error) {
+// response columns, with penalty lambda > 0.
+func NewRidge(dim, cols int, lambda float64) (*Ridge, error) {
 	switch {
 	case dim <= 0:
 		return nil, fmt.Errorf("online: ridge dimension %d, want > 0", dim)
@@ -94,8 +89,6 @@ func NewRidge(dim, cols int, lambda, forget float64) (*Ridge, error) {
 		return nil, fmt.Errorf("online: ridge columns %d, want >= 0", cols)
 	case !(lambda > 0) || math.IsInf(lambda, 1):
 		return nil, fmt.Errorf("online: ridge penalty %v, want finite and > 0", lambda)
-	case !(forget > 0 && forget <= 1):
-		return nil, fmt.Errorf("online: forgetting factor %v, want in (0, 1]", forget)
 	}
 	if dim > maxRidgeDim {
 		return nil, fmt.Errorf("online: ridge dimension %d, at most %d (P alone would need %d MB)", dim, maxRidgeDim, 8*(dim+1)*(dim+1)>>20)
@@ -105,8 +98,8 @@ func NewRidge(dim, cols int, lambda, forget float64) (*Ridge, error) {
 	r := &Ridge{
 		dim: dim, cols: cols, n: n, ld: ld,
 		nt:     (ld + tileSize - 1) / tileSize,
-		lambda: lambda, forget: forget,
-		p: make([]float64, ld*ld),
+		lambda: lambda,
+		p:      make([]float64, ld*ld),
 	}
 	r.job.r = r
 	r.bufs = make([]fastmat.Buf, fastmat.Workers())
@@ -126,9 +119,6 @@ func (r *Ridge) Cols() int { return r.cols }
 
 // Lambda is the penalty given to NewRidge.
 func (r *Ridge) Lambda() float64 { return r.lambda }
-
-// Forget is the forgetting factor given to NewRidge.
-func (r *Ridge) Forget() float64 { return r.forget }
 
 // Rows is the number of rows folded in so far.
 func (r *Ridge) Rows() int64 { return r.rows }
@@ -273,9 +263,6 @@ func (r *Ridge) Flush() {
 	bp := (B + 11) / 12 * 12 // padding rows are zero in A and Y: they change nothing
 	ld, cols := r.ld, r.cols
 
-	if r.forget < 1 {
-		r.applyForget(B)
-	}
 	// At = Aᵀ (ld×bp); Yt = Yᵀ goes straight into et (cols×bp).
 	at, et := r.at[:ld*bp], r.et[:cols*bp]
 	for k := range bp {
@@ -360,41 +347,6 @@ func (r *Ridge) dropPending() {
 	r.pending = 0
 }
 
-// applyForget weights the B pending rows and the old state for forgetting
-// per row: row j of the block gets weight ρ^(B−1−j), everything before the
-// block ρ^B (P is divided by it).
-func (r *Ridge) applyForget(B int) {
-	rho := r.forget
-	g := math.Pow(rho, float64(B))
-	inv := 1 / g
-	for t := range r.nt {
-		lo, sz := r.tile(t)
-		for i := lo; i < lo+sz; i++ {
-			row := r.p[i*r.ld : i*r.ld+lo+sz]
-			for j := range row {
-				row[j] *= inv
-			}
-		}
-	}
-	for c := range r.cols {
-		r.obj[c] *= g
-	}
-	r.lam *= g
-	r.eps *= g
-	for j := range B {
-		w := math.Sqrt(math.Pow(rho, float64(B-1-j)))
-		if w == 1 {
-			continue
-		}
-		for i, x := range r.a[j*r.ld : j*r.ld+r.n] {
-			r.a[j*r.ld+i] = x * w
-		}
-		for i, x := range r.y[j*r.colCap : j*r.colCap+r.cols] {
-			r.y[j*r.colCap+i] = x * w
-		}
-	}
-}
-
 // ridgeCholInv factors the symmetric positive definite n×n matrix s (lower
 // triangle read) as L Lᵀ and writes L⁻¹ to linv and L⁻ᵀ to linvT (both
 // row-major, zeros outside the triangle). It reports false if s is not
@@ -445,6 +397,7 @@ const (
 	phaseVSum
 	phaseP
 	phaseHat
+	phaseMirror
 )
 
 // ridgeJob hands the tile work of one phase to fastmat.Each.
@@ -496,6 +449,8 @@ func (j *ridgeJob) Do(i, w int) {
 		buf.MulAdd(mi, mj, bp, -1, r.u[i0*bp:], bp, r.ut[j0:], ld, r.p[i0*ld+j0:], ld)
 	case phaseHat:
 		r.hatRows(i)
+	case phaseMirror:
+		r.mirrorRows(i)
 	}
 }
 
@@ -545,8 +500,7 @@ func (r *Ridge) WeightsTo(dst []float64, col int) (intercept float64) {
 }
 
 // Objective is the minimised penalised sum of squares of column col,
-// RSS + λ‖w‖² (weighted and with the faded penalty when forgetting); NaN for
-// a column out of range.
+// RSS + λ‖w‖²; NaN for a column out of range.
 func (r *Ridge) Objective(col int) float64 {
 	if col < 0 || col >= r.cols {
 		r.fail(fmt.Errorf("online: ridge Objective column %d of %d", col, r.cols))
@@ -577,7 +531,7 @@ func (r *Ridge) PosteriorDiagTo(dst []float64) {
 // HatTraces returns tr(H) and tr(H²) of the ridge hat matrix of the weights,
 // Σ h_i and Σ h_i² with h_i = g_i/(g_i+λ) over the eigenvalues g_i of the
 // centred Gram matrix, from Q = the weights block of (Λ + ÃᵀÃ)⁻¹:
-// t1 = D − λ tr Q, t2 = D − 2λ tr Q + λ²‖Q‖_F² (λ faded when forgetting).
+// t1 = D − λ tr Q, t2 = D − 2λ tr Q + λ²‖Q‖_F².
 // It costs one pass over P on all cores.
 func (r *Ridge) HatTraces() (t1, t2 float64) {
 	if r.rows == 0 {

@@ -4,6 +4,8 @@ import (
 	"fmt"
 	"math/rand/v2"
 	"testing"
+
+	"gonum.org/v1/gonum/mat"
 )
 
 // ridgeBytes is the memory held by a Ridge's slices.
@@ -25,7 +27,7 @@ func BenchmarkRidgeFlush(b *testing.B) {
 		for _, cols := range []int{129, 769, 1537} {
 			b.Run(fmt.Sprintf("D=%d/cols=%d", d, cols), func(b *testing.B) {
 				rng := rand.New(rand.NewPCG(uint64(d), uint64(cols)))
-				r, err := NewRidge(d, cols, 100, 1)
+				r, err := NewRidge(d, cols, 100)
 				if err != nil {
 					b.Fatal(err)
 				}
@@ -59,4 +61,48 @@ func BenchmarkRidgeFlush(b *testing.B) {
 			})
 		}
 	}
+}
+
+// BenchmarkRidgeAnchor times the re-solve route at the reference dimension
+// (16×16 pixels × 12 lags, D = 3072, 769 columns) from the statistics of
+// 4000 bins of binary noise: the Gram from a LagGram, gonum's Cholesky and
+// inverse, the weights. GFLOPs-lapack is D³ over the time, the rate behind
+// the cost model's lapackFlops (the factorisation and the inverse dominate).
+func BenchmarkRidgeAnchor(b *testing.B) {
+	const pixels, lags, cols, bins = 256, 12, 769, 4000
+	d := pixels * lags
+	rng := rand.New(rand.NewPCG(5, 6))
+	g, err := NewLagGram(pixels, lags)
+	if err != nil {
+		b.Fatal(err)
+	}
+	frame := make([]float64, pixels)
+	for range bins + lags - 1 {
+		binaryFrame(rng, frame)
+		_ = g.AddFrame(frame)
+	}
+	sumX := make([]float64, d)
+	g.lagSumsTo(sumX)
+	cross := make([]float64, cols*(d+1))
+	for i := range cross {
+		cross[i] = rng.NormFloat64()
+	}
+	yy := make([]float64, cols)
+	for i := range yy {
+		yy[i] = 1e6
+	}
+	r, err := NewRidge(d, cols, 100)
+	if err != nil {
+		b.Fatal(err)
+	}
+	gram := func(dst *mat.SymDense) error { return g.GramTo(dst, false) }
+	b.ResetTimer()
+	for range b.N {
+		if err := r.Anchor(bins, gram, sumX, cross, yy); err != nil {
+			b.Fatal(err)
+		}
+	}
+	per := b.Elapsed().Seconds() / float64(b.N)
+	b.ReportMetric(float64(d)*float64(d)*float64(d)/per/1e9, "GFLOPs-lapack")
+	b.ReportMetric(per, "s/solve")
 }

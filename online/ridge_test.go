@@ -27,19 +27,50 @@ type ridgeGolden struct {
 		Y      [][]float64 `json:"y"`
 	} `json:"stimuli"`
 	Cases []struct {
-		Stimulus    string  `json:"stimulus"`
-		Lambda      float64 `json:"lambda"`
-		Forget      float64 `json:"forget"`
-		Checkpoints []struct {
-			N         int         `json:"n"`
-			Coef      [][]float64 `json:"coef"`
-			Intercept []float64   `json:"intercept"`
-			Objective []float64   `json:"objective"`
-			PostDiag  []float64   `json:"post_diag"`
-			T1        float64     `json:"t1"`
-			T2        float64     `json:"t2"`
-		} `json:"checkpoints"`
+		Stimulus    string            `json:"stimulus"`
+		Lambda      float64           `json:"lambda"`
+		Checkpoints []ridgeCheckpoint `json:"checkpoints"`
 	} `json:"cases"`
+}
+
+// ridgeCheckpoint is the reference state after the first N rows.
+type ridgeCheckpoint struct {
+	N         int         `json:"n"`
+	Coef      [][]float64 `json:"coef"`
+	Intercept []float64   `json:"intercept"`
+	Objective []float64   `json:"objective"`
+	PostDiag  []float64   `json:"post_diag"`
+	T1        float64     `json:"t1"`
+	T2        float64     `json:"t2"`
+}
+
+// checkRidgeCheckpoint compares r with a golden checkpoint: weights,
+// intercept and objective of every column, the posterior diagonal and the
+// hat traces, each to 1e-8 relative.
+func checkRidgeCheckpoint(t *testing.T, r *Ridge, cp *ridgeCheckpoint) {
+	t.Helper()
+	w := make([]float64, r.Dim())
+	post := make([]float64, r.Dim())
+	for u := range r.Cols() {
+		b := r.WeightsTo(w, u)
+		if e := ridgeRelVec(w, cp.Coef[u]); e > 1e-8 {
+			t.Errorf("n=%d unit %d: weights off by %.3g relative (w[0]=%v, sklearn %v)", cp.N, u, e, w[0], cp.Coef[u][0])
+		}
+		if e := ridgeRel(b, cp.Intercept[u]); e > 1e-8 {
+			t.Errorf("n=%d unit %d: intercept %v, sklearn %v", cp.N, u, b, cp.Intercept[u])
+		}
+		if e := ridgeRel(r.Objective(u), cp.Objective[u]); e > 1e-8 {
+			t.Errorf("n=%d unit %d: objective %v, numpy %v", cp.N, u, r.Objective(u), cp.Objective[u])
+		}
+	}
+	r.PosteriorDiagTo(post)
+	if e := ridgeRelVec(post, cp.PostDiag); e > 1e-8 {
+		t.Errorf("n=%d: posterior diagonal off by %.3g relative (first %v, numpy %v)", cp.N, e, post[0], cp.PostDiag[0])
+	}
+	t1, t2 := r.HatTraces()
+	if ridgeRel(t1, cp.T1) > 1e-8 || ridgeRel(t2, cp.T2) > 1e-8 {
+		t.Errorf("n=%d: hat traces %v, %v; numpy eigenvalues give %v, %v", cp.N, t1, t2, cp.T1, cp.T2)
+	}
 }
 
 func loadRidgeGolden(t *testing.T) *ridgeGolden {
@@ -91,25 +122,22 @@ var ridgeBlocks = []int{1, 7, 1, 13, 60, 2, 29, 1, 200, 37}
 
 // TestRidgeAgainstScikitLearn streams the golden rows in blocks of varying
 // size and compares every checkpoint with scikit-learn's Ridge
-// (fit_intercept=True; sample_weight ρ^(n−1−k) and alpha ρⁿλ for the
-// forgetting case): weights and intercept to 1e-8 relative, the objective
+// (fit_intercept=True): weights and intercept to 1e-8 relative, the objective
 // with numpy's RSS + λ‖w‖², the posterior diagonal with numpy.linalg.inv of
 // Λ + ÃᵀÃ, and the hat traces with numpy.linalg.eigvalsh of the centred Gram
 // matrix.
 func TestRidgeAgainstScikitLearn(t *testing.T) {
 	g := loadRidgeGolden(t)
 	for ci, c := range g.Cases {
-		t.Run(fmt.Sprintf("%s/lambda=%g/forget=%g", c.Stimulus, c.Lambda, c.Forget), func(t *testing.T) {
+		t.Run(fmt.Sprintf("%s/lambda=%g", c.Stimulus, c.Lambda), func(t *testing.T) {
 			st := g.Stimuli[c.Stimulus]
 			X := ridgeLagRows(st.Frames, g.Lags)
 			Y := st.Y
 			dim, cols := len(X[0]), len(Y[0])
-			r, err := NewRidge(dim, cols, c.Lambda, c.Forget)
+			r, err := NewRidge(dim, cols, c.Lambda)
 			if err != nil {
 				t.Fatal(err)
 			}
-			w := make([]float64, dim)
-			post := make([]float64, dim)
 			row, blk := 0, ci // start the pattern at a different place per case
 			for _, cp := range c.Checkpoints {
 				for row < cp.N {
@@ -124,26 +152,7 @@ func TestRidgeAgainstScikitLearn(t *testing.T) {
 				if r.Rows() != int64(cp.N) || r.Pending() != 0 {
 					t.Fatalf("rows %d pending %d, want %d and 0", r.Rows(), r.Pending(), cp.N)
 				}
-				for u := range cols {
-					b := r.WeightsTo(w, u)
-					if e := ridgeRelVec(w, cp.Coef[u]); e > 1e-8 {
-						t.Errorf("n=%d unit %d: weights off by %.3g relative (w[0]=%v, sklearn %v)", cp.N, u, e, w[0], cp.Coef[u][0])
-					}
-					if e := ridgeRel(b, cp.Intercept[u]); e > 1e-8 {
-						t.Errorf("n=%d unit %d: intercept %v, sklearn %v", cp.N, u, b, cp.Intercept[u])
-					}
-					if e := ridgeRel(r.Objective(u), cp.Objective[u]); e > 1e-8 {
-						t.Errorf("n=%d unit %d: objective %v, numpy %v", cp.N, u, r.Objective(u), cp.Objective[u])
-					}
-				}
-				r.PosteriorDiagTo(post)
-				if e := ridgeRelVec(post, cp.PostDiag); e > 1e-8 {
-					t.Errorf("n=%d: posterior diagonal off by %.3g relative (first %v, numpy %v)", cp.N, e, post[0], cp.PostDiag[0])
-				}
-				t1, t2 := r.HatTraces()
-				if ridgeRel(t1, cp.T1) > 1e-8 || ridgeRel(t2, cp.T2) > 1e-8 {
-					t.Errorf("n=%d: hat traces %v, %v; numpy eigenvalues give %v, %v", cp.N, t1, t2, cp.T1, cp.T2)
-				}
+				checkRidgeCheckpoint(t, r, &cp)
 			}
 			if r.Err() != nil || r.Rejected() != 0 {
 				t.Errorf("unexpected error %v, %d rejected", r.Err(), r.Rejected())
@@ -152,31 +161,29 @@ func TestRidgeAgainstScikitLearn(t *testing.T) {
 	}
 }
 
-// ridgeDirect solves the weighted ridge problem with a free intercept
-// directly from its normal equations (Λ + ÃᵀΩÃ) z = ÃᵀΩY with gonum's
-// Cholesky, and also returns (Λ + ÃᵀΩÃ)⁻¹. Weight k is rho^(n−1−k) and the
-// penalty rho^n·lambda.
-func ridgeDirect(t *testing.T, X, Y [][]float64, lambda, rho float64) (coef [][]float64, icpt []float64, inv *mat.SymDense) {
+// ridgeDirect solves the ridge problem with a free intercept directly from
+// its normal equations (Λ + ÃᵀÃ) z = ÃᵀY with gonum's Cholesky, and also
+// returns (Λ + ÃᵀÃ)⁻¹.
+func ridgeDirect(t *testing.T, X, Y [][]float64, lambda float64) (coef [][]float64, icpt []float64, inv *mat.SymDense) {
 	t.Helper()
 	n, d, u := len(X), len(X[0]), len(Y[0])
 	M := mat.NewSymDense(d+1, nil)
 	rhs := mat.NewDense(d+1, u, nil)
 	a := make([]float64, d+1)
 	for k := range n {
-		wk := math.Pow(rho, float64(n-1-k))
 		copy(a, X[k])
 		a[d] = 1
 		for i := range d + 1 {
 			for j := i; j <= d; j++ {
-				M.SetSym(i, j, M.At(i, j)+wk*a[i]*a[j])
+				M.SetSym(i, j, M.At(i, j)+a[i]*a[j])
 			}
 			for c := range u {
-				rhs.Set(i, c, rhs.At(i, c)+wk*a[i]*Y[k][c])
+				rhs.Set(i, c, rhs.At(i, c)+a[i]*Y[k][c])
 			}
 		}
 	}
 	for i := range d {
-		M.SetSym(i, i, M.At(i, i)+lambda*math.Pow(rho, float64(n)))
+		M.SetSym(i, i, M.At(i, i)+lambda)
 	}
 	var ch mat.Cholesky
 	if !ch.Factorize(M) {
@@ -212,43 +219,6 @@ func ridgeRandRows(rng *rand.Rand, n, d int, f func(int) float64) [][]float64 {
 	return out
 }
 
-// TestRidgeForgettingMatchesWeightedSolve checks the forgetting factor
-// against a direct weighted ridge solve (weights ρ^(n−1−k), penalty ρⁿλ;
-// exponentially weighted RLS, Haykin, Adaptive Filter Theory, RLS chapter)
-// for two different groupings of the same rows.
-func TestRidgeForgettingMatchesWeightedSolve(t *testing.T) {
-	rng := rand.New(rand.NewPCG(7, 8))
-	d, u, n, rho, lambda := 30, 3, 400, 0.99, 2.0
-	X := ridgeRandRows(rng, n, d, func(int) float64 { return rng.NormFloat64() })
-	Y := ridgeRandRows(rng, n, u, func(c int) float64 { return float64(c) + rng.NormFloat64() })
-	coef, icpt, _ := ridgeDirect(t, X, Y, lambda, rho)
-	for _, block := range []int{1, 60, 17} {
-		t.Run(fmt.Sprintf("block=%d", block), func(t *testing.T) {
-			r, err := NewRidge(d, u, lambda, rho)
-			if err != nil {
-				t.Fatal(err)
-			}
-			for k := range n {
-				r.AddRow(X[k], Y[k])
-				if (k+1)%block == 0 {
-					r.Flush()
-				}
-			}
-			r.Flush()
-			w := make([]float64, d)
-			for c := range u {
-				b := r.WeightsTo(w, c)
-				if e := ridgeRelVec(w, coef[c]); e > 1e-9 {
-					t.Errorf("column %d: weights off by %.3g relative", c, e)
-				}
-				if ridgeRel(b, icpt[c]) > 1e-9 {
-					t.Errorf("column %d: intercept %v, direct %v", c, b, icpt[c])
-				}
-			}
-		})
-	}
-}
-
 // TestRidgeSetColsMidStream grows the columns while rows are pending: the new
 // columns must equal a direct solve (gonum Cholesky of the normal equations)
 // for responses that were 0 before they appeared.
@@ -257,7 +227,7 @@ func TestRidgeSetColsMidStream(t *testing.T) {
 	d, n, lambda := 25, 300, 3.0
 	X := ridgeRandRows(rng, n, d, func(int) float64 { return float64(rng.IntN(2)*2 - 1) })
 	Y := ridgeRandRows(rng, n, 5, func(int) float64 { return float64(rng.IntN(4)) })
-	r, err := NewRidge(d, 2, lambda, 1)
+	r, err := NewRidge(d, 2, lambda)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -277,7 +247,7 @@ func TestRidgeSetColsMidStream(t *testing.T) {
 		}
 	}
 	r.Flush()
-	coef, icpt, _ := ridgeDirect(t, X, Y, lambda, 1)
+	coef, icpt, _ := ridgeDirect(t, X, Y, lambda)
 	w := make([]float64, d)
 	for c := range 5 {
 		b := r.WeightsTo(w, c)
@@ -314,7 +284,7 @@ func TestRidgeLongRunNoDrift(t *testing.T) {
 	for k := range Y {
 		Y[k][0] += 2*X[k][3] - X[k][5] + 1
 	}
-	r, err := NewRidge(d, u, lambda, 1)
+	r, err := NewRidge(d, u, lambda)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -325,7 +295,7 @@ func TestRidgeLongRunNoDrift(t *testing.T) {
 		}
 	}
 	r.Flush()
-	coef, icpt, inv := ridgeDirect(t, X, Y, lambda, 1)
+	coef, icpt, inv := ridgeDirect(t, X, Y, lambda)
 	w := make([]float64, d)
 	for c := range u {
 		b := r.WeightsTo(w, c)
@@ -370,7 +340,7 @@ func TestRidgeLongRunNoDrift(t *testing.T) {
 // RSS = Σ(ỹ − w x̃)² = 2/9, objective 2/9 + 4/9 = 2/3, and h = 2/3 (worked
 // example, common practice, no source).
 func TestRidgeHandWorked(t *testing.T) {
-	r, err := NewRidge(1, 1, 1, 1)
+	r, err := NewRidge(1, 1, 1)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -405,22 +375,20 @@ func TestRidgeHandWorked(t *testing.T) {
 
 func TestNewRidgeRefusesBadArguments(t *testing.T) {
 	cases := []struct {
-		name           string
-		dim, cols      int
-		lambda, forget float64
+		name      string
+		dim, cols int
+		lambda    float64
 	}{
-		{"zero dim", 0, 1, 1, 1},
-		{"negative cols", 3, -1, 1, 1},
-		{"zero lambda", 3, 1, 0, 1},
-		{"NaN lambda", 3, 1, math.NaN(), 1},
-		{"infinite lambda", 3, 1, math.Inf(1), 1},
-		{"zero forget", 3, 1, 1, 0},
-		{"forget above one", 3, 1, 1, 1.01},
-		{"dimension too large", maxRidgeDim + 1, 1, 1, 1},
+		{"zero dim", 0, 1, 1},
+		{"negative cols", 3, -1, 1},
+		{"zero lambda", 3, 1, 0},
+		{"NaN lambda", 3, 1, math.NaN()},
+		{"infinite lambda", 3, 1, math.Inf(1)},
+		{"dimension too large", maxRidgeDim + 1, 1, 1},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			r, err := NewRidge(c.dim, c.cols, c.lambda, c.forget)
+			r, err := NewRidge(c.dim, c.cols, c.lambda)
 			if err == nil || r != nil {
 				t.Fatalf("accepted (%v)", r)
 			}
@@ -443,14 +411,14 @@ func TestRidgeRefusesBadRows(t *testing.T) {
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			r, _ := NewRidge(2, 1, 1, 1)
+			r, _ := NewRidge(2, 1, 1)
 			r.AddRow(c.x, c.y)
 			if r.Pending() != 0 || r.Rejected() != 1 || !errors.Is(r.Err(), ErrRidgeRow) {
 				t.Errorf("pending %d rejected %d err %v", r.Pending(), r.Rejected(), r.Err())
 			}
 		})
 	}
-	r, _ := NewRidge(2, 1, 1, 1)
+	r, _ := NewRidge(2, 1, 1)
 	w := make([]float64, 2)
 	if b := r.WeightsTo(w, 1); !math.IsNaN(b) || !math.IsNaN(w[0]) || r.Err() == nil {
 		t.Errorf("column out of range: intercept %v, w %v, err %v", b, w, r.Err())
@@ -461,7 +429,7 @@ func TestRidgeRefusesBadRows(t *testing.T) {
 }
 
 func TestRidgeResetAndEmpty(t *testing.T) {
-	r, _ := NewRidge(3, 1, 2, 1)
+	r, _ := NewRidge(3, 1, 2)
 	w := make([]float64, 3)
 	post := make([]float64, 3)
 	check := func(when string) {
@@ -490,7 +458,7 @@ func TestRidgeResetAndEmpty(t *testing.T) {
 func TestRidgeAddRowFlushDoNotAllocate(t *testing.T) {
 	rng := rand.New(rand.NewPCG(13, 14))
 	d, u := 500, 9
-	r, _ := NewRidge(d, u, 10, 0.999)
+	r, _ := NewRidge(d, u, 10)
 	x := make([]float64, d)
 	y := make([]float64, u)
 	fill := func() {
@@ -523,7 +491,7 @@ func TestRidgeAddRowFlushDoNotAllocate(t *testing.T) {
 // ExampleRidge fits y = 1 + 2·x₀ − x₁ from noiseless rows with a small
 // penalty, one Flush per block of rows.
 func ExampleRidge() {
-	r, err := NewRidge(2, 1, 1e-6, 1)
+	r, err := NewRidge(2, 1, 1e-6)
 	if err != nil {
 		fmt.Println(err)
 		return

@@ -127,6 +127,7 @@ type Snapshot struct {
 	Shape       [3]int        `json:"shape"`
 	FramePeriod Float         `json:"frame_period_s"`
 	Lambda      Float         `json:"lambda"`
+	Solve       SolveInfo     `json:"solve"` // how this update folded its bins into the ridge
 	Summary     BlockSummary  `json:"summary"`
 	Units       []UnitSummary `json:"units"`
 	details     map[string]*UnitDetail

@@ -3,6 +3,8 @@ package online
 import (
 	"fmt"
 	"math"
+
+	gfloats "gonum.org/v1/gonum/floats"
 )
 
 // STA accumulates, for every unit, the sums behind the spike-triggered
@@ -71,9 +73,6 @@ func (s *STA) Units() int { return s.units }
 // Bins is the number of bins added since the last Reset.
 func (s *STA) Bins() int64 { return s.n[0] + s.n[1] }
 
-// HalfBins returns the number of bins in half A and in half B.
-func (s *STA) HalfBins() (a, b int64) { return s.n[0], s.n[1] }
-
 // Rejected counts the counts that AddBin ignored: a negative unit index or
 // a count that is negative, NaN or infinite.
 func (s *STA) Rejected() int64 { return s.rejected }
@@ -140,11 +139,8 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 	if halfA {
 		h = 0
 	}
-	k := s.n[0] + s.n[1] // index of this bin
-	sx := s.sumX[h][:len(x)]
-	for i, v := range x {
-		sx[i] += v
-	}
+	k := s.n[0] + s.n[1]               // index of this bin
+	gfloats.Add(s.sumX[h][:len(x)], x) // gonum's vector kernels: this is the message path
 	L := int64(s.lags)
 	for _, c := range counts {
 		y := c.N
@@ -159,10 +155,7 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 		if u >= s.units {
 			s.Grow(u + 1)
 		}
-		sxy := s.block(u, staA+h)[:len(x)]
-		for i, v := range x {
-			sxy[i] += y * v
-		}
+		gfloats.AddScaled(s.block(u, staA+h)[:len(x)], y, x)
 		s.sy[u][h] += y
 		if s.lags == 0 {
 			continue

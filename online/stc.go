@@ -234,24 +234,6 @@ func MarchenkoPastur(d int, samples, variance, tw float64) (low, high float64) {
 	return low, high
 }
 
-// EigenvaluesTo writes the eigenvalues of C, descending, into dst (len Dim).
-func (s *STC) EigenvaluesTo(dst []float64, stimVariance float64) error {
-	if len(dst) != s.dim {
-		return fmt.Errorf("online: STC.EigenvaluesTo: destination has %d values, want %d", len(dst), s.dim)
-	}
-	var c mat.SymDense
-	if err := s.CovarianceTo(&c, stimVariance); err != nil {
-		return err
-	}
-	var eig mat.EigenSym
-	if !eig.Factorize(&c, false) {
-		return errors.New("online: STC: eigendecomposition failed")
-	}
-	eig.Values(dst)
-	slices.Reverse(dst)
-	return nil
-}
-
 // Result decomposes C and reports its eigenvalues (descending), the null
 // bounds and the significant eigenvectors as filters (excitatory, largest
 // first, then suppressive, most negative first).

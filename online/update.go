@@ -5,10 +5,12 @@ import (
 	"runtime"
 	"slices"
 	"sync"
+	"sync/atomic"
 )
 
-// shared holds what every unit's statistics read during one Update.
-type shared struct {
+// ridgeCommon holds the ridge quantities that every unit's statistics read
+// during one Update.
+type ridgeCommon struct {
 	wh     []float64 // ridge weights of the half indicator
 	pdiag  []float64 // diagonal of the weights block of P
 	t1, t2 float64   // hat-matrix traces
@@ -36,9 +38,15 @@ func (m *Mapper) newScratch() *scratch {
 // Update folds the bins added since the last call into the estimates,
 // recomputes every unit's statistics and returns a new Snapshot.
 func (m *Mapper) Update() *Snapshot {
-	m.ridge.Flush()
+	m.fold()
 	m.updates++
-	sh := shared{wh: make([]float64, m.dim), pdiag: make([]float64, m.dim)}
+	sh := &m.common
+	if len(sh.wh) != m.dim {
+		sh.wh, sh.pdiag = make([]float64, m.dim), make([]float64, m.dim)
+	}
+	clear(sh.wh)
+	clear(sh.pdiag)
+	sh.t1, sh.t2 = 0, 0
 	if m.ridge.Rows() > 0 {
 		if !m.cfg.White {
 			m.ridge.WeightsTo(sh.wh, 0)
@@ -49,25 +57,35 @@ func (m *Mapper) Update() *Snapshot {
 	m.sta.CacheMeans()
 	n := len(m.ids)
 	details := make([]*UnitDetail, n)
-	workers := min(runtime.GOMAXPROCS(0), n)
-	var wg sync.WaitGroup
-	for w := range workers {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			s := m.newScratch()
-			for u := w; u < n; u += workers {
-				details[u] = m.unitDetail(u, &sh, s)
-			}
-		}()
+	m.planRefits(n)
+	// The per-unit work on every core, units handed out one at a time; the
+	// STC refresh of one unit alongside.
+	workers := max(1, min(runtime.GOMAXPROCS(0), n))
+	for len(m.scratch) < workers {
+		m.scratch = append(m.scratch, m.newScratch())
 	}
+	var wg sync.WaitGroup
+	var next atomic.Int64
+	for w := range workers {
+		wg.Go(func() {
+			s := m.scratch[w]
+			for u := int(next.Add(1) - 1); u < n; u = int(next.Add(1) - 1) {
+				details[u] = m.unitDetail(u, sh, s)
+			}
+		})
+	}
+	refreshed := m.refreshSTC()
 	wg.Wait()
+	if refreshed != nil {
+		refreshed()
+	}
 	m.updateSTC(details)
 	m.popPeak = medianPeak(details, m.popPeak)
 
 	snap := m.emptySnapshot()
 	snap.T = Float(float64(m.used) * m.cfg.FramePeriod)
 	snap.Bins = m.used
+	snap.Solve = m.solve
 	snap.Units = make([]UnitSummary, n)
 	for u, d := range details {
 		d.History = append(m.history[u], HistoryPoint{T: snap.T, Spikes: d.Spikes, Reliability: d.Reliability})
@@ -82,7 +100,7 @@ func (m *Mapper) Update() *Snapshot {
 
 // unitDetail computes every statistic of unit u. It reads the shared state
 // only, so units run in parallel.
-func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
+func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	cfg := &m.cfg
 	d := &UnitDetail{
 		Shape:       [3]int{cfg.Lags, cfg.Height, cfg.Width},
@@ -110,8 +128,8 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 		clear(s.wa)
 	}
 	d.Intercept = Float(intercept)
-	m.sta.STATo(s.sta, u)
 	m.sta.CrossTo(s.cross, u)
+	staFromCross(s.sta, s.cross, m.sta.Spikes(u))
 
 	// Noise variance and per-coefficient z from the ridge posterior σ²P.
 	dof := float64(m.used) - 1 - sh.t1
@@ -158,22 +176,22 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	_, R := SplitHalf(s.ha[lo:hi], s.hb[lo:hi])
 	d.Reliability = Float(R)
 
+	// The shape (centre, extent, separable profiles) is recomputed on the
+	// unit's turn or when its significance changed, else kept.
 	fit := &m.fits[u]
-	fitNow := significant && (!fit.ok || (m.updates+int64(u))%fitEvery == 0)
-	s.features.MomentsOnly = !fitNow
-	s.features.SkipSeparable = !fitNow && significant && fit.ok
+	keep := fit.ok && !m.refit[u] && fit.significant == significant
+	gauss := significant && m.refit[u]
+	s.features.MomentsOnly = !gauss
+	s.features.KeepShape = keep
 	s.features.Warm = nil
-	if fit.ok {
+	if fit.ok && fit.gauss {
 		s.features.Warm = &Features{CentreX: fit.cx, CentreY: fit.cy, SigmaX: fit.sx, SigmaY: fit.sy, Angle: fit.angle}
 	}
 	_ = s.features.FeaturesTo(&d.Features, s.w)
-	switch {
-	case fitNow:
-		fit.save(&d.Features)
-	case significant && fit.ok:
+	if keep {
 		fit.restore(&d.Features)
-	default:
-		fit.ok = false
+	} else {
+		fit.save(&d.Features, significant, gauss)
 	}
 	d.PeakLag = d.Features.PeakLag
 	d.LatencyMS = d.Features.LatencyMS
@@ -225,23 +243,48 @@ func (m *Mapper) reliabilityWindow(w []float64, significant bool) (lo, hi int) {
 	return first * m.pixels, (first + n) * m.pixels
 }
 
-// fitEvery staggers the Gaussian fits and the space–time SVDs, the
-// costliest per-unit steps: each significant unit is refitted every
-// fitEvery updates, units taking turns, and keeps its last fit in between.
-const fitEvery = 4
+// fitCycle and fitMin spread the shape features (the Gaussian fit, the
+// moments, the space–time decomposition), the costliest per-unit steps,
+// over updates: each update recomputes them for the next ⌈units/fitCycle⌉
+// units (at least fitMin) in turn, with the Gaussian fit for the
+// significant ones, so every unit is refreshed every fitCycle updates or
+// more often and the cost per update stays bounded whatever the number of
+// units. In between a unit keeps its last shape unless its significance
+// changed (a newly significant unit shows its moments until its turn). The
+// turn depends on the update count only, so replays give the same features.
+const (
+	fitCycle = 16
+	fitMin   = 4
+)
 
-// shapeFit is a unit's last Gaussian fit and separable approximation,
-// shown until the next refit. Spatial and Temporal are shared with earlier
+// planRefits marks the units whose turn to be refitted it is.
+func (m *Mapper) planRefits(n int) {
+	m.refit = slices.Grow(m.refit[:0], n)[:n]
+	clear(m.refit)
+	if n == 0 {
+		return
+	}
+	k := min(n, max(fitMin, (n+fitCycle-1)/fitCycle))
+	for i := range k {
+		m.refit[(m.fitTurn+i)%n] = true
+	}
+	m.fitTurn = (m.fitTurn + k) % n
+}
+
+// shapeFit is a unit's last shape (Gaussian fit or moments) and separable
+// approximation, shown until the next refresh; significant tells whether
+// the unit was significant then, gauss whether the shape is a fit (which a
+// later fit starts from). Spatial and Temporal are shared with earlier
 // snapshots, which never write them.
 type shapeFit struct {
-	ok                                        bool
+	ok, significant, gauss                    bool
 	cx, cy, sx, sy, angle, cxd, cyd, sxd, syd Float
 	separability                              Float
 	spatial, temporal                         Floats
 }
 
-func (f *shapeFit) save(ft *Features) {
-	*f = shapeFit{true, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
+func (f *shapeFit) save(ft *Features, significant, gauss bool) {
+	*f = shapeFit{true, significant, gauss, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
 		ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg,
 		ft.Separability, ft.Spatial, ft.Temporal}
 }
@@ -272,6 +315,19 @@ func (m *Mapper) halvesTo(a, b, w, wa, wh []float64, u int) {
 	}
 }
 
+// staFromCross writes the STA, cross/spikes (zeros without spikes), as
+// STA.STATo does, from the cross-correlation already at hand.
+func staFromCross(sta, cross []float64, spikes float64) {
+	if spikes == 0 {
+		clear(sta)
+		return
+	}
+	inv := 1 / spikes
+	for i, v := range cross {
+		sta[i] = v * inv
+	}
+}
+
 func dot(a, b []float64) float64 {
 	var s float64
 	for i, v := range a {
@@ -292,9 +348,8 @@ const stcEvery = 2
 const stcMinSamples = 2
 
 // updateSTC starts STC for flagged units and for units with no linear field
-// (within the cap), refreshes one unit's result in turn, and attaches the
-// latest results to the details. STC needs a white stimulus, whose prior
-// covariance c²I is known.
+// (within the cap) and attaches the latest results to the details. STC needs
+// a white stimulus, whose prior covariance c²I is known.
 func (m *Mapper) updateSTC(details []*UnitDetail) {
 	if !m.cfg.White {
 		return
@@ -312,29 +367,46 @@ func (m *Mapper) updateSTC(details []*UnitDetail) {
 			}
 		}
 	}
-	if len(m.stc) == 0 {
-		return
-	}
-	if m.updates%stcEvery == 0 {
-		units := make([]int, 0, len(m.stc))
-		for u := range m.stc {
-			units = append(units, u)
-		}
-		slices.Sort(units)
-		u := units[m.stcTurn%len(units)]
-		m.stcTurn++
-		// The null bound needs many more samples than dimensions.
-		if acc := m.stc[u]; acc.Effective() >= stcMinSamples*float64(acc.Dim()) {
-			if res, err := acc.Result(m.cfg.PixelVariance, math.NaN(), math.NaN()); err == nil {
-				res.Spikes = int64(acc.Spikes())
-				m.stcResults[u] = &res
-			}
-		}
-	}
 	for u, d := range details {
 		if r := m.stcResults[u]; r != nil && m.stc[u] != nil {
 			d.STC = r
 			d.HasSTC = true
+		}
+	}
+}
+
+// refreshSTC recomputes, every stcEvery updates, one STC unit's result in
+// turn, in the background while the per-unit statistics run; the function
+// it returns waits for it and stores the result (nil when there is nothing
+// to refresh).
+func (m *Mapper) refreshSTC() func() {
+	if !m.cfg.White || len(m.stc) == 0 || m.updates%stcEvery != 0 {
+		return nil
+	}
+	units := make([]int, 0, len(m.stc))
+	for u := range m.stc {
+		units = append(units, u)
+	}
+	slices.Sort(units)
+	u := units[m.stcTurn%len(units)]
+	m.stcTurn++
+	acc := m.stc[u]
+	// The null bound needs many more samples than dimensions.
+	if acc.Effective() < stcMinSamples*float64(acc.Dim()) {
+		return nil
+	}
+	var res STCResult
+	var err error
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		res, err = acc.Result(m.cfg.PixelVariance, math.NaN(), math.NaN())
+	}()
+	return func() {
+		<-done
+		if err == nil {
+			res.Spikes = int64(acc.Spikes())
+			m.stcResults[u] = &res
 		}
 	}
 }

@@ -1,0 +1,112 @@
+package online
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/blas"
+	"gonum.org/v1/gonum/blas/blas64"
+	"gonum.org/v1/gonum/lapack/lapack64"
+	"gonum.org/v1/gonum/mat"
+
+	"livefield/online/internal/fastmat"
+)
+
+// Anchor sets the ridge to the exact solution over rows rows given only
+// their sufficient statistics, and re-anchors the recursion on it: rows
+// added afterwards fold in by the block update as if every earlier row had
+// been added one by one. It is the route for a backlog, where one
+// factorisation (about D³ flops) is cheaper than the block update over all
+// rows (about 3·D²·B).
+//
+// gram writes XᵀX of the rows (Dim×Dim, upper triangle) into the matrix it
+// is given; sumX is Σ_k x_k (Dim values); cross holds, for each of the Cols()
+// columns in turn, Dim()+1 values [Σ_k y_k x_k; Σ_k y_k]; yy holds Σ_k y_k²
+// per column. Anchor forms the augmented precision with the intercept's ε
+// prior,
+//
+//	M = [λI + XᵀX, Σx; Σxᵀ, rows + ε],
+//
+// factors it by Cholesky and inverts it (gonum's LAPACK) into P's storage,
+// then sets W = P·AᵀY and each column's objective yᵀy − (AᵀY)ᵀW, exactly
+// the state the recursion would have reached. Pending rows are dropped (the
+// statistics must include them). On error the ridge is left empty (Reset)
+// and the error is also reported by Err.
+func (r *Ridge) Anchor(rows int64, gram func(dst *mat.SymDense) error, sumX, cross, yy []float64) error {
+	fail := func(err error) error {
+		r.Reset()
+		r.fail(err)
+		return err
+	}
+	d, n, ld := r.dim, r.n, r.ld
+	switch {
+	case rows < 0:
+		return fail(fmt.Errorf("online: ridge Anchor: %d rows", rows))
+	case len(sumX) != d || len(cross) != r.cols*n || len(yy) != r.cols:
+		return fail(fmt.Errorf("online: ridge Anchor: %d sums, %d cross values and %d squares; want %d, %d and %d",
+			len(sumX), len(cross), len(yy), d, r.cols*n, r.cols))
+	}
+	r.dropPending()
+	clear(r.p)
+	// The Gram goes straight into P's storage (stride ld, upper triangle).
+	var g mat.SymDense
+	g.SetRawSymmetric(blas64.Symmetric{Uplo: blas.Upper, N: d, Stride: ld, Data: r.p[:(d-1)*ld+d]})
+	if err := gram(&g); err != nil {
+		return fail(fmt.Errorf("online: ridge Anchor: %w", err))
+	}
+	if g.SymmetricDim() != d {
+		return fail(fmt.Errorf("online: ridge Anchor: Gram of size %d, want %d", g.SymmetricDim(), d))
+	}
+	for i := range d {
+		r.p[i*ld+i] += r.lam
+		r.p[i*ld+d] = sumX[i]
+	}
+	r.p[d*ld+d] = float64(rows) + r.eps
+	for i := range n {
+		for _, v := range r.p[i*ld+i : i*ld+n] {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fail(errors.New("online: ridge Anchor: statistics not finite"))
+			}
+		}
+	}
+	m := blas64.Symmetric{Uplo: blas.Upper, N: n, Stride: ld, Data: r.p[:(n-1)*ld+n]}
+	t, ok := lapack64.Potrf(m)
+	if !ok {
+		return fail(errors.New("online: ridge Anchor: penalised Gram is not positive definite"))
+	}
+	if _, ok := lapack64.Potri(t); !ok {
+		return fail(errors.New("online: ridge Anchor: penalised Gram is singular"))
+	}
+	// P is read from the lower triangle (and the diagonal tiles in full):
+	// mirror the whole upper triangle down.
+	r.job.phase = phaseMirror
+	fastmat.Each(r.nt, &r.job)
+
+	// Wᵀ = (AᵀY)ᵀ P, column by column of the responses; J = yᵀy − (AᵀY)ᵀW.
+	if r.cols > 0 {
+		bt := make([]float64, r.cols*ld)
+		for c := range r.cols {
+			copy(bt[c*ld:c*ld+n], cross[c*n:(c+1)*n])
+		}
+		clear(r.wt)
+		fastmat.MulAdd(r.cols, ld, ld, 1, bt, ld, r.p, ld, r.wt, ld)
+		for c := range r.cols {
+			r.obj[c] = yy[c] - dot(bt[c*ld:c*ld+n], r.wt[c*ld:c*ld+n])
+		}
+	}
+	r.rows = rows
+	return nil
+}
+
+// mirrorRows copies the upper triangle of rows of tile t of P into the
+// lower triangle.
+func (r *Ridge) mirrorRows(t int) {
+	lo, sz := r.tile(t)
+	ld := r.ld
+	for j := lo; j < lo+sz; j++ {
+		for i := j + 1; i < ld; i++ {
+			r.p[i*ld+j] = r.p[j*ld+i]
+		}
+	}
+}
