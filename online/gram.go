@@ -58,6 +58,12 @@ type LagGram struct {
 	x     []float64 // denseChunk × dim lagged copies of the chunk
 
 	scratch []float64 // pixels × dim, for GramTo
+
+	// Earlier segments (see Restart): their Gram matrix and lagged sums
+	// over their used bins, and how many bins they had.
+	past     *mat.SymDense
+	pastSum  []float64
+	pastBins int
 }
 
 const (
@@ -112,11 +118,43 @@ func (g *LagGram) Dim() int { return g.dim }
 // Frames is the number of frames added.
 func (g *LagGram) Frames() int { return g.n }
 
-// Bins is the number of used bins, max(0, Frames − Lags + 1).
-func (g *LagGram) Bins() int { return max(0, g.n-g.lags+1) }
+// Bins is the number of used bins: max(0, Frames − Lags + 1) in the
+// current segment, plus those of earlier segments (Restart).
+func (g *LagGram) Bins() int { return g.pastBins + g.segmentBins() }
 
-// Reset forgets all frames and keeps the storage.
+func (g *LagGram) segmentBins() int { return max(0, g.n-g.lags+1) }
+
+// Restart begins a new segment: the next Lags−1 frames are history only,
+// as after a pause in the stimulus, and no used bin spans the two
+// segments. What the finished segment contributed is kept in a dense D×D
+// accumulator (allocated at the first restart, filled in O(D²·Pixels)).
+func (g *LagGram) Restart() {
+	if g.segmentBins() > 0 {
+		if g.past == nil {
+			g.past = mat.NewSymDense(g.dim, nil)
+			g.pastSum = make([]float64, g.dim)
+		}
+		var seg mat.SymDense
+		_ = g.segmentGramTo(&seg) // cannot fail: the segment has bins
+		g.past.AddSym(g.past, &seg)
+		sums := make([]float64, g.dim)
+		g.segmentSumsTo(sums)
+		for i, v := range sums {
+			g.pastSum[i] += v
+		}
+		g.pastBins += g.segmentBins()
+	}
+	g.resetSegment()
+}
+
+// Reset forgets all frames, of every segment, and keeps the storage.
 func (g *LagGram) Reset() {
+	g.resetSegment()
+	g.past, g.pastSum, g.pastBins = nil, nil, 0
+}
+
+// resetSegment forgets the frames of the current segment.
+func (g *LagGram) resetSegment() {
 	g.n = 0
 	clear(g.sum)
 	g.binary, g.hasHi, g.lo, g.hi = true, false, 0, 0
@@ -378,14 +416,45 @@ var ErrFewFrames = errors.New("online: fewer frames than lags")
 // with centred, X̃ᵀX̃ = XᵀX − N x̄x̄ᵀ (x̄ the mean lagged stimulus, N = Bins).
 // An empty dst is sized to Dim; a non-empty dst must have that size.
 func (g *LagGram) GramTo(dst *mat.SymDense, centred bool) error {
+	if g.Bins() == 0 {
+		return ErrFewFrames
+	}
+	d := g.dim
+	if dst.IsEmpty() {
+		dst.ReuseAsSym(d)
+	} else if dst.SymmetricDim() != d {
+		return fmt.Errorf("online: LagGram.GramTo: destination is %d×%d, want %d×%d", dst.SymmetricDim(), dst.SymmetricDim(), d, d)
+	}
+	if g.segmentBins() > 0 {
+		_ = g.segmentGramTo(dst)
+		if g.past != nil {
+			dst.AddSym(dst, g.past)
+		}
+	} else {
+		dst.CopySym(g.past)
+	}
+	if centred {
+		mean := make([]float64, d)
+		g.lagSumsTo(mean)
+		nb := float64(g.Bins())
+		for i := range mean {
+			mean[i] /= nb
+		}
+		// dst −= N x̄x̄ᵀ on the upper triangle.
+		blas64.Syr(-nb, blas64.Vector{N: d, Inc: 1, Data: mean}, dst.RawSymmetric())
+	}
+	return nil
+}
+
+// segmentGramTo writes XᵀX over the current segment's used bins into dst
+// (sized to Dim when empty).
+func (g *LagGram) segmentGramTo(dst *mat.SymDense) error {
 	if g.n < g.lags {
 		return ErrFewFrames
 	}
 	d, P, L := g.dim, g.pixels, g.lags
 	if dst.IsEmpty() {
 		dst.ReuseAsSym(d)
-	} else if dst.SymmetricDim() != d {
-		return fmt.Errorf("online: LagGram.GramTo: destination is %d×%d, want %d×%d", dst.SymmetricDim(), dst.SymmetricDim(), d, d)
 	}
 	if len(g.scratch) != P*d {
 		g.scratch = make([]float64, P*d)
@@ -419,16 +488,6 @@ func (g *LagGram) GramTo(dst *mat.SymDense, centred bool) error {
 			}
 		}
 	}
-	if centred {
-		mean := make([]float64, d)
-		g.lagSumsTo(mean)
-		nb := float64(g.Bins())
-		for i := range mean {
-			mean[i] /= nb
-		}
-		// dst −= N x̄x̄ᵀ on the upper triangle.
-		blas64.Syr(-nb, blas64.Vector{N: d, Inc: 1, Data: mean}, raw)
-	}
 	return nil
 }
 
@@ -440,6 +499,17 @@ func axpy(dst []float64, a float64, x []float64) {
 
 // lagSumsTo writes Σ_k x_k over the used bins (len Dim) into dst.
 func (g *LagGram) lagSumsTo(dst []float64) {
+	clear(dst)
+	if g.segmentBins() > 0 {
+		g.segmentSumsTo(dst)
+	}
+	for i, v := range g.pastSum {
+		dst[i] += v
+	}
+}
+
+// segmentSumsTo writes Σ_k x_k over the current segment's used bins.
+func (g *LagGram) segmentSumsTo(dst []float64) {
 	P, L, n := g.pixels, g.lags, g.n
 	for i := range L {
 		out := dst[i*P : (i+1)*P]
@@ -460,7 +530,7 @@ func (g *LagGram) MeanTo(dst []float64) error {
 	if len(dst) != g.dim {
 		return fmt.Errorf("online: LagGram.MeanTo: destination has %d values, want %d", len(dst), g.dim)
 	}
-	if g.n < g.lags {
+	if g.Bins() == 0 {
 		return ErrFewFrames
 	}
 	g.lagSumsTo(dst)

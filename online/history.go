@@ -5,5 +5,6 @@ package online
 // refused bin.
 func (m *Mapper) RestartHistory() {
 	m.added = 0
+	m.gram.Restart()
 
 }

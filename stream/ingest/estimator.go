@@ -53,6 +53,7 @@ type estimates struct {
 	Refused       uint64  // of those, bins the mapper refused
 	EstimateT     float64 // end of the last bin in them (NaN before any)
 	Wait          float64 // seconds the oldest of their bins waited (NaN when none)
+	Route         string  // how the last update folded its bins (online.SolveInfo)
 	Units         int
 }
 
@@ -223,6 +224,7 @@ func (e *estimator) publish(s *online.Snapshot, at time.Time, took float64, coun
 		Refused:       e.refused,
 		EstimateT:     e.binEnd,
 		Wait:          old.Wait,
+		Route:         s.Solve.Route,
 		Units:         e.mapper.Units(),
 	}
 	if counted {

@@ -98,10 +98,14 @@ type Health struct {
 	Updates     uint64 `json:"updates"`     // snapshots published
 	// UpdateSeconds is the time the last estimate update took (process
 	// time, not the injected clock).
-	UpdateSeconds float64      `json:"update_s"`
-	LastUpdate    string       `json:"last_update"` // RFC 3339, wall clock
-	StreamTime    online.Float `json:"stream_t"`    // latest spike or frame time seen (null before any)
-	BinTime       online.Float `json:"bin_t"`       // end of the latest bin closed
+	UpdateSeconds float64 `json:"update_s"`
+	// Route is how the last update folded its bins: a block RLS update
+	// ("woodbury") when few had queued, one exact re-solve from the Gram
+	// matrix ("resolve") when many had (catching up).
+	Route      string       `json:"route,omitempty"`
+	LastUpdate string       `json:"last_update"` // RFC 3339, wall clock
+	StreamTime online.Float `json:"stream_t"`    // latest spike or frame time seen (null before any)
+	BinTime    online.Float `json:"bin_t"`       // end of the latest bin closed
 	// EstimateTime is the end of the latest bin in the published estimates,
 	// and BinsWaiting the bins closed but not in them yet.
 	EstimateTime online.Float `json:"estimate_t"`
@@ -147,6 +151,7 @@ func (c *Loop) Counters() Health {
 	h.UpdateSeconds = e.UpdateSeconds
 	h.LastUpdate = stamp(e.LastUpdate)
 	h.EstimateTime = online.Float(e.EstimateT)
+	h.Route = e.Route
 	h.Bins = e.Bins - e.Refused
 	h.BinsWaiting = n.bins.Load() - e.Bins
 	h.Lag = online.Float(e.Wait)
