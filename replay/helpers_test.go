@@ -166,7 +166,7 @@ func feedAll(t testing.TB, recs []session.Record, opt FeedOptions) *online.Snaps
 		t.Fatal(err)
 	}
 	for _, r := range recs {
-		if err := f.Record(r); err != nil {
+		if err := f.FeedRecord(r); err != nil {
 			t.Fatalf("record refused: %v", err)
 		}
 	}

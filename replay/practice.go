@@ -250,7 +250,7 @@ func (p *Practice) Run(ctx context.Context, r *session.Reader, name string) (*Re
 				p.markStop(start, auto)
 			}
 		}
-		ferr := p.feeder.Record(rec)
+		ferr := p.feeder.FeedRecord(rec)
 		if block == "" && ferr == nil && rec.Subject == wire.SubjectBlock {
 			if id := p.feeder.Stats().Block; id != "" {
 				p.runMu.Lock()

@@ -214,7 +214,7 @@ func BenchmarkReplayFullSpeed(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		st, err := Play(context.Background(), f.Reader, PlayOptions{}, func(r session.Record) error { _ = feeder.Record(r); return nil })
+		st, err := Play(context.Background(), f.Reader, PlayOptions{}, func(r session.Record) error { _ = feeder.FeedRecord(r); return nil })
 		if err != nil {
 			b.Fatal(err)
 		}

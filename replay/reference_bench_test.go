@@ -3,7 +3,6 @@ package replay
 import (
 	"cmp"
 	"encoding/json"
-	"fmt"
 	"math/rand/v2"
 	"os"
 	"slices"
@@ -75,7 +74,8 @@ func referenceSession(b *testing.B, seconds float64) []session.Record {
 
 // BenchmarkReplayReference feeds a recorded reference-workload session to
 // the mapper at full speed, updating the estimates every second of session
-// time (as live) or every ten seconds (as `replay --speed max` does), and
+// time (as live) or only at the block end (FinalOnly, as `replay --speed
+// max` and export do), and
 // reports seconds of session per second of compute. The session is 120 s
 // long; set LIVEFIELD_REPLAY_SECONDS=1800 for the 30-minute block.
 func BenchmarkReplayReference(b *testing.B) {
@@ -84,8 +84,12 @@ func BenchmarkReplayReference(b *testing.B) {
 		seconds = v
 	}
 	recs := referenceSession(b, seconds)
-	for _, every := range []time.Duration{time.Second, 10 * time.Second} {
-		b.Run(fmt.Sprintf("update=%v", every), func(b *testing.B) {
+	for _, c := range []struct {
+		name  string
+		every time.Duration
+	}{{"update=1s", time.Second}, {"update=final", FinalOnly}} {
+		every := c.every
+		b.Run(c.name, func(b *testing.B) {
 			b.ReportAllocs()
 			start := time.Now()
 			for range b.N {
@@ -94,7 +98,7 @@ func BenchmarkReplayReference(b *testing.B) {
 					b.Fatal(err)
 				}
 				for _, r := range recs {
-					if err := f.Record(r); err != nil {
+					if err := f.FeedRecord(r); err != nil {
 						b.Fatal(err)
 					}
 				}

@@ -137,6 +137,7 @@ func TestSessionCommandErrors(t *testing.T) {
 		{"export without out", []string{"export", path}, "--out is required", 1},
 		{"export bad lambda", []string{"export", path, "--out", t.TempDir(), "--lambda", "-1"}, "--lambda -1", 1},
 		{"export evidence on a short block", []string{"export", path, "--out", t.TempDir(), "--lambda", "evidence"}, "needs at least as many bins as dimensions", 1},
+		{"replay into NATS takes the shared NATS flags", []string{"replay", path, "--nats", "nats://127.0.0.1:1", "--creds", "x.creds", "--token", "t"}, "--creds and --token", 1},
 		{"practice at max without stop", []string{"practice", path, "--speed", "max"}, "--stop-at", 1},
 		{"record without rig", []string{"record", "--nats", "nats://127.0.0.1:1", "--out", "x.lfs"}, "--rig is required", 1},
 	}

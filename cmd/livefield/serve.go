@@ -4,6 +4,7 @@ import (
 	"context"
 	"crypto/tls"
 	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -18,27 +19,19 @@ import (
 	"livefield/stream/ingest"
 )
 
-func init() {
-	register("serve", command{
-		summary: "map the live stream of one rig and serve the estimates over HTTP",
-		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N] [--lambda L|evidence] [--api-token T] [--shard i/n] [--no-jetstream]",
-		example: "livefield serve --nats nats://127.0.0.1:4222 --rig rig1 --stimuli ./stimuli --http 127.0.0.1:8080",
-		run:     runServe,
-	})
-}
-
-// natsFlags are the connection flags shared by serve and simulate.
+// natsFlags are the NATS connection flags (server, credentials, TLS) that
+// every command talking to an outside NATS server shares: serve, record,
+// simulate and replay --nats.
 type natsFlags struct {
 	url, creds, token, ca, cert, key string
 }
 
-func (n *natsFlags) add(fs interface {
-	StringVar(*string, string, string, string)
-}, withAuth bool) {
-	fs.StringVar(&n.url, "nats", "", "NATS server URL (required), e.g. nats://127.0.0.1:4222")
-	if !withAuth {
-		return
-	}
+// natsAuthUsage is the usage line of the credential and TLS flags.
+const natsAuthUsage = "[--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE]"
+
+// add defines the flags on fs; urlUsage is the help of --nats.
+func (n *natsFlags) add(fs *flag.FlagSet, urlUsage string) {
+	fs.StringVar(&n.url, "nats", "", urlUsage)
 	fs.StringVar(&n.creds, "creds", "", "NATS user credentials file")
 	fs.StringVar(&n.token, "token", "", "NATS authentication token")
 	fs.StringVar(&n.ca, "tls-ca", "", "CA certificate file to verify the NATS server")
@@ -46,7 +39,9 @@ func (n *natsFlags) add(fs interface {
 	fs.StringVar(&n.key, "tls-key", "", "client key file (with --tls-cert)")
 }
 
-// options turns the flags into nats.go options; errors name the flag.
+// requiredNATS is the --nats help of the commands that need a server.
+const requiredNATS = "NATS server URL (required), e.g. nats://127.0.0.1:4222"
+
 // dial checks the flags and connects, as a client called name.
 func (n *natsFlags) dial(name string, log *slog.Logger) (*nats.Conn, error) {
 	opts, err := n.options(name, log)
@@ -66,7 +61,8 @@ func (n *natsFlags) connect(opts []nats.Option) (*nats.Conn, error) {
 	return nc, nil
 }
 
-// options checks the flags and turns them into nats.go options.
+// options checks the flags and turns them into nats.go options; errors
+// name the flag.
 func (n *natsFlags) options(name string, log *slog.Logger) ([]nats.Option, error) {
 	if n.url == "" {
 		return nil, errors.New("--nats is required (e.g. --nats nats://127.0.0.1:4222)")
@@ -133,11 +129,9 @@ func rigPrefix(rig string) (string, error) {
 	return "livefield." + rig, nil
 }
 
-func runServe(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
-	c := commands[name]
-	fs := flags(name, c, stderr)
+func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
 	var nf natsFlags
-	nf.add(fs, true)
+	nf.add(fs, requiredNATS)
 	rig := fs.String("rig", "", "rig name (required); subjects are livefield.<rig>.block|frames|spikes|control")
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
