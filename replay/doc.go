@@ -5,7 +5,7 @@
 //
 // # Parts
 //
-//   - Recorder subscribes to every subject of one rig and appends each
+//   - StartRecorder subscribes to every subject of one rig and appends each
 //     message to a session.Writer with its arrival time.
 //   - Play reads a session and hands each record to a callback, paced by the
 //     original arrival times scaled by a speed (or not at all), optionally
@@ -14,8 +14,10 @@
 //     block, without NATS; its update clock is the records' arrival time, so
 //     a full-speed replay computes what the live run computed.
 //   - Practice replays a block with the future hidden, waits for the
-//     trainee's stop, finishes the block at full speed and scores the
-//     decision (Report).
+//     trainee's stop and finishes the block at full speed; Score, a pure
+//     function of the estimates at the stop, at the end and when the block
+//     rule was met, grades the decision (Report). Its HTTP endpoints are
+//     display.PracticeHandler.
 //   - Export runs a whole session at full speed and writes every unit's
 //     estimates as NPY and JSON files and a PNG contact sheet.
 //

@@ -14,6 +14,7 @@ import (
 	"testing"
 	"time"
 
+	"livefield/display"
 	"livefield/replay/session"
 	"livefield/stream/npy"
 	"livefield/stream/stimulus"
@@ -252,7 +253,7 @@ func TestPracticeNoStop(t *testing.T) {
 		}
 	}
 	// The endpoints serve the finished report.
-	srv := httptest.NewServer(p.Handler())
+	srv := httptest.NewServer(display.PracticeHandler(p, ""))
 	defer srv.Close()
 	resp, err := http.Get(srv.URL + "/api/practice/report")
 	if err != nil {
@@ -271,30 +272,5 @@ func TestPracticeNoStop(t *testing.T) {
 	resp.Body.Close()
 	if resp.StatusCode != http.StatusAccepted {
 		t.Errorf("POST stop: %s", resp.Status)
-	}
-}
-
-// TestPearson checks the correlation against numpy.corrcoef
-// ([1,2,3,4] with [1,2,4,3] gives 0.8 exactly: numerator 4, both sums of
-// squares 5) and its undefined cases.
-func TestPearson(t *testing.T) {
-	cases := []struct {
-		name string
-		a, b []float64
-		want float64
-	}{
-		{"worked example", []float64{1, 2, 3, 4}, []float64{1, 2, 4, 3}, 0.8},
-		{"reversed", []float64{1, 2, 3}, []float64{3, 2, 1}, -1},
-		{"constant", []float64{1, 1, 1}, []float64{1, 2, 3}, math.NaN()},
-		{"lengths differ", []float64{1, 2}, []float64{1, 2, 3}, math.NaN()},
-		{"too short", []float64{1}, []float64{1}, math.NaN()},
-	}
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			got := Pearson(floatsOf(c.a), floatsOf(c.b))
-			if math.IsNaN(c.want) != math.IsNaN(got) || (!math.IsNaN(c.want) && !near(got, c.want, 1e-15)) {
-				t.Errorf("Pearson = %v, want %v", got, c.want)
-			}
-		})
 	}
 }

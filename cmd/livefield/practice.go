@@ -12,6 +12,7 @@ import (
 	"path/filepath"
 	"strings"
 
+	"livefield/display"
 	"livefield/online"
 	"livefield/replay"
 )
@@ -71,7 +72,7 @@ func runPractice(ctx context.Context, fs *flag.FlagSet, args []string, stdout, s
 		}
 		served = make(chan error, 1)
 		go func() {
-			served <- serveHTTP(ctx, ln, p.Source(), token, io.Discard, route{"/api/practice/", p.Handler()})
+			served <- serveHTTP(ctx, ln, p.Source(), token, io.Discard, route{"/api/practice/", display.PracticeHandler(p, token)})
 		}()
 		defer func() { cancel(); <-served }()
 		fmt.Fprintf(stdout, "livefield: open http://%s/?practice=1%s ; stop with the page's Stop button, Enter here, or POST /api/practice/stop\n", ln.Addr(), tokenQuery(token))
