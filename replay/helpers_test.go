@@ -79,7 +79,7 @@ func recordSynth(t testing.TB, path string, seconds float64) []session.Record {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rec, err := Record(nc, fixturePrefix, w, clock.Now)
+	rec, err := StartRecorder(nc, fixturePrefix, w, clock.Now)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -214,5 +214,3 @@ func copyFile(t testing.TB, from, to string) {
 }
 
 func tempPath(t testing.TB, name string) string { return filepath.Join(t.TempDir(), name) }
-
-func floatsOf(v []float64) online.Floats { return online.FloatsOf(v) }

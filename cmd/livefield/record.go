@@ -40,7 +40,7 @@ func runRecord(ctx context.Context, fs *flag.FlagSet, args []string, stdout, std
 	if err != nil {
 		return fmt.Errorf("--out: %w", err)
 	}
-	rec, err := replay.Record(nc, prefix, w, nil)
+	rec, err := replay.StartRecorder(nc, prefix, w, nil)
 	if err != nil {
 		w.Close()
 		return err

@@ -97,7 +97,7 @@ func (r *recorder) wait(t *testing.T) []*nats.Msg {
 
 var testSpec = stimulus.Spec{Type: "binary", Width: 8, Height: 8, Seed: 4}
 
-func testRig(t *testing.T) *Rig {
+func testRig(t *testing.T) *Cortex {
 	t.Helper()
 	src, err := stimulus.Open(testSpec, "")
 	if err != nil {
