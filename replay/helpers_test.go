@@ -11,33 +11,20 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 
+	"livefield/internal/natstest"
 	"livefield/online"
 	"livefield/replay/session"
 	"livefield/replay/synth"
 	"livefield/stream/stimulus"
 )
 
-// startNATS runs an embedded server on a random loopback port.
+// startNATS runs an embedded server on a random loopback port and
+// connects to it.
 func startNATS(t testing.TB) *nats.Conn {
 	t.Helper()
-	srv, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go srv.Start()
-	if !srv.ReadyForConnections(10 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	t.Cleanup(srv.Shutdown)
-	nc, err := nats.Connect(srv.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return nc
+	return natstest.Start(t, natstest.Options{}).Connect(t)
 }
 
 // vclock is a virtual wall clock advanced by the publisher's sleeps.

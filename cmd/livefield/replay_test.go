@@ -13,8 +13,7 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
-
+	"livefield/internal/natstest"
 	"livefield/replay/session"
 )
 
@@ -154,28 +153,20 @@ func TestSessionCommandErrors(t *testing.T) {
 // TestRecordCommand records from an embedded server until the context ends
 // (Ctrl-C) and leaves a readable file.
 func TestRecordCommand(t *testing.T) {
-	srv, err := startEmbedded()
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer srv.close()
+	srv := natstest.Start(t, natstest.Options{})
 	path := filepath.Join(t.TempDir(), "rec.lfs")
 	ctx, cancel := context.WithCancel(context.Background())
 	var out, errs syncBuffer
 	done := make(chan int, 1)
 	go func() {
-		done <- runMain(ctx, []string{"record", "--nats", srv.url(), "--rig", "r9", "--out", path}, &out, &errs)
+		done <- runMain(ctx, []string{"record", "--nats", srv.URL(), "--rig", "r9", "--out", path}, &out, &errs)
 	}()
 	for deadline := time.Now().Add(10 * time.Second); !strings.Contains(out.String(), "recording"); time.Sleep(5 * time.Millisecond) {
 		if time.Now().After(deadline) {
 			t.Fatalf("record did not start:\n%s\n%s", out.String(), errs.String())
 		}
 	}
-	nc, err := nats.Connect(srv.url())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
+	nc := srv.Connect(t)
 	for i := 0; i < 5; i++ {
 		nc.Publish("livefield.r9.control", []byte(`{"command":"reset"}`))
 	}
