@@ -3,7 +3,6 @@ package replay
 import (
 	"context"
 	"errors"
-	"path/filepath"
 	"testing"
 	"testing/synctest"
 	"time"
@@ -80,19 +79,7 @@ func TestPracticeStopWhileWaiting(t *testing.T) {
 	// of its own left.
 	runPractice(t, time.Hour)
 	synctest.Test(t, func(t *testing.T) {
-		dir := t.TempDir()
-		twinMovie(t, dir)
-		path := filepath.Join(dir, "twin.lfs")
-		writeTwin(t, path)
-		p, err := NewPractice(PracticeOptions{Feed: FeedOptions{StimuliDir: dir}, Speed: 1})
-		if err != nil {
-			t.Fatal(err)
-		}
-		f, err := session.Open(path)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer f.Close()
+		p, f, _, _ := twinPractice(t, PracticeOptions{Speed: 1})
 		start := time.Now()
 		go func() {
 			time.Sleep(8 * time.Second)

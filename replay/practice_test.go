@@ -149,21 +149,33 @@ func writeTwin(t testing.TB, path string) (earlyPerHalf, late int) {
 	return earlyPerHalf, late
 }
 
-func runPractice(t *testing.T, stopAt time.Duration) (*Report, *Practice, int, int) {
+// twinPractice prepares a practice of the twin-half session with opt (its
+// stimulus directory filled in) and opens the session, closed when the
+// test ends. early and late are writeTwin's spike counts.
+func twinPractice(t *testing.T, opt PracticeOptions) (p *Practice, f *session.File, early, late int) {
 	t.Helper()
 	dir := t.TempDir()
 	twinMovie(t, dir)
 	path := filepath.Join(dir, "twin.lfs")
-	early, late := writeTwin(t, path)
-	p, err := NewPractice(PracticeOptions{Feed: FeedOptions{StimuliDir: dir}, StopAt: stopAt})
+	early, late = writeTwin(t, path)
+	opt.Feed.StimuliDir = dir
+	p, err := NewPractice(opt)
 	if err != nil {
 		t.Fatal(err)
 	}
-	f, err := session.Open(path)
+	f, err = session.Open(path)
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer f.Close()
+	t.Cleanup(func() { f.Close() })
+	return p, f, early, late
+}
+
+// runPractice runs a full-speed practice of the twin-half session that
+// stops by itself at stopAt.
+func runPractice(t *testing.T, stopAt time.Duration) (*Report, *Practice, int, int) {
+	t.Helper()
+	p, f, early, late := twinPractice(t, PracticeOptions{StopAt: stopAt})
 	rep, err := p.Run(context.Background(), f.Reader, "twin.lfs")
 	if err != nil {
 		t.Fatal(err)
