@@ -17,7 +17,7 @@ import (
 // referenceSession encodes seconds of the reference workload (16×16 binary
 // noise at 60 Hz, 12 lags, 384 units firing at 10 spikes/s) as the records a
 // recorder would have written: frames every 50 ms, spikes every 20 ms.
-func referenceSession(b *testing.B, seconds float64) []session.Record {
+func referenceSession(b testing.TB, seconds float64) []session.Record {
 	const units, rate, period = 384, 10.0, 1.0 / 60
 	rng := rand.New(rand.NewPCG(5, 6))
 	t0 := time.Unix(1_700_000_000, 0)
@@ -108,5 +108,32 @@ func BenchmarkReplayReference(b *testing.B) {
 			}
 			b.ReportMetric(seconds*float64(b.N)/time.Since(start).Seconds(), "x-realtime")
 		})
+	}
+}
+
+// TestWriteReferenceSession writes the reference-workload session to the
+// file named by LIVEFIELD_REFERENCE_SESSION (LIVEFIELD_REPLAY_SECONDS long,
+// 1800 s by default), for timing `livefield export` on it by hand against
+// testdata/golden/numpy_batch_ridge.py. Skipped unless the variable is set.
+func TestWriteReferenceSession(t *testing.T) {
+	path := os.Getenv("LIVEFIELD_REFERENCE_SESSION")
+	if path == "" {
+		t.Skip("set LIVEFIELD_REFERENCE_SESSION=FILE to write the reference session")
+	}
+	seconds := 1800.0
+	if v, err := strconv.ParseFloat(os.Getenv("LIVEFIELD_REPLAY_SECONDS"), 64); err == nil && v > 0 {
+		seconds = v
+	}
+	w, err := session.Create(path, session.Header{Rig: "ref", Prefix: "livefield.ref", Created: time.Unix(1_700_000_000, 0).UTC()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range referenceSession(t, seconds) {
+		if err := w.Write(r); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
 	}
 }
