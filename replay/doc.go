@@ -12,7 +12,9 @@
 //     starting part-way through while keeping the block start.
 //   - Feeder decodes messages, bins them and runs one online.Mapper per
 //     block, without NATS; its update clock is the records' arrival time, so
-//     a full-speed replay computes what the live run computed.
+//     a full-speed replay computes what the live run computed. FeedSession
+//     is the full-speed pass with a progress callback; with FinalOnly the
+//     estimates are updated once at each block end.
 //   - Practice replays a block with the future hidden, waits for the
 //     trainee's stop and finishes the block at full speed; Score, a pure
 //     function of the estimates at the stop, at the end and when the block
