@@ -39,7 +39,7 @@ type PracticeOptions struct {
 }
 
 // Practice replays one block with the future hidden and scores the
-// trainee's stop. Stop, State and Report may be called from any goroutine;
+// trainee's stop. Stop, State, Report and Result may be called from any goroutine;
 // Run from one.
 type Practice struct {
 	opt    PracticeOptions
