@@ -5,8 +5,8 @@
 //
 // # Parts
 //
-//   - StartRecorder subscribes to every subject of one rig and appends each
-//     message to a session.Writer with its arrival time.
+//   - A Recorder (StartRecorder) subscribes to every subject of one rig and
+//     appends each message to a session.Writer with its arrival time.
 //   - Play reads a session and hands each record to a callback, paced by the
 //     original arrival times scaled by a speed (or not at all), optionally
 //     starting part-way through while keeping the block start.
@@ -20,8 +20,9 @@
 //     function of the estimates at the stop, at the end and when the block
 //     rule was met, grades the decision (Report). Its HTTP endpoints are
 //     display.PracticeHandler.
-//   - Export runs a whole session at full speed and writes every unit's
-//     estimates as NPY and JSON files and a PNG contact sheet.
+//   - Export runs a whole session at full speed (every bin, then one update
+//     at the block end) and writes every unit's estimates as NPY and JSON
+//     files and a PNG contact sheet.
 //
 // # Goroutines
 //
