@@ -196,3 +196,35 @@ func TestRecordCommand(t *testing.T) {
 		t.Errorf("header %+v", h)
 	}
 }
+
+// TestReplayWithPage replays a short session, timed, through the embedded
+// server into the live ingest: the summary after the last message counts
+// every message, and the page stays up until the context ends.
+func TestReplayWithPage(t *testing.T) {
+	path := shortSession(t, 3)
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	var out, errs syncBuffer
+	done := make(chan int, 1)
+	go func() {
+		done <- runMain(ctx, []string{"replay", path, "--speed", "20", "--http", "127.0.0.1:0"}, &out, &errs)
+	}()
+	finished := regexp.MustCompile(`replay finished: (\d+) messages`)
+	for deadline := time.Now().Add(30 * time.Second); !finished.MatchString(out.String()); time.Sleep(10 * time.Millisecond) {
+		if time.Now().After(deadline) {
+			t.Fatalf("no end of the replay after 30 s:\n%s\n%s", out.String(), errs.String())
+		}
+	}
+	if !regexp.MustCompile(`s of data, [1-9]\d* units`).MatchString(out.String()) {
+		t.Errorf("summary without units:\n%s", out.String())
+	}
+	select {
+	case code := <-done:
+		t.Fatalf("replay ended (exit %d) before the context:\n%s", code, out.String())
+	default:
+	}
+	cancel()
+	if code := <-done; code != 0 {
+		t.Fatalf("exit %d:\n%s\n%s", code, out.String(), errs.String())
+	}
+}
