@@ -9,6 +9,8 @@
 // websocket fan-out (hub.go), the embedded page (page.go, web/), the
 // server-side PNG renderers (png.go), the NPY and JSON exports (export.go),
 // and Server (server.go), which mounts them all behind the token guard.
+// The endpoints of a practice run (practice.go) are mounted beside Server
+// by the command that runs the practice.
 //
 // # Goroutines
 //

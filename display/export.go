@@ -52,7 +52,7 @@ func WriteRidgeNPY(w io.Writer, s *online.Snapshot, id string) error {
 	return npy.Write(w, shape, data)
 }
 
-// Export serves the downloads of the current estimates:
+// ExportHandler serves the downloads of the current estimates:
 //
 //	GET /export/overview.png      every unit's map at its peak lag (RenderOverview)
 //	GET /export/population.png    reliable units' fields and the aperture (RenderPopulation)
@@ -62,7 +62,7 @@ func WriteRidgeNPY(w io.Writer, s *online.Snapshot, id string) error {
 //
 // A response is rendered completely before it is sent, so a failure is a
 // clean JSON error. The handler is safe for concurrent use.
-func Export(src SnapshotSource) http.Handler {
+func ExportHandler(src SnapshotSource) http.Handler {
 	mux := http.NewServeMux()
 	picture := func(name string, render func(*bytes.Buffer, *online.Snapshot) error) http.HandlerFunc {
 		return func(w http.ResponseWriter, r *http.Request) {
@@ -113,6 +113,12 @@ func Export(src SnapshotSource) http.Handler {
 	})
 	return mux
 }
+
+// Export is the former name of ExportHandler.
+//
+// Deprecated: use ExportHandler; Export stays until the server that
+// mounts it is changed.
+func Export(src SnapshotSource) http.Handler { return ExportHandler(src) }
 
 func validID(id string) bool { return id != "" && len(id) <= MaxIDLength }
 

@@ -5,19 +5,24 @@
 //
 // # Parts
 //
-//   - Recorder subscribes to every subject of one rig and appends each
-//     message to a session.Writer with its arrival time.
+//   - A Recorder (StartRecorder) subscribes to every subject of one rig and
+//     appends each message to a session.Writer with its arrival time.
 //   - Play reads a session and hands each record to a callback, paced by the
 //     original arrival times scaled by a speed (or not at all), optionally
 //     starting part-way through while keeping the block start.
 //   - Feeder decodes messages, bins them and runs one online.Mapper per
 //     block, without NATS; its update clock is the records' arrival time, so
-//     a full-speed replay computes what the live run computed.
+//     a full-speed replay computes what the live run computed. FeedSession
+//     is the full-speed pass with a progress callback; with FinalOnly the
+//     estimates are updated once at each block end.
 //   - Practice replays a block with the future hidden, waits for the
-//     trainee's stop, finishes the block at full speed and scores the
-//     decision (Report).
-//   - Export runs a whole session at full speed and writes every unit's
-//     estimates as NPY and JSON files and a PNG contact sheet.
+//     trainee's stop and finishes the block at full speed; Score, a pure
+//     function of the estimates at the stop, at the end and when the block
+//     rule was met, grades the decision (Report). Its HTTP endpoints are
+//     display.PracticeHandler.
+//   - Export runs a whole session at full speed (every bin, then one update
+//     at the block end) and writes every unit's estimates as NPY and JSON
+//     files and a PNG contact sheet.
 //
 // # Goroutines
 //

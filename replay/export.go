@@ -25,7 +25,7 @@ type ExportOptions struct {
 	// OnDamage is told of damaged spans of the file (they are skipped).
 	OnDamage func(*session.CorruptError)
 	// Progress, when set, is called about once per ProgressEvery of wall
-	// time with the counts so far.
+	// time with the counts so far, and once at the end (PassOptions).
 	Progress      func(FeedStats)
 	ProgressEvery time.Duration
 }
@@ -70,9 +70,9 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 	var finalBlock string
 	fo := opt.Feed
 	if fo.UpdateEvery == 0 {
-		// Only the final estimates are written, and the last update folds
-		// in every bin: fewer intermediate updates make the pass faster.
-		fo.UpdateEvery = 10 * time.Second
+		// Only the final estimates are written: feed every bin, then one
+		// update at the block end.
+		fo.UpdateEvery = FinalOnly
 	}
 	user := fo.OnBlockEnd
 	fo.OnBlockEnd = func(block string, s *online.Snapshot, at time.Time) {
@@ -87,20 +87,7 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 	if err != nil {
 		return out, err
 	}
-	every := opt.ProgressEvery
-	if every <= 0 {
-		every = time.Second
-	}
-	next := time.Now().Add(every)
-	var played PlayStats
-	played, err = Play(ctx, r, PlayOptions{OnDamage: opt.OnDamage}, func(rec session.Record) error {
-		_ = f.Record(rec) // refusals are counted in the feeder's stats
-		if opt.Progress != nil && time.Now().After(next) {
-			next = time.Now().Add(every)
-			opt.Progress(f.Stats())
-		}
-		return nil
-	})
+	played, err := f.FeedSession(ctx, r, PassOptions{OnDamage: opt.OnDamage, Progress: opt.Progress, ProgressEvery: opt.ProgressEvery})
 	out.Records, out.Damaged = played.Records, played.Damaged
 	if err != nil {
 		return out, err

@@ -11,33 +11,20 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 
+	"livefield/internal/natstest"
 	"livefield/online"
 	"livefield/replay/session"
 	"livefield/replay/synth"
 	"livefield/stream/stimulus"
 )
 
-// startNATS runs an embedded server on a random loopback port.
+// startNATS runs an embedded server on a random loopback port and
+// connects to it.
 func startNATS(t testing.TB) *nats.Conn {
 	t.Helper()
-	srv, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoLog: true, NoSigs: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go srv.Start()
-	if !srv.ReadyForConnections(10 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	t.Cleanup(srv.Shutdown)
-	nc, err := nats.Connect(srv.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return nc
+	return natstest.Start(t, natstest.Options{}).Connect(t)
 }
 
 // vclock is a virtual wall clock advanced by the publisher's sleeps.
@@ -79,7 +66,7 @@ func recordSynth(t testing.TB, path string, seconds float64) []session.Record {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rec, err := Record(nc, fixturePrefix, w, clock.Now)
+	rec, err := StartRecorder(nc, fixturePrefix, w, clock.Now)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -166,7 +153,7 @@ func feedAll(t testing.TB, recs []session.Record, opt FeedOptions) *online.Snaps
 		t.Fatal(err)
 	}
 	for _, r := range recs {
-		if err := f.Record(r); err != nil {
+		if err := f.FeedRecord(r); err != nil {
 			t.Fatalf("record refused: %v", err)
 		}
 	}
@@ -214,5 +201,3 @@ func copyFile(t testing.TB, from, to string) {
 }
 
 func tempPath(t testing.TB, name string) string { return filepath.Join(t.TempDir(), name) }
-
-func floatsOf(v []float64) online.Floats { return online.FloatsOf(v) }

@@ -2,12 +2,9 @@ package replay
 
 import (
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"math"
-	"net/http"
-	"sort"
 	"sync"
 	"time"
 
@@ -41,65 +38,8 @@ type PracticeOptions struct {
 	Wait func(ctx context.Context, d time.Duration, stop <-chan struct{}) error
 }
 
-// UnitScore compares one unit's estimate at the stop with its estimate at
-// the end of the block.
-type UnitScore struct {
-	ID                string        `json:"id"`
-	SpikesAtStop      int64         `json:"spikes_at_stop"`
-	SpikesFull        int64         `json:"spikes_full"`
-	StatusAtStop      online.Status `json:"status_at_stop"`
-	StatusFull        online.Status `json:"status_full"`
-	ReliabilityAtStop online.Float  `json:"reliability_at_stop"`
-	ReliabilityFull   online.Float  `json:"reliability_full"`
-	// Pearson correlation over all lags and pixels of the estimate at the
-	// stop with the full-block estimate (null when the unit had no
-	// estimate at the stop or either is constant).
-	Ridge online.Float `json:"ridge_correlation"`
-	STA   online.Float `json:"sta_correlation"`
-	// RidgeAtRule is the same at the moment the block rule was first met.
-	RidgeAtRule online.Float `json:"ridge_correlation_at_rule"`
-}
-
-// Overall sums the unit scores up.
-type Overall struct {
-	Units          int          `json:"units"`  // units in the full block
-	Scored         int          `json:"scored"` // units with a ridge correlation
-	MeanRidge      online.Float `json:"mean_ridge_correlation"`
-	MinRidge       online.Float `json:"min_ridge_correlation"`
-	MeanSTA        online.Float `json:"mean_sta_correlation"`
-	MeanRidgeRule  online.Float `json:"mean_ridge_correlation_at_rule"`
-	ReliableAtStop int          `json:"reliable_at_stop"`
-	ReliableFull   int          `json:"reliable_full"`
-}
-
-// Report is the score of one practice. Times are seconds of arrival time
-// after the block start.
-type Report struct {
-	State   string `json:"state"`
-	Session string `json:"session,omitempty"`
-	Block   string `json:"block"`
-	// Stopped is false when the trainee let the block run to its end.
-	Stopped       bool         `json:"stopped"`
-	StopS         online.Float `json:"stop_s"`
-	BlockS        online.Float `json:"block_s"`
-	SavedS        online.Float `json:"saved_s"` // BlockS − StopS
-	SavedFraction online.Float `json:"saved_fraction"`
-	// What the block rule (the summary's ready flag and ETA) said at the
-	// stop, and when it was first met during the whole block (null: never).
-	ReadyAtStop bool         `json:"ready_at_stop"`
-	ETAAtStopS  online.Float `json:"eta_at_stop_s"`
-	RuleStopS   online.Float `json:"rule_stop_s"`
-	RuleSavedS  online.Float `json:"rule_saved_s"`
-	// LeadS is RuleStopS − StopS: positive when the trainee stopped before
-	// the rule would have.
-	LeadS   online.Float `json:"lead_s"`
-	Units   []UnitScore  `json:"units"`
-	Overall Overall      `json:"overall"`
-	Summary string       `json:"summary"`
-}
-
 // Practice replays one block with the future hidden and scores the
-// trainee's stop. Stop, State and Report may be called from any goroutine;
+// trainee's stop. Stop, State, Report and Result may be called from any goroutine;
 // Run from one.
 type Practice struct {
 	opt    PracticeOptions
@@ -118,15 +58,12 @@ type Practice struct {
 	runMu      sync.Mutex
 	block      string
 	blockStart time.Time
-	ruleSnap   *online.Snapshot
-	ruleS      float64
-	fullSnap   *online.Snapshot
-	blockS     float64
+	rule       Moment // when the block rule was first met
+	full       Moment // the block's end
 
 	// Owned by Run.
-	lastAt   time.Time
-	stopSnap *online.Snapshot
-	stopS    float64
+	lastAt time.Time
+	stop   Moment // the trainee's stop
 }
 
 // NewPractice prepares a practice run.
@@ -137,7 +74,7 @@ func NewPractice(opt PracticeOptions) (*Practice, error) {
 	if opt.Speed == 0 && opt.StopAt <= 0 {
 		return nil, errors.New("replay: a practice at full speed needs a stop time")
 	}
-	p := &Practice{opt: opt, stopCh: make(chan struct{}), state: PracticeRunning, ruleS: math.NaN()}
+	p := &Practice{opt: opt, stopCh: make(chan struct{}), state: PracticeRunning}
 	fo := opt.Feed
 	user := fo.OnUpdate
 	fo.OnUpdate = func(block string, s *online.Snapshot, at time.Time) {
@@ -181,6 +118,15 @@ func (p *Practice) Report() *Report {
 	return p.report
 }
 
+// Result is the finished report, or nil before it is done (for
+// display.PracticeHandler).
+func (p *Practice) Result() any {
+	if r := p.Report(); r != nil {
+		return r
+	}
+	return nil
+}
+
 func (p *Practice) setState(s string) {
 	p.mu.Lock()
 	p.state = s
@@ -199,19 +145,19 @@ func (p *Practice) stopped() bool {
 func (p *Practice) onUpdate(block string, s *online.Snapshot, at time.Time) {
 	p.runMu.Lock()
 	defer p.runMu.Unlock()
-	if p.block == "" || block != p.block || p.ruleSnap != nil {
+	if p.block == "" || block != p.block || p.rule.Snap != nil {
 		return
 	}
 	if s.Summary.Ready {
-		p.ruleSnap, p.ruleS = s, at.Sub(p.blockStart).Seconds()
+		p.rule = Moment{s, at.Sub(p.blockStart).Seconds()}
 	}
 }
 
 func (p *Practice) onBlockEnd(block string, s *online.Snapshot, at time.Time) {
 	p.runMu.Lock()
 	defer p.runMu.Unlock()
-	if p.block != "" && block == p.block && p.fullSnap == nil {
-		p.fullSnap, p.blockS = s, at.Sub(p.blockStart).Seconds()
+	if p.block != "" && block == p.block && p.full.Snap == nil {
+		p.full = Moment{s, at.Sub(p.blockStart).Seconds()}
 	}
 }
 
@@ -241,7 +187,7 @@ func (p *Practice) Run(ctx context.Context, r *session.Reader, name string) (*Re
 		p.runMu.Lock()
 		block, start := p.block, p.blockStart
 		p.runMu.Unlock()
-		if block != "" && p.stopSnap == nil {
+		if block != "" && p.stop.Snap == nil {
 			auto := p.opt.StopAt > 0 && rec.At.Sub(start) > p.opt.StopAt
 			if auto {
 				p.Stop()
@@ -250,7 +196,7 @@ func (p *Practice) Run(ctx context.Context, r *session.Reader, name string) (*Re
 				p.markStop(start, auto)
 			}
 		}
-		ferr := p.feeder.Record(rec)
+		ferr := p.feeder.FeedRecord(rec)
 		if block == "" && ferr == nil && rec.Subject == wire.SubjectBlock {
 			if id := p.feeder.Stats().Block; id != "" {
 				p.runMu.Lock()
@@ -260,7 +206,7 @@ func (p *Practice) Run(ctx context.Context, r *session.Reader, name string) (*Re
 		}
 		p.lastAt = rec.At
 		p.runMu.Lock()
-		done := p.fullSnap != nil
+		done := p.full.Snap != nil
 		p.runMu.Unlock()
 		if done {
 			return errBlockDone
@@ -280,10 +226,11 @@ func (p *Practice) Run(ctx context.Context, r *session.Reader, name string) (*Re
 	p.feeder.Finish()
 	p.runMu.Lock()
 	defer p.runMu.Unlock()
-	if p.fullSnap == nil {
+	if p.full.Snap == nil {
 		return nil, fmt.Errorf("replay: block %q did not finish", p.block)
 	}
-	rep := p.score(name)
+	rep := Score(p.stop, p.full, p.rule)
+	rep.State, rep.Session = PracticeDone, name
 	p.mu.Lock()
 	p.report, p.state = rep, PracticeDone
 	p.mu.Unlock()
@@ -293,10 +240,9 @@ func (p *Practice) Run(ctx context.Context, r *session.Reader, name string) (*Re
 // markStop keeps what the trainee saw at the stop. The stop time is StopAt
 // for a scripted stop, else the arrival time of the last record shown.
 func (p *Practice) markStop(blockStart time.Time, auto bool) {
-	p.stopSnap = p.feeder.Snapshot()
-	p.stopS = p.lastAt.Sub(blockStart).Seconds()
+	p.stop = Moment{p.feeder.Snapshot(), p.lastAt.Sub(blockStart).Seconds()}
 	if auto {
-		p.stopS = p.opt.StopAt.Seconds()
+		p.stop.S = p.opt.StopAt.Seconds()
 	}
 	p.setState(PracticeFinishing)
 }
@@ -311,178 +257,4 @@ func sleepUnless(ctx context.Context, d time.Duration, stop <-chan struct{}) err
 		return ctx.Err()
 	}
 	return nil
-}
-
-// score is called with p.runMu held.
-func (p *Practice) score(name string) *Report {
-	nan := online.Float(math.NaN())
-	rep := &Report{State: PracticeDone, Session: name, Block: p.block, BlockS: online.Float(p.blockS)}
-	stop := p.stopSnap
-	if stop == nil {
-		// Never stopped: the decision was to run the whole block.
-		stop, p.stopS = p.fullSnap, p.blockS
-	} else {
-		rep.Stopped = true
-	}
-	rep.StopS = online.Float(p.stopS)
-	rep.SavedS = online.Float(p.blockS - p.stopS)
-	rep.SavedFraction = nan
-	if p.blockS > 0 {
-		rep.SavedFraction = online.Float((p.blockS - p.stopS) / p.blockS)
-	}
-	rep.ReadyAtStop = stop.Summary.Ready
-	rep.ETAAtStopS = stop.Summary.ETA
-	rep.RuleStopS, rep.RuleSavedS, rep.LeadS = nan, nan, nan
-	if p.ruleSnap != nil {
-		rep.RuleStopS = online.Float(p.ruleS)
-		rep.RuleSavedS = online.Float(p.blockS - p.ruleS)
-		rep.LeadS = online.Float(p.ruleS - p.stopS)
-	}
-	full := p.fullSnap
-	ids := make([]string, 0, len(full.Units))
-	for _, u := range full.Units {
-		ids = append(ids, u.ID)
-	}
-	sort.Strings(ids)
-	var sumR, sumS, sumRule float64
-	nR, nS, nRule := 0, 0, 0
-	minR := math.Inf(1)
-	for _, id := range ids {
-		fd, _ := full.Detail(id)
-		if fd == nil {
-			continue
-		}
-		u := UnitScore{
-			ID: id, SpikesFull: fd.Spikes, StatusFull: fd.Status, ReliabilityFull: fd.Reliability,
-			StatusAtStop: online.Collecting, ReliabilityAtStop: nan, Ridge: nan, STA: nan, RidgeAtRule: nan,
-		}
-		if fd.Status == online.Reliable {
-			rep.Overall.ReliableFull++
-		}
-		if sd, ok := stop.Detail(id); ok {
-			u.SpikesAtStop, u.StatusAtStop, u.ReliabilityAtStop = sd.Spikes, sd.Status, sd.Reliability
-			u.Ridge = online.Float(Pearson(sd.Ridge, fd.Ridge))
-			u.STA = online.Float(Pearson(sd.STA, fd.STA))
-			if sd.Status == online.Reliable {
-				rep.Overall.ReliableAtStop++
-			}
-		}
-		if p.ruleSnap != nil {
-			if rd, ok := p.ruleSnap.Detail(id); ok {
-				u.RidgeAtRule = online.Float(Pearson(rd.Ridge, fd.Ridge))
-			}
-		}
-		if v := float64(u.Ridge); !math.IsNaN(v) {
-			sumR += v
-			nR++
-			minR = math.Min(minR, v)
-		}
-		if v := float64(u.STA); !math.IsNaN(v) {
-			sumS += v
-			nS++
-		}
-		if v := float64(u.RidgeAtRule); !math.IsNaN(v) {
-			sumRule += v
-			nRule++
-		}
-		rep.Units = append(rep.Units, u)
-	}
-	o := &rep.Overall
-	o.Units, o.Scored = len(rep.Units), nR
-	o.MeanRidge, o.MinRidge, o.MeanSTA, o.MeanRidgeRule = nan, nan, nan, nan
-	if nR > 0 {
-		o.MeanRidge, o.MinRidge = online.Float(sumR/float64(nR)), online.Float(minR)
-	}
-	if nS > 0 {
-		o.MeanSTA = online.Float(sumS / float64(nS))
-	}
-	if nRule > 0 {
-		o.MeanRidgeRule = online.Float(sumRule / float64(nRule))
-	}
-	rep.Summary = summarize(rep)
-	return rep
-}
-
-func summarize(r *Report) string {
-	var when string
-	switch {
-	case !r.Stopped:
-		when = fmt.Sprintf("ran the whole block (%.1f s)", float64(r.BlockS))
-	default:
-		when = fmt.Sprintf("stopped at %.1f s of %.1f s, saving %.1f s", float64(r.StopS), float64(r.BlockS), float64(r.SavedS))
-	}
-	rule := "the block rule was never met"
-	if !math.IsNaN(float64(r.RuleStopS)) {
-		switch lead := float64(r.LeadS); {
-		case lead > 0:
-			rule = fmt.Sprintf("the block rule was met at %.1f s, %.1f s after the stop", float64(r.RuleStopS), lead)
-		case lead < 0:
-			rule = fmt.Sprintf("the block rule was met at %.1f s, %.1f s before the stop", float64(r.RuleStopS), -lead)
-		default:
-			rule = fmt.Sprintf("the block rule was met at %.1f s, at the stop", float64(r.RuleStopS))
-		}
-	}
-	corr := "no unit had an estimate at the stop"
-	if r.Overall.Scored > 0 {
-		corr = fmt.Sprintf("estimates at the stop correlate %.3f on average (lowest %.3f) with the full block over %d units",
-			float64(r.Overall.MeanRidge), float64(r.Overall.MinRidge), r.Overall.Scored)
-	}
-	return fmt.Sprintf("block %s: %s; %s; %s", r.Block, when, rule, corr)
-}
-
-// Pearson is the sample correlation coefficient of a and b (NaN when the
-// lengths differ, are below 2, or either is constant or not finite).
-func Pearson(a, b online.Floats) float64 {
-	if len(a) != len(b) || len(a) < 2 {
-		return math.NaN()
-	}
-	var ma, mb float64
-	for i := range a {
-		ma += float64(a[i])
-		mb += float64(b[i])
-	}
-	n := float64(len(a))
-	ma, mb = ma/n, mb/n
-	var sab, saa, sbb float64
-	for i := range a {
-		x, y := float64(a[i])-ma, float64(b[i])-mb
-		sab += x * y
-		saa += x * x
-		sbb += y * y
-	}
-	if !(saa > 0 && sbb > 0) || math.IsInf(saa, 0) || math.IsInf(sbb, 0) {
-		return math.NaN()
-	}
-	return math.Max(-1, math.Min(1, sab/math.Sqrt(saa*sbb)))
-}
-
-// Handler serves the practice endpoints:
-//
-//	POST /api/practice/stop     the trainee's stop (202 while running)
-//	GET  /api/practice/report   {"state": …} while running, the Report when done
-func (p *Practice) Handler() http.Handler {
-	mux := http.NewServeMux()
-	mux.HandleFunc("POST /api/practice/stop", func(w http.ResponseWriter, _ *http.Request) {
-		p.Stop()
-		writeJSON(w, http.StatusAccepted, map[string]string{"state": p.State()})
-	})
-	mux.HandleFunc("GET /api/practice/report", func(w http.ResponseWriter, _ *http.Request) {
-		if rep := p.Report(); rep != nil {
-			writeJSON(w, http.StatusOK, rep)
-			return
-		}
-		writeJSON(w, http.StatusOK, map[string]string{"state": p.State()})
-	})
-	return mux
-}
-
-func writeJSON(w http.ResponseWriter, code int, v any) {
-	b, err := json.MarshalIndent(v, "", "  ")
-	if err != nil {
-		http.Error(w, `{"error":"replay: encoding the report failed"}`, http.StatusInternalServerError)
-		return
-	}
-	w.Header().Set("Content-Type", "application/json")
-	w.WriteHeader(code)
-	_, _ = w.Write(append(b, '\n'))
 }

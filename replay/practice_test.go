@@ -14,6 +14,7 @@ import (
 	"testing"
 	"time"
 
+	"livefield/display"
 	"livefield/replay/session"
 	"livefield/stream/npy"
 	"livefield/stream/stimulus"
@@ -148,21 +149,33 @@ func writeTwin(t testing.TB, path string) (earlyPerHalf, late int) {
 	return earlyPerHalf, late
 }
 
-func runPractice(t *testing.T, stopAt time.Duration) (*Report, *Practice, int, int) {
+// twinPractice prepares a practice of the twin-half session with opt (its
+// stimulus directory filled in) and opens the session, closed when the
+// test ends. early and late are writeTwin's spike counts.
+func twinPractice(t *testing.T, opt PracticeOptions) (p *Practice, f *session.File, early, late int) {
 	t.Helper()
 	dir := t.TempDir()
 	twinMovie(t, dir)
 	path := filepath.Join(dir, "twin.lfs")
-	early, late := writeTwin(t, path)
-	p, err := NewPractice(PracticeOptions{Feed: FeedOptions{StimuliDir: dir}, StopAt: stopAt})
+	early, late = writeTwin(t, path)
+	opt.Feed.StimuliDir = dir
+	p, err := NewPractice(opt)
 	if err != nil {
 		t.Fatal(err)
 	}
-	f, err := session.Open(path)
+	f, err = session.Open(path)
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer f.Close()
+	t.Cleanup(func() { f.Close() })
+	return p, f, early, late
+}
+
+// runPractice runs a full-speed practice of the twin-half session that
+// stops by itself at stopAt.
+func runPractice(t *testing.T, stopAt time.Duration) (*Report, *Practice, int, int) {
+	t.Helper()
+	p, f, early, late := twinPractice(t, PracticeOptions{StopAt: stopAt})
 	rep, err := p.Run(context.Background(), f.Reader, "twin.lfs")
 	if err != nil {
 		t.Fatal(err)
@@ -252,7 +265,7 @@ func TestPracticeNoStop(t *testing.T) {
 		}
 	}
 	// The endpoints serve the finished report.
-	srv := httptest.NewServer(p.Handler())
+	srv := httptest.NewServer(display.PracticeHandler(p, ""))
 	defer srv.Close()
 	resp, err := http.Get(srv.URL + "/api/practice/report")
 	if err != nil {
@@ -271,30 +284,5 @@ func TestPracticeNoStop(t *testing.T) {
 	resp.Body.Close()
 	if resp.StatusCode != http.StatusAccepted {
 		t.Errorf("POST stop: %s", resp.Status)
-	}
-}
-
-// TestPearson checks the correlation against numpy.corrcoef
-// ([1,2,3,4] with [1,2,4,3] gives 0.8 exactly: numerator 4, both sums of
-// squares 5) and its undefined cases.
-func TestPearson(t *testing.T) {
-	cases := []struct {
-		name string
-		a, b []float64
-		want float64
-	}{
-		{"worked example", []float64{1, 2, 3, 4}, []float64{1, 2, 4, 3}, 0.8},
-		{"reversed", []float64{1, 2, 3}, []float64{3, 2, 1}, -1},
-		{"constant", []float64{1, 1, 1}, []float64{1, 2, 3}, math.NaN()},
-		{"lengths differ", []float64{1, 2}, []float64{1, 2, 3}, math.NaN()},
-		{"too short", []float64{1}, []float64{1}, math.NaN()},
-	}
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			got := Pearson(floatsOf(c.a), floatsOf(c.b))
-			if math.IsNaN(c.want) != math.IsNaN(got) || (!math.IsNaN(c.want) && !near(got, c.want, 1e-15)) {
-				t.Errorf("Pearson = %v, want %v", got, c.want)
-			}
-		})
 	}
 }

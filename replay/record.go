@@ -44,12 +44,12 @@ type Recorder struct {
 	cerr   error
 }
 
-// Record subscribes to prefix+".>" on nc and appends each message to w,
+// StartRecorder subscribes to prefix+".>" on nc and appends each message to w,
 // stamped with now() (time.Now when nil) as it arrives. At each block end
 // the file is synced to disk. The writer is closed by Close.
-func Record(nc *nats.Conn, prefix string, w *session.Writer, now func() time.Time) (*Recorder, error) {
+func StartRecorder(nc *nats.Conn, prefix string, w *session.Writer, now func() time.Time) (*Recorder, error) {
 	if nc == nil || w == nil {
-		return nil, errors.New("replay: Record needs a NATS connection and a session writer")
+		return nil, errors.New("replay: StartRecorder needs a NATS connection and a session writer")
 	}
 	if prefix == "" || strings.ContainsAny(prefix, "*> \t\r\n") || strings.HasSuffix(prefix, ".") {
 		return nil, fmt.Errorf("replay: bad subject prefix %q", prefix)

@@ -44,7 +44,7 @@ func TestRecordDiskFull(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rec, err := Record(nc, "livefield.r1", w, nil)
+	rec, err := StartRecorder(nc, "livefield.r1", w, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -108,7 +108,7 @@ func TestRecordCounts(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rec, err := Record(nc, "livefield.r2", w, nil)
+	rec, err := StartRecorder(nc, "livefield.r2", w, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -147,7 +147,7 @@ func TestRecordCounts(t *testing.T) {
 			t.Errorf("record %d arrived before record %d", i, i-1)
 		}
 	}
-	if _, err := Record(nc, "livefield.r2.>", w, nil); err == nil {
+	if _, err := StartRecorder(nc, "livefield.r2.>", w, nil); err == nil {
 		t.Error("a wildcard prefix was accepted")
 	}
 }
@@ -214,7 +214,7 @@ func BenchmarkReplayFullSpeed(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		st, err := Play(context.Background(), f.Reader, PlayOptions{}, func(r session.Record) error { _ = feeder.Record(r); return nil })
+		st, err := Play(context.Background(), f.Reader, PlayOptions{}, func(r session.Record) error { _ = feeder.FeedRecord(r); return nil })
 		if err != nil {
 			b.Fatal(err)
 		}

@@ -3,7 +3,6 @@ package replay
 import (
 	"cmp"
 	"encoding/json"
-	"fmt"
 	"math/rand/v2"
 	"os"
 	"slices"
@@ -18,7 +17,7 @@ import (
 // referenceSession encodes seconds of the reference workload (16×16 binary
 // noise at 60 Hz, 12 lags, 384 units firing at 10 spikes/s) as the records a
 // recorder would have written: frames every 50 ms, spikes every 20 ms.
-func referenceSession(b *testing.B, seconds float64) []session.Record {
+func referenceSession(b testing.TB, seconds float64) []session.Record {
 	const units, rate, period = 384, 10.0, 1.0 / 60
 	rng := rand.New(rand.NewPCG(5, 6))
 	t0 := time.Unix(1_700_000_000, 0)
@@ -75,7 +74,8 @@ func referenceSession(b *testing.B, seconds float64) []session.Record {
 
 // BenchmarkReplayReference feeds a recorded reference-workload session to
 // the mapper at full speed, updating the estimates every second of session
-// time (as live) or every ten seconds (as `replay --speed max` does), and
+// time (as live) or only at the block end (FinalOnly, as `replay --speed
+// max` and export do), and
 // reports seconds of session per second of compute. The session is 120 s
 // long; set LIVEFIELD_REPLAY_SECONDS=1800 for the 30-minute block.
 func BenchmarkReplayReference(b *testing.B) {
@@ -84,8 +84,12 @@ func BenchmarkReplayReference(b *testing.B) {
 		seconds = v
 	}
 	recs := referenceSession(b, seconds)
-	for _, every := range []time.Duration{time.Second, 10 * time.Second} {
-		b.Run(fmt.Sprintf("update=%v", every), func(b *testing.B) {
+	for _, c := range []struct {
+		name  string
+		every time.Duration
+	}{{"update=1s", time.Second}, {"update=final", FinalOnly}} {
+		every := c.every
+		b.Run(c.name, func(b *testing.B) {
 			b.ReportAllocs()
 			start := time.Now()
 			for range b.N {
@@ -94,7 +98,7 @@ func BenchmarkReplayReference(b *testing.B) {
 					b.Fatal(err)
 				}
 				for _, r := range recs {
-					if err := f.Record(r); err != nil {
+					if err := f.FeedRecord(r); err != nil {
 						b.Fatal(err)
 					}
 				}
@@ -104,5 +108,32 @@ func BenchmarkReplayReference(b *testing.B) {
 			}
 			b.ReportMetric(seconds*float64(b.N)/time.Since(start).Seconds(), "x-realtime")
 		})
+	}
+}
+
+// TestWriteReferenceSession writes the reference-workload session to the
+// file named by LIVEFIELD_REFERENCE_SESSION (LIVEFIELD_REPLAY_SECONDS long,
+// 1800 s by default), for timing `livefield export` on it by hand against
+// testdata/golden/numpy_batch_ridge.py. Skipped unless the variable is set.
+func TestWriteReferenceSession(t *testing.T) {
+	path := os.Getenv("LIVEFIELD_REFERENCE_SESSION")
+	if path == "" {
+		t.Skip("set LIVEFIELD_REFERENCE_SESSION=FILE to write the reference session")
+	}
+	seconds := 1800.0
+	if v, err := strconv.ParseFloat(os.Getenv("LIVEFIELD_REPLAY_SECONDS"), 64); err == nil && v > 0 {
+		seconds = v
+	}
+	w, err := session.Create(path, session.Header{Rig: "ref", Prefix: "livefield.ref", Created: time.Unix(1_700_000_000, 0).UTC()})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range referenceSession(t, seconds) {
+		if err := w.Write(r); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
 	}
 }

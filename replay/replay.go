@@ -29,7 +29,7 @@ type FeedOptions struct {
 	// (binning.DefaultGrace when 0).
 	Grace float64
 	// UpdateEvery is the arrival-time interval between estimate updates
-	// (DefaultUpdateEvery when 0).
+	// (DefaultUpdateEvery when 0; FinalOnly for none before the block end).
 	UpdateEvery time.Duration
 	// OnUpdate, when set, is called with the block id, every snapshot the
 	// feeder publishes and the arrival time it was made at. It runs with
@@ -132,8 +132,8 @@ func (f *Feeder) Feed(subject string, data []byte, at time.Time) error {
 	return err
 }
 
-// Record feeds one session record.
-func (f *Feeder) Record(r session.Record) error { return f.Feed(r.Subject, r.Data, r.At) }
+// FeedRecord feeds one session record.
+func (f *Feeder) FeedRecord(r session.Record) error { return f.Feed(r.Subject, r.Data, r.At) }
 
 // Finish ends a block still running (as a new block start would) and
 // returns the latest snapshot.

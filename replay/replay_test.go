@@ -58,7 +58,7 @@ func TestRecordReplayExact(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	st, err := Play(context.Background(), f.Reader, PlayOptions{}, feeder.Record)
+	st, err := Play(context.Background(), f.Reader, PlayOptions{}, feeder.FeedRecord)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -19,20 +20,9 @@ const (
 	demoGain = 1.5 // slope of the exponential nonlinearity
 )
 
-func init() {
-	register("demo", command{
-		summary: "run everything in one process: a NATS server, a synthetic rig, the mapping and the page",
-		usage:   "[--http ADDR] [--seed S] [--units N] [--block-length D] [--rate HZ] [--gain G]",
-		example: "livefield demo --http 127.0.0.1:8080",
-		run:     runDemo,
-	})
-}
-
 const demoRig = "demo"
 
-func runDemo(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
-	c := commands[name]
-	fs := flags(name, c, stderr)
+func runDemo(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
 	seed := fs.Uint64("seed", 1, "seed of the synthetic rig")
 	units := fs.Int("units", 48, "number of synthetic units (on 32 channels)")

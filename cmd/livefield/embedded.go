@@ -68,11 +68,11 @@ func startEmbeddedRig(command string, log *slog.Logger) (*embeddedRig, error) {
 		return nil, err
 	}
 	e := &embeddedRig{embedded: srv}
-	if e.sub, err = nats.Connect(srv.url(), ConnectOptions("livefield "+command+" ingest", log)...); err != nil {
+	if e.sub, err = nats.Connect(srv.url(), connectOptions("livefield "+command+" ingest", log)...); err != nil {
 		e.close()
 		return nil, fmt.Errorf("embedded nats: %w", err)
 	}
-	if e.pub, err = nats.Connect(srv.url(), ConnectOptions("livefield "+command+" rig", log)...); err != nil {
+	if e.pub, err = nats.Connect(srv.url(), connectOptions("livefield "+command+" rig", log)...); err != nil {
 		e.close()
 		return nil, fmt.Errorf("embedded nats: %w", err)
 	}

@@ -2,7 +2,7 @@ package main
 
 import (
 	"context"
-	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"path/filepath"
@@ -10,21 +10,9 @@ import (
 
 	"livefield/online"
 	"livefield/replay"
-	"livefield/replay/session"
 )
 
-func init() {
-	register("export", command{
-		summary: "run a whole session at full speed and write every unit's estimates (NPY, JSON) and a contact sheet (PNG)",
-		usage:   "FILE --out DIR [--block ID] [--stimuli DIR] [--lambda L|evidence]",
-		example: "livefield export testdata/sessions/synth-30s.lfs --out synth-30s-export",
-		run:     runExport,
-	})
-}
-
-func runExport(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
-	c := commands[name]
-	fs := flags(name, c, stderr)
+func runExport(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
 	out := fs.String("out", "", "directory to write into (required; created if needed)")
 	block := fs.String("block", "", "block to export (default: the last one)")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
@@ -55,9 +43,7 @@ func runExport(ctx context.Context, name string, args []string, stdout, stderr i
 		Feed:     replay.FeedOptions{StimuliDir: *stimuli, Lambda: lambda},
 		Block:    *block,
 		OnDamage: damageLogger(stderr),
-		Progress: func(s replay.FeedStats) {
-			fmt.Fprintf(stdout, "livefield: %d messages, %d blocks, %d bins, stream at %.1f s\n", s.Messages, s.Blocks, s.Bins, s.Stream)
-		},
+		Progress: progressPrinter(stdout),
 	})
 	if err != nil {
 		return err
@@ -78,23 +64,19 @@ func evidencePass(ctx context.Context, file, block, stimuli string, stdout, stde
 	}
 	defer f.Close()
 	last := ""
-	enough := errors.New("the exported block has ended")
 	feeder, err := replay.NewFeeder(replay.FeedOptions{
-		StimuliDir: stimuli, Evidence: true, UpdateEvery: time.Hour,
+		StimuliDir: stimuli, Evidence: true, UpdateEvery: replay.FinalOnly,
 		OnBlockEnd: func(b string, _ *online.Snapshot, _ time.Time) { last = b },
 	})
 	if err != nil {
 		return 0, err
 	}
 	fmt.Fprintln(stdout, "livefield: choosing λ by the evidence (one pass over the session, then the fit; about a minute at 16×16×12)")
-	_, err = replay.Play(ctx, f.Reader, replay.PlayOptions{OnDamage: damageLogger(stderr)}, func(r session.Record) error {
-		if block != "" && last == block {
-			return enough
-		}
-		_ = feeder.Record(r) // refusals are counted, as in the export itself
-		return nil
+	_, err = feeder.FeedSession(ctx, f.Reader, replay.PassOptions{
+		OnDamage: damageLogger(stderr),
+		Until:    func() bool { return block != "" && last == block }, // the exported block has ended
 	})
-	if err != nil && !errors.Is(err, enough) {
+	if err != nil {
 		return 0, err
 	}
 	feeder.Finish()

@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"io"
 	"net"
+	"net/http"
 	"strconv"
 	"sync"
 	"syscall"
@@ -52,16 +53,32 @@ func webToken(ln net.Listener, given string, out io.Writer) (string, error) {
 	return token, nil
 }
 
-// serveHTTP serves the page, websocket, JSON API and exports of src on ln
-// until ctx is done, then shuts down gracefully. token guards the commands
-// and exports; beyond loopback one is made up when none is given (webToken).
-func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, token string, out io.Writer) error {
+// route is a handler served beside the page (the practice endpoints).
+type route struct {
+	pattern string
+	handler http.Handler
+}
+
+// serveHTTP serves the page, websocket, JSON API and exports of src, and
+// the extra routes, on ln until ctx is done, then shuts down gracefully.
+// token guards the commands and exports; beyond loopback one is made up
+// when none is given (webToken).
+func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, token string, out io.Writer, extra ...route) error {
 	token, err := webToken(ln, token, out)
 	if err != nil {
 		return err
 	}
 	web := display.NewServer(src, display.Options{Token: token})
-	srv := display.NewHTTPServer("", web) // read, write and idle timeouts set there
+	var h http.Handler = web
+	if len(extra) > 0 {
+		mux := http.NewServeMux()
+		for _, r := range extra {
+			mux.Handle(r.pattern, r.handler)
+		}
+		mux.Handle("/", web)
+		h = mux
+	}
+	srv := display.NewHTTPServer("", h) // read, write and idle timeouts set there
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
 	var wg sync.WaitGroup

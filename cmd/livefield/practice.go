@@ -4,32 +4,20 @@ import (
 	"bufio"
 	"context"
 	"encoding/json"
+	"flag"
 	"fmt"
 	"io"
 	"math"
-	"net/http"
 	"os"
 	"path/filepath"
 	"strings"
-	"sync"
 
 	"livefield/display"
 	"livefield/online"
 	"livefield/replay"
 )
 
-func init() {
-	register("practice", command{
-		summary: "practise deciding when a block can stop: a session plays as if live, you stop it, it is scored",
-		usage:   "FILE [--http ADDR] [--speed S] [--from T] [--stop-at T] [--report FILE] [--stimuli DIR]",
-		example: "livefield practice testdata/sessions/synth-30s.lfs --speed 2",
-		run:     runPractice,
-	})
-}
-
-func runPractice(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
-	c := commands[name]
-	fs := flags(name, c, stderr)
+func runPractice(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address of the page (empty: terminal only)")
 	var pace pacing
 	pace.add(fs, "playback speed before the stop (1 is real time; max only with --stop-at)")
@@ -71,9 +59,7 @@ func runPractice(ctx context.Context, name string, args []string, stdout, stderr
 	}
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	var wg sync.WaitGroup
-	defer wg.Wait()
-	defer cancel()
+	var served chan error // the page's server, when there is a page
 	if *addr != "" {
 		ln, err := listen(*addr)
 		if err != nil {
@@ -84,15 +70,11 @@ func runPractice(ctx context.Context, name string, args []string, stdout, stderr
 		if err != nil {
 			return err
 		}
-		web := display.NewServer(p.Source(), display.Options{Token: token})
-		mux := http.NewServeMux()
-		mux.Handle("/api/practice/", p.Handler())
-		mux.Handle("/", web)
-		srv := display.NewHTTPServer("", mux)
-		wg.Add(2)
-		go func() { defer wg.Done(); web.Run(ctx) }()
-		go func() { defer wg.Done(); _ = srv.Serve(ln) }()
-		defer srv.Close()
+		served = make(chan error, 1)
+		go func() {
+			served <- serveHTTP(ctx, ln, p.Source(), token, io.Discard, route{"/api/practice/", display.PracticeHandler(p, token)})
+		}()
+		defer func() { cancel(); <-served }()
 		fmt.Fprintf(stdout, "livefield: open http://%s/?practice=1%s ; stop with the page's Stop button, Enter here, or POST /api/practice/stop\n", ln.Addr(), tokenQuery(token))
 	} else {
 		fmt.Fprintln(stdout, "livefield: press Enter to stop the block")
@@ -117,11 +99,17 @@ func runPractice(ctx context.Context, name string, args []string, stdout, stderr
 	}
 	printPractice(stdout, rep)
 	fmt.Fprintf(stdout, "livefield: report written to %s\n", *reportPath)
-	if *addr != "" {
-		fmt.Fprintln(stdout, "livefield: the report is served at /api/practice/report until Ctrl-C")
-		<-ctx.Done()
+	if served == nil {
+		return nil
 	}
-	return nil
+	fmt.Fprintln(stdout, "livefield: the report is served at /api/practice/report until Ctrl-C")
+	select {
+	case <-ctx.Done():
+		return nil
+	case err := <-served:
+		served <- err // for the deferred wait
+		return err
+	}
 }
 
 // printPractice prints the score, one line per unit.

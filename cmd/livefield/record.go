@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -14,20 +15,9 @@ import (
 // recordProgressEvery is how often record prints its counts.
 const recordProgressEvery = 5 * time.Second
 
-func init() {
-	register("record", command{
-		summary: "record every message of one rig into a session file",
-		usage:   "--nats URL --rig NAME --out FILE [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE]",
-		example: "livefield record --nats nats://127.0.0.1:4222 --rig rig1 --out rig1-2026-05-01.lfs",
-		run:     runRecord,
-	})
-}
-
-func runRecord(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
-	c := commands[name]
-	fs := flags(name, c, stderr)
+func runRecord(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
 	var nf natsFlags
-	nf.add(fs, true)
+	nf.add(fs, requiredNATS)
 	rig := fs.String("rig", "", "rig name (required); records livefield.<rig>.>")
 	out := fs.String("out", "", "session file to create (required; an existing file is never overwritten)")
 	if err := parse(fs, args); err != nil {
@@ -50,7 +40,7 @@ func runRecord(ctx context.Context, name string, args []string, stdout, stderr i
 	if err != nil {
 		return fmt.Errorf("--out: %w", err)
 	}
-	rec, err := replay.Record(nc, prefix, w, nil)
+	rec, err := replay.StartRecorder(nc, prefix, w, nil)
 	if err != nil {
 		w.Close()
 		return err

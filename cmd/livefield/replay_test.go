@@ -13,8 +13,7 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats.go"
-
+	"livefield/internal/natstest"
 	"livefield/replay/session"
 )
 
@@ -137,6 +136,7 @@ func TestSessionCommandErrors(t *testing.T) {
 		{"export without out", []string{"export", path}, "--out is required", 1},
 		{"export bad lambda", []string{"export", path, "--out", t.TempDir(), "--lambda", "-1"}, "--lambda -1", 1},
 		{"export evidence on a short block", []string{"export", path, "--out", t.TempDir(), "--lambda", "evidence"}, "needs at least as many bins as dimensions", 1},
+		{"replay into NATS takes the shared NATS flags", []string{"replay", path, "--nats", "nats://127.0.0.1:1", "--creds", "x.creds", "--token", "t"}, "--creds and --token", 1},
 		{"practice at max without stop", []string{"practice", path, "--speed", "max"}, "--stop-at", 1},
 		{"record without rig", []string{"record", "--nats", "nats://127.0.0.1:1", "--out", "x.lfs"}, "--rig is required", 1},
 	}
@@ -153,28 +153,20 @@ func TestSessionCommandErrors(t *testing.T) {
 // TestRecordCommand records from an embedded server until the context ends
 // (Ctrl-C) and leaves a readable file.
 func TestRecordCommand(t *testing.T) {
-	srv, err := startEmbedded()
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer srv.close()
+	srv := natstest.Start(t, natstest.Options{})
 	path := filepath.Join(t.TempDir(), "rec.lfs")
 	ctx, cancel := context.WithCancel(context.Background())
 	var out, errs syncBuffer
 	done := make(chan int, 1)
 	go func() {
-		done <- runMain(ctx, []string{"record", "--nats", srv.url(), "--rig", "r9", "--out", path}, &out, &errs)
+		done <- runMain(ctx, []string{"record", "--nats", srv.URL(), "--rig", "r9", "--out", path}, &out, &errs)
 	}()
 	for deadline := time.Now().Add(10 * time.Second); !strings.Contains(out.String(), "recording"); time.Sleep(5 * time.Millisecond) {
 		if time.Now().After(deadline) {
 			t.Fatalf("record did not start:\n%s\n%s", out.String(), errs.String())
 		}
 	}
-	nc, err := nats.Connect(srv.url())
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
+	nc := srv.Connect(t)
 	for i := 0; i < 5; i++ {
 		nc.Publish("livefield.r9.control", []byte(`{"command":"reset"}`))
 	}
@@ -202,5 +194,37 @@ func TestRecordCommand(t *testing.T) {
 	defer f.Close()
 	if h := f.Header(); h.Rig != "r9" || h.Prefix != "livefield.r9" {
 		t.Errorf("header %+v", h)
+	}
+}
+
+// TestReplayWithPage replays a short session, timed, through the embedded
+// server into the live ingest: the summary after the last message counts
+// every message, and the page stays up until the context ends.
+func TestReplayWithPage(t *testing.T) {
+	path := shortSession(t, 3)
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	var out, errs syncBuffer
+	done := make(chan int, 1)
+	go func() {
+		done <- runMain(ctx, []string{"replay", path, "--speed", "20", "--http", "127.0.0.1:0"}, &out, &errs)
+	}()
+	finished := regexp.MustCompile(`replay finished: (\d+) messages`)
+	for deadline := time.Now().Add(30 * time.Second); !finished.MatchString(out.String()); time.Sleep(10 * time.Millisecond) {
+		if time.Now().After(deadline) {
+			t.Fatalf("no end of the replay after 30 s:\n%s\n%s", out.String(), errs.String())
+		}
+	}
+	if !regexp.MustCompile(`s of data, [1-9]\d* units`).MatchString(out.String()) {
+		t.Errorf("summary without units:\n%s", out.String())
+	}
+	select {
+	case code := <-done:
+		t.Fatalf("replay ended (exit %d) before the context:\n%s", code, out.String())
+	default:
+	}
+	cancel()
+	if code := <-done; code != 0 {
+		t.Fatalf("exit %d:\n%s\n%s", code, out.String(), errs.String())
 	}
 }

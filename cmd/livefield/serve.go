@@ -2,142 +2,21 @@ package main
 
 import (
 	"context"
-	"crypto/tls"
-	"errors"
+	"flag"
 	"fmt"
 	"io"
 	"log/slog"
 	"math"
 	"strconv"
-	"strings"
 	"time"
-
-	"github.com/nats-io/nats.go"
 
 	"livefield/display"
 	"livefield/stream/ingest"
 )
 
-func init() {
-	register("serve", command{
-		summary: "map the live stream of one rig and serve the estimates over HTTP",
-		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] [--creds FILE | --token T] [--tls-ca FILE --tls-cert FILE --tls-key FILE] [--grace D] [--max-units N] [--lambda L|evidence] [--api-token T] [--shard i/n] [--no-jetstream]",
-		example: "livefield serve --nats nats://127.0.0.1:4222 --rig rig1 --stimuli ./stimuli --http 127.0.0.1:8080",
-		run:     runServe,
-	})
-}
-
-// natsFlags are the connection flags shared by serve and simulate.
-type natsFlags struct {
-	url, creds, token, ca, cert, key string
-}
-
-func (n *natsFlags) add(fs interface {
-	StringVar(*string, string, string, string)
-}, withAuth bool) {
-	fs.StringVar(&n.url, "nats", "", "NATS server URL (required), e.g. nats://127.0.0.1:4222")
-	if !withAuth {
-		return
-	}
-	fs.StringVar(&n.creds, "creds", "", "NATS user credentials file")
-	fs.StringVar(&n.token, "token", "", "NATS authentication token")
-	fs.StringVar(&n.ca, "tls-ca", "", "CA certificate file to verify the NATS server")
-	fs.StringVar(&n.cert, "tls-cert", "", "client certificate file (with --tls-key)")
-	fs.StringVar(&n.key, "tls-key", "", "client key file (with --tls-cert)")
-}
-
-// options turns the flags into nats.go options; errors name the flag.
-// dial checks the flags and connects, as a client called name.
-func (n *natsFlags) dial(name string, log *slog.Logger) (*nats.Conn, error) {
-	opts, err := n.options(name, log)
-	if err != nil {
-		return nil, err
-	}
-	return n.connect(opts)
-}
-
-// connect opens the connection with opts; its error names the server
-// without the credentials in its URL.
-func (n *natsFlags) connect(opts []nats.Option) (*nats.Conn, error) {
-	nc, err := nats.Connect(n.url, opts...)
-	if err != nil {
-		return nil, fmt.Errorf("--nats %s: %w", redact(n.url), err)
-	}
-	return nc, nil
-}
-
-// options checks the flags and turns them into nats.go options.
-func (n *natsFlags) options(name string, log *slog.Logger) ([]nats.Option, error) {
-	if n.url == "" {
-		return nil, errors.New("--nats is required (e.g. --nats nats://127.0.0.1:4222)")
-	}
-	if n.creds != "" && n.token != "" {
-		return nil, errors.New("--creds and --token: give one, not both")
-	}
-	if (n.cert == "") != (n.key == "") {
-		return nil, errors.New("--tls-cert and --tls-key go together")
-	}
-	opts := ConnectOptions(name, log)
-	if n.creds != "" {
-		opts = append(opts, nats.UserCredentials(n.creds))
-	}
-	if n.token != "" {
-		opts = append(opts, nats.Token(n.token))
-	}
-	if n.ca != "" {
-		opts = append(opts, nats.RootCAs(n.ca))
-	}
-	if n.cert != "" {
-		opts = append(opts, nats.ClientCert(n.cert, n.key))
-	}
-	if n.ca != "" || n.cert != "" {
-		opts = append(opts, nats.Secure(&tls.Config{MinVersion: tls.VersionTLS12}))
-	}
-	return opts, nil
-}
-
-// ConnectOptions are the connection options every livefield client uses:
-// reconnect forever, and log connection changes (never credentials).
-func ConnectOptions(name string, log *slog.Logger) []nats.Option {
-	return []nats.Option{
-		nats.Name(name),
-		nats.MaxReconnects(-1),
-		nats.ReconnectWait(time.Second),
-		nats.DisconnectErrHandler(func(nc *nats.Conn, err error) {
-			if err != nil { // nil when the connection is closed on purpose
-				log.Warn("nats: disconnected", "err", err)
-			}
-		}),
-		nats.ReconnectHandler(func(nc *nats.Conn) {
-			log.Info("nats: reconnected", "server", nc.ConnectedUrlRedacted(), "reconnects", nc.Stats().Reconnects)
-		}),
-		nats.ClosedHandler(func(nc *nats.Conn) { log.Info("nats: connection closed") }),
-		nats.ErrorHandler(func(nc *nats.Conn, sub *nats.Subscription, err error) {
-			subj := ""
-			if sub != nil {
-				subj = sub.Subject
-			}
-			log.Warn("nats: asynchronous error", "subject", subj, "err", err)
-		}),
-	}
-}
-
-// rigPrefix checks a rig name and returns its subject prefix.
-func rigPrefix(rig string) (string, error) {
-	if rig == "" {
-		return "", errors.New("--rig is required (e.g. --rig rig1)")
-	}
-	if strings.ContainsAny(rig, ".*> \t\r\n") {
-		return "", fmt.Errorf("--rig %q: a rig name is one subject token (no dots, spaces, * or >)", rig)
-	}
-	return "livefield." + rig, nil
-}
-
-func runServe(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
-	c := commands[name]
-	fs := flags(name, c, stderr)
+func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
 	var nf natsFlags
-	nf.add(fs, true)
+	nf.add(fs, requiredNATS)
 	rig := fs.String("rig", "", "rig name (required); subjects are livefield.<rig>.block|frames|spikes|control")
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
@@ -215,17 +94,6 @@ func runServe(ctx context.Context, name string, args []string, stdout, stderr io
 	}
 	fmt.Fprintf(stdout, "livefield: mapping %s.* (shard %s) from %s\nlivefield: open http://%s/\n", prefix, shard, redact(nf.url), ln.Addr())
 	return serveHTTP(ctx, ln, r, *apiToken, stdout)
-}
-
-// redact drops a user or password from a URL for messages.
-func redact(u string) string {
-	if i := strings.Index(u, "@"); i >= 0 {
-		if j := strings.Index(u, "://"); j >= 0 && j < i {
-			return u[:j+3] + "[redacted]@" + u[i+1:]
-		}
-		return "[redacted]@" + u[i+1:]
-	}
-	return u
 }
 
 // parseLambda reads a --lambda flag: a penalty ≥ 0 (0: the estimator's

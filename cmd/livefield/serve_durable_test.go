@@ -6,6 +6,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"livefield/internal/natstest"
 )
 
 // TestServeDurable runs serve against the embedded JetStream server with
@@ -13,12 +15,8 @@ import (
 // the shard and the stream in /api/health, and never prints the password.
 // Without JetStream (--no-jetstream) it says plainly what is lost.
 func TestServeDurable(t *testing.T) {
-	srv, err := startEmbedded()
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer srv.close()
-	url := strings.Replace(srv.url(), "nats://", "nats://lab:hunter2secret@", 1)
+	srv := natstest.Start(t, natstest.Options{JetStream: true})
+	url := strings.Replace(srv.URL(), "nats://", "nats://lab:hunter2secret@", 1)
 	for _, tc := range []struct {
 		name    string
 		args    []string

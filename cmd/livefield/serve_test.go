@@ -211,3 +211,26 @@ func TestRedact(t *testing.T) {
 		}
 	}
 }
+
+// TestEveryCommandHasHelp: each command of the table answers -h with its
+// usage line and an example that runs that command, and is listed by help.
+func TestEveryCommandHasHelp(t *testing.T) {
+	var list bytes.Buffer
+	runMain(context.Background(), []string{"help"}, &list, &list)
+	for _, c := range commands {
+		t.Run(c.name, func(t *testing.T) {
+			var out bytes.Buffer
+			if code := runMain(context.Background(), []string{c.name, "-h"}, &out, &out); code != 0 {
+				t.Fatalf("%s -h: exit %d\n%s", c.name, code, out.String())
+			}
+			for _, want := range []string{"Usage: livefield " + c.name + " ", "Example:\n  livefield " + c.name + " "} {
+				if !strings.Contains(out.String(), want) {
+					t.Errorf("%s -h lacks %q:\n%s", c.name, want, out.String())
+				}
+			}
+			if !strings.Contains(list.String(), "  "+c.name+" ") {
+				t.Errorf("help does not list %s:\n%s", c.name, list.String())
+			}
+		})
+	}
+}

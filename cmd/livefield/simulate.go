@@ -15,15 +15,6 @@ import (
 	"livefield/stream/stimulus"
 )
 
-func init() {
-	register("simulate", command{
-		summary: "publish a synthetic rig (binary noise, LNP units with known fields) to NATS",
-		usage:   "--nats URL --rig NAME [--speed X] [--duration D] [--seed S] [--units N] [--block ID] [--rate HZ] [--gain G]",
-		example: "livefield simulate --nats nats://127.0.0.1:4222 --rig rig1 --speed 1 --duration 2m --seed 7",
-		run:     runSimulate,
-	})
-}
-
 // synthSettings are the synthetic rig's knobs shared by simulate and demo.
 type synthSettings struct {
 	seed     uint64
@@ -63,11 +54,9 @@ func publishSynth(ctx context.Context, nc *nats.Conn, prefix string, s synthSett
 	})
 }
 
-func runSimulate(ctx context.Context, name string, args []string, stdout, stderr io.Writer) error {
-	c := commands[name]
-	fs := flags(name, c, stderr)
+func runSimulate(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
 	var nf natsFlags
-	nf.add(fs, true)
+	nf.add(fs, requiredNATS)
 	rig := fs.String("rig", "", "rig name (required); publishes on livefield.<rig>.block|frames|spikes")
 	speed := fs.Float64("speed", 1, "pacing: 1 is real time, 10 ten times faster, 0 as fast as possible")
 	duration := fs.Duration("duration", time.Minute, "acquisition time to publish")

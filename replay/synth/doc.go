@@ -35,8 +35,8 @@
 //
 // # Concurrency
 //
-// A Rig belongs to one goroutine: Bin changes its lag ring and scratch.
+// A Cortex belongs to one goroutine: Bin changes its lag ring and scratch.
 // Units returns ground truth that may be shared. Publish runs on the
-// caller's goroutine until the block is sent or ctx ends; it drives the Rig,
+// caller's goroutine until the block is sent or ctx ends; it drives the Cortex,
 // which must not be used elsewhere meanwhile.
 package synth

@@ -10,9 +10,9 @@ import "math"
 // gabor is a spatial Gabor function (Jones & Palmer 1987): a Gaussian
 // envelope of standard deviations sx (along the preferred orientation's
 // carrier) and sy, times a cosine carrier of wavelength lambda across the
-// orientation theta (radians from the x axis), with phase phi.
+// orientation theta (radians from the x axis); at gives its phase.
 type gabor struct {
-	cx, cy, sx, sy, theta, lambda, phi float64
+	cx, cy, sx, sy, theta, lambda float64
 }
 
 func (g gabor) at(x, y, phase float64) float64 {

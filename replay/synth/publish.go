@@ -122,13 +122,13 @@ type publisher struct {
 	lastFrame, lastSpike float64    // last send time per subject
 }
 
-// Publish plays rig r to NATS under prefix as a rig would: the block start,
+// Publish plays the cortex r to NATS under prefix as a rig would: the block start,
 // frame onsets and spikes in batches on their subjects with their delays,
 // then the block end. The acquisition clock starts at the scenario's Start.
 // It paces messages by opt.Speed against opt.Now and opt.Sleep, and stops
 // early when ctx ends, after sending what it holds and the block end. It
 // flushes the connection before returning.
-func Publish(ctx context.Context, nc *nats.Conn, prefix string, r *Rig, opt PublishOptions) error {
+func Publish(ctx context.Context, nc *nats.Conn, prefix string, r *Cortex, opt PublishOptions) error {
 	if nc == nil || r == nil {
 		return errors.New("synth: publish: nil connection or rig")
 	}

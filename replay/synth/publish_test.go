@@ -10,9 +10,9 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 
+	"livefield/internal/natstest"
 	"livefield/stream/stimulus"
 	"livefield/stream/wire"
 )
@@ -27,31 +27,6 @@ func (c *fakeClock) Now() time.Time            { return c.now }
 func (c *fakeClock) Sleep(d time.Duration)     { c.now = c.now.Add(d); c.sleeps++ }
 func newFakeClock() *fakeClock                 { return &fakeClock{now: time.Unix(1e9, 0)} }
 func (c *fakeClock) since(t time.Time) float64 { return c.now.Sub(t).Seconds() }
-
-// natsServer starts an embedded server on a random loopback port.
-func natsServer(t *testing.T) *server.Server {
-	t.Helper()
-	s, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: -1, NoSigs: true, NoLog: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go s.Start()
-	if !s.ReadyForConnections(10 * time.Second) {
-		t.Fatal("nats server not ready")
-	}
-	t.Cleanup(s.Shutdown)
-	return s
-}
-
-func connect(t *testing.T, s *server.Server) *nats.Conn {
-	t.Helper()
-	nc, err := nats.Connect(s.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return nc
-}
 
 // recorder keeps every message of a prefix in arrival order.
 type recorder struct {
@@ -97,7 +72,7 @@ func (r *recorder) wait(t *testing.T) []*nats.Msg {
 
 var testSpec = stimulus.Spec{Type: "binary", Width: 8, Height: 8, Seed: 4}
 
-func testRig(t *testing.T) *Rig {
+func testRig(t *testing.T) *Cortex {
 	t.Helper()
 	src, err := stimulus.Open(testSpec, "")
 	if err != nil {
@@ -111,8 +86,8 @@ func testRig(t *testing.T) *Rig {
 }
 
 func TestPublish(t *testing.T) {
-	s := natsServer(t)
-	rec := record(t, connect(t, s), "livefield.test")
+	s := natstest.Start(t, natstest.Options{})
+	rec := record(t, s.Connect(t), "livefield.test")
 	clock := newFakeClock()
 	wall0 := clock.now
 	opt := PublishOptions{
@@ -122,7 +97,7 @@ func TestPublish(t *testing.T) {
 		Now:      clock.Now, Sleep: clock.Sleep,
 	}
 	rig := testRig(t)
-	if err := Publish(context.Background(), connect(t, s), "livefield.test", rig, opt); err != nil {
+	if err := Publish(context.Background(), s.Connect(t), "livefield.test", rig, opt); err != nil {
 		t.Fatal(err)
 	}
 	msgs := rec.wait(t)
@@ -239,8 +214,8 @@ func TestPublish(t *testing.T) {
 }
 
 func TestPublishCancel(t *testing.T) {
-	s := natsServer(t)
-	rec := record(t, connect(t, s), "livefield.c")
+	s := natstest.Start(t, natstest.Options{})
+	rec := record(t, s.Connect(t), "livefield.c")
 	clock := newFakeClock()
 	ctx, cancel := context.WithCancel(context.Background())
 	defer cancel()
@@ -250,7 +225,7 @@ func TestPublishCancel(t *testing.T) {
 			cancel()
 		}
 	}
-	err := Publish(ctx, connect(t, s), "livefield.c", testRig(t), PublishOptions{
+	err := Publish(ctx, s.Connect(t), "livefield.c", testRig(t), PublishOptions{
 		Stimulus: testSpec, Duration: 60, Speed: 1, Now: clock.Now, Sleep: sleep,
 	})
 	if !errors.Is(err, context.Canceled) {
@@ -264,10 +239,10 @@ func TestPublishCancel(t *testing.T) {
 }
 
 func TestPublishUnpaced(t *testing.T) {
-	s := natsServer(t)
-	rec := record(t, connect(t, s), "livefield.u")
+	s := natstest.Start(t, natstest.Options{})
+	rec := record(t, s.Connect(t), "livefield.u")
 	clock := newFakeClock()
-	err := Publish(context.Background(), connect(t, s), "livefield.u", testRig(t), PublishOptions{
+	err := Publish(context.Background(), s.Connect(t), "livefield.u", testRig(t), PublishOptions{
 		Stimulus: testSpec, Duration: 5, HoldRate: -1, Now: clock.Now, Sleep: clock.Sleep,
 	})
 	if err != nil {
@@ -293,8 +268,8 @@ func TestPublishUnpaced(t *testing.T) {
 }
 
 func TestPublishRejects(t *testing.T) {
-	s := natsServer(t)
-	nc := connect(t, s)
+	s := natstest.Start(t, natstest.Options{})
+	nc := s.Connect(t)
 	rig := testRig(t)
 	for _, tc := range []struct {
 		name string

@@ -27,7 +27,7 @@ func binary(t testing.TB, side int, seed uint64) stimulus.Source {
 
 // run plays bins [0, n) with consecutive frames and calls fn after each bin
 // (the ring then holds the bin's frames).
-func run(t testing.TB, r *Rig, n int64, emit func(string, float64), fn func(k int64)) {
+func run(t testing.TB, r *Cortex, n int64, emit func(string, float64), fn func(k int64)) {
 	t.Helper()
 	dt := r.sc.FramePeriod
 	for k := range n {

@@ -113,9 +113,10 @@ type unit struct {
 	kind   string
 }
 
-// Rig is a synthetic recording: a population of linear–nonlinear–Poisson
-// units watching a stimulus source. It is not safe for concurrent use.
-type Rig struct {
+// Cortex is the model cortex under a synthetic probe: a population of
+// linear–nonlinear–Poisson units watching a stimulus source. It is not
+// safe for concurrent use.
+type Cortex struct {
 	sc    Scenario
 	src   stimulus.Source
 	sd    float64 // pixel standard deviation used to normalise responses
@@ -136,7 +137,7 @@ type spike struct {
 
 // New builds the population of sc watching src, whose frame size must be
 // the scenario's (a zero Width and Height take the source's).
-func New(sc Scenario, src stimulus.Source) (*Rig, error) {
+func New(sc Scenario, src stimulus.Source) (*Cortex, error) {
 	if src == nil {
 		return nil, errors.New("synth: nil stimulus source")
 	}
@@ -153,7 +154,7 @@ func New(sc Scenario, src stimulus.Source) (*Rig, error) {
 	if src.White() && src.PixelVariance() > 0 {
 		sd = math.Sqrt(src.PixelVariance())
 	}
-	r := &Rig{sc: sc, src: src, sd: sd}
+	r := &Cortex{sc: sc, src: src, sd: sd}
 	r.build()
 	n := sc.Width * sc.Height
 	r.ring = make([][]float64, sc.Lags)
@@ -168,14 +169,14 @@ func New(sc Scenario, src stimulus.Source) (*Rig, error) {
 }
 
 // Scenario returns the scenario in force, defaults filled in.
-func (r *Rig) Scenario() Scenario { return r.sc }
+func (r *Cortex) Scenario() Scenario { return r.sc }
 
 // Units returns the ground truth of every unit, in the order of the mix.
 // The filters are shared with the rig and must not be modified.
-func (r *Rig) Units() []Truth { return slices.Clone(r.truth) }
+func (r *Cortex) Units() []Truth { return slices.Clone(r.truth) }
 
 // build draws the population from the seed.
-func (r *Rig) build() {
+func (r *Cortex) build() {
 	sc := r.sc
 	rng := rand.New(rand.NewPCG(sc.Seed, 0x5eed))
 	W, H, L := sc.Width, sc.Height, sc.Lags
@@ -311,7 +312,7 @@ func sq(v float64) float64            { return v * v }
 // spike in time order; the spike times are uniform within the bin. The
 // spikes of bin k depend only on the seed, k and the frames, not on which
 // bins were asked for before. Bin does not allocate in steady state.
-func (r *Rig) Bin(k, frameIndex int64, start, end float64, emit func(unit string, t float64)) error {
+func (r *Cortex) Bin(k, frameIndex int64, start, end float64, emit func(unit string, t float64)) error {
 	if k < 0 {
 		return fmt.Errorf("synth: negative bin %d", k)
 	}
@@ -354,7 +355,7 @@ func (r *Rig) Bin(k, frameIndex int64, start, end float64, emit func(unit string
 }
 
 // rate is the model rate (Hz) of u in bin k, from the frames in the ring.
-func (r *Rig) rate(u *unit, k int64) float64 {
+func (r *Cortex) rate(u *unit, k int64) float64 {
 	switch {
 	case u.w == nil:
 		return u.base
@@ -368,7 +369,7 @@ func (r *Rig) rate(u *unit, k int64) float64 {
 
 // response is the filter output on the lagged frames, divided by the pixel
 // standard deviation so that it has unit variance under white noise.
-func (r *Rig) response(w []float64, k int64) float64 {
+func (r *Cortex) response(w []float64, k int64) float64 {
 	L := int64(r.sc.Lags)
 	n := r.sc.Width * r.sc.Height
 	var sum float64
@@ -417,3 +418,8 @@ func knuth(rng *rand.Rand, lambda float64) int {
 	}
 	return n
 }
+
+// Rig is the former name of Cortex.
+//
+// Deprecated: use Cortex; Rig stays until the tests that name it move.
+type Rig = Cortex
