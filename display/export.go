@@ -114,12 +114,6 @@ func ExportHandler(src SnapshotSource) http.Handler {
 	return mux
 }
 
-// Export is the former name of ExportHandler.
-//
-// Deprecated: use ExportHandler; Export stays until the server that
-// mounts it is changed.
-func Export(src SnapshotSource) http.Handler { return ExportHandler(src) }
-
 func validID(id string) bool { return id != "" && len(id) <= MaxIDLength }
 
 func failRender(w http.ResponseWriter, err error) {

@@ -44,7 +44,7 @@ func NewServer(src SnapshotSource, opt Options) *Server {
 	s.mux.Handle("GET /ws", s.hub)
 	s.mux.Handle("GET /api/", api)
 	s.mux.Handle("/api/", s.guard(api)) // the commands
-	s.mux.Handle("/export/", s.guard(Export(src)))
+	s.mux.Handle("/export/", s.guard(ExportHandler(src)))
 	return s
 }
 

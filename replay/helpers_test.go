@@ -13,10 +13,10 @@ import (
 
 	"github.com/nats-io/nats.go"
 
-	"livefield/internal/natstest"
 	"livefield/online"
 	"livefield/replay/session"
 	"livefield/replay/synth"
+	"livefield/stream/natstest"
 	"livefield/stream/stimulus"
 )
 

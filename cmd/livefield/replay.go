@@ -111,7 +111,9 @@ func replayWithPage(ctx context.Context, f *session.File, prefix string, play re
 		}
 		if ctx.Err() == nil {
 			// Let the ingest take the last messages before the summary.
-			waitProcessed(ctx, r, uint64(st.Records), summaryWait)
+			wctx, cancel := context.WithTimeout(ctx, summaryWait)
+			r.WaitProcessed(wctx, uint64(st.Records))
+			cancel()
 			printSummary(stdout, r.Sync())
 			fmt.Fprintf(stdout, "livefield: replay finished: %d messages (%.1f s of session); the page stays up until Ctrl-C\n", st.Records, st.Span.Seconds())
 		}
@@ -120,27 +122,6 @@ func replayWithPage(ctx context.Context, f *session.File, prefix string, play re
 	defer cancel()
 	fmt.Fprintf(stdout, "livefield: replaying at %gx through an embedded NATS server\nlivefield: open http://%s/  (Ctrl-C stops)\n", play.Speed, ln.Addr())
 	return serveHTTP(ctx, ln, r, "", stdout)
-}
-
-// waitProcessed waits until the ingest has handled n messages, ctx ends
-// or timeout passes, and reports whether it got there.
-// (A candidate for a method of ingest.Rig that wakes on progress instead
-// of polling.)
-func waitProcessed(ctx context.Context, r *ingest.Rig, n uint64, timeout time.Duration) bool {
-	const poll = 10 * time.Millisecond
-	deadline := time.Now().Add(timeout)
-	for r.Counters().Processed < n {
-		if ctx.Err() != nil || time.Now().After(deadline) {
-			return false
-		}
-		t := time.NewTimer(poll)
-		select {
-		case <-ctx.Done():
-		case <-t.C:
-		}
-		t.Stop()
-	}
-	return true
 }
 
 // publishSession plays r into nc under prefix.

@@ -13,8 +13,8 @@ import (
 	"testing"
 	"time"
 
-	"livefield/internal/natstest"
 	"livefield/replay/session"
+	"livefield/stream/natstest"
 )
 
 const committedSession = "../../testdata/sessions/synth-30s.lfs"

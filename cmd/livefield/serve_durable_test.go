@@ -7,7 +7,7 @@ import (
 	"testing"
 	"time"
 
-	"livefield/internal/natstest"
+	"livefield/stream/natstest"
 )
 
 // TestServeDurable runs serve against the embedded JetStream server with

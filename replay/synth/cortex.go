@@ -418,8 +418,3 @@ func knuth(rng *rand.Rand, lambda float64) int {
 	}
 	return n
 }
-
-// Rig is the former name of Cortex.
-//
-// Deprecated: use Cortex; Rig stays until the tests that name it move.
-type Rig = Cortex

@@ -12,7 +12,7 @@ import (
 
 	"github.com/nats-io/nats.go"
 
-	"livefield/internal/natstest"
+	"livefield/stream/natstest"
 	"livefield/stream/stimulus"
 	"livefield/stream/wire"
 )

@@ -32,7 +32,7 @@ func corr(a []float64, b []online.Float) float64 {
 
 // playSynth publishes one synthetic block as fast as possible and waits
 // (20 s deadline) until the rig has handled all of it.
-func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Scenario, spec stimulus.Spec, seconds float64) *synth.Rig {
+func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Scenario, spec stimulus.Spec, seconds float64) *synth.Cortex {
 	t.Helper()
 	src, err := stimulus.Open(spec, "")
 	if err != nil {

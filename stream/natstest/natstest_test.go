@@ -8,7 +8,7 @@ import (
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
-	"livefield/internal/natstest"
+	"livefield/stream/natstest"
 )
 
 // TestRestart: a client connected before a restart publishes after it on
