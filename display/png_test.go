@@ -127,8 +127,8 @@ func TestNaturalOrder(t *testing.T) {
 		{"", "1", true},
 	}
 	for _, tc := range tests {
-		if got := naturalLess(tc.a, tc.b); got != tc.less {
-			t.Errorf("naturalLess(%q, %q) = %v, want %v", tc.a, tc.b, got, tc.less)
+		if got := naturalCompare(tc.a, tc.b) < 0; got != tc.less {
+			t.Errorf("naturalCompare(%q, %q) < 0 = %v, want %v", tc.a, tc.b, got, tc.less)
 		}
 	}
 }
