@@ -93,7 +93,7 @@ const tileExtremeJS = `(() => {
   const c = document.querySelector('.tile[data-id="%s"] canvas');
   if (!c) return null;
   const d = c.getContext('2d').getImageData(0, 0, c.width, c.height).data;
-  const mid = DIVERGING[2];
+  const mid = [246, 244, 238]; // the middle of the colour scale (web/js/colour.js, DIVERGING[2])
   let best = -1, at = 0;
   for (let p = 0; p < c.width * c.height; p++) {
     const e = Math.abs(d[4*p] - mid[0]) + Math.abs(d[4*p+1] - mid[1]) + Math.abs(d[4*p+2] - mid[2]);

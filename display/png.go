@@ -25,7 +25,7 @@ var ErrUnknownUnit = errors.New("display: unknown unit")
 // (index 2) to +limit (index 4): dark blue, light blue, warm white, light
 // orange, burnt orange. Blue against orange stays distinct for the common
 // red–green colour-vision deficiencies (common practice, no source). The
-// page (web/app.js, DIVERGING) uses the same five stops.
+// page (web/js/colour.js, DIVERGING) uses the same five stops.
 var divergingStops = [5][3]uint8{
 	{36, 84, 168},
 	{120, 170, 220},

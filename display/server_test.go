@@ -111,7 +111,7 @@ func TestTokenGuard(t *testing.T) {
 		want         int
 	}{
 		{"page needs no token", "GET", "/", nil, "", 200},
-		{"script needs no token", "GET", "/static/app.js", nil, "", 200},
+		{"script needs no token", "GET", "/static/js/main.js", nil, "", 200},
 		{"unit list without token", "GET", "/api/units", nil, "", 401},
 		{"unit list with header", "GET", "/api/units", withHeader, "", 200},
 		{"unit without token", "GET", "/api/units/u1", nil, "", 401},
@@ -271,8 +271,8 @@ func TestServerPushesSourceUpdates(t *testing.T) {
 func TestPageServed(t *testing.T) {
 	s := NewServer(&rigSource{}, Options{})
 	tests := []struct{ path, kind, contains string }{
-		{"/", "text/html; charset=utf-8", `<script src="static/app.js"`},
-		{"/static/app.js", "text/javascript; charset=utf-8", "new WebSocket"},
+		{"/", "text/html; charset=utf-8", `<script type="module" src="static/js/main.js"`},
+		{"/static/js/net.js", "text/javascript; charset=utf-8", "new WebSocket"},
 		{"/static/style.css", "text/css; charset=utf-8", "--reliable"},
 	}
 	for _, tc := range tests {
