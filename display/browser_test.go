@@ -28,6 +28,12 @@ const chromiumPath = "/usr/bin/chromium"
 // is none (fails instead when LIVEFIELD_REQUIRE_BROWSER=1, as in CI).
 func newBrowser(t *testing.T) context.Context {
 	t.Helper()
+	return newBrowserSized(t, 1400, 1000)
+}
+
+// newBrowserSized is newBrowser with a window of width×height.
+func newBrowserSized(t *testing.T, width, height int) context.Context {
+	t.Helper()
 	if _, err := os.Stat(chromiumPath); err != nil {
 		if os.Getenv("LIVEFIELD_REQUIRE_BROWSER") == "1" {
 			t.Fatalf("display: LIVEFIELD_REQUIRE_BROWSER=1 but no browser at %s: %v", chromiumPath, err)
@@ -47,7 +53,7 @@ func newBrowser(t *testing.T) context.Context {
 		chromedp.Flag("disable-sync", true),
 		chromedp.Flag("disable-extensions", true),
 		chromedp.UserDataDir(t.TempDir()),
-		chromedp.WindowSize(1400, 1000),
+		chromedp.WindowSize(width, height),
 	}
 	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
 	actx, acancel := chromedp.NewExecAllocator(ctx, opts...)

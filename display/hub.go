@@ -252,7 +252,8 @@ func tokenOK(r *http.Request, token string) bool {
 }
 
 // ServeHTTP upgrades the request to a websocket and serves it until the
-// browser leaves or the hub stops.
+// browser leaves or the hub stops. The query parameter density sets the
+// density of the tiles from the first update on (default Large).
 func (h *Hub) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	select {
 	case <-h.done:
@@ -269,6 +270,9 @@ func (h *Hub) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 		return // the upgrader has written the error response
 	}
 	c := &client{conn: conn, wake: make(chan struct{}, 1), quit: make(chan struct{}), density: Large}
+	if d, ok := parseDensity(r.URL.Query().Get("density")); ok {
+		c.density = d // the first update at the page's density already
+	}
 	h.wg.Add(2) // before register, so Run's Wait cannot start in between
 	select {
 	case h.register <- c:

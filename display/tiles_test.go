@@ -65,6 +65,12 @@ func TestHubDensity(t *testing.T) {
 	if first.Snapshot.Density != string(Large) {
 		t.Fatalf("default density %q, want large", first.Snapshot.Density)
 	}
+	// A page may give its density when it connects.
+	early := dial(t, wsURL(srv)+"?density=compact", nil)
+	waitFor(t, "second client", func() bool { return h.Stats().Clients == 2 })
+	if m := readTiles(t, early); m.Snapshot.Density != string(Compact) || m.Snapshot.Units[0].Map != nil {
+		t.Fatalf("first update of a page that asked for compact tiles: density %q", m.Snapshot.Density)
+	}
 	tests := []struct {
 		density    Density
 		rows, cols int // 0: no map

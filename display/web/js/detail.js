@@ -25,7 +25,8 @@ export function showDetail() {
   if (id === null) { hideHover(); return; }
   $('d-id').textContent = 'unit ' + id;
   const pos = live.order.indexOf(id);
-  $('d-pos').textContent = pos >= 0 ? (pos + 1) + ' of ' + live.order.length : 'not in the shown units';
+  $('d-pos').textContent = (pos >= 0 ? (pos + 1) + ' of ' + live.order.length : 'not shown') + ' · ← →';
+  $('d-pos').title = 'position among the shown units, in the chosen order; ← and → (or k and j) move, Esc closes';
   const d = live.details[id];
   const known = live.snap && (live.snap.units || []).some((u) => u.id === id);
   $('d-wait').hidden = !!d;
@@ -75,6 +76,7 @@ function lagCells(lags, n) {
 // stcWords says what happens to the unit's STC (online.UnitDetail.stc_state):
 // running, waiting and why, or queued for results.
 function stcWords(d) {
+  if (d.stc_state && /^waiting/.test(d.stc_state)) return 'STC: ' + d.stc_state + ' — it starts when a place frees';
   if (d.stc_state) return 'STC: ' + d.stc_state;
   return d.flagged ? 'STC requested' : '';
 }

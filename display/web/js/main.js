@@ -62,7 +62,10 @@ function render() {
   }
   showDetail();
   updateExportLinks();
-  socket.ask(view.unit !== null ? [view.unit] : [], density(s ? (s.units || []).length : 0));
+  // Before the first update the number of units is unknown: ask for
+  // compact tiles (the smallest) unless a density was chosen.
+  const want = s ? density((s.units || []).length) : view.density === 'auto' ? 'compact' : view.density;
+  socket.ask(view.unit !== null ? [view.unit] : [], want);
 }
 
 // changed follows every change of the view by the experimenter.

@@ -53,13 +53,14 @@ export class Live {
   constructor(handlers) {
     this.handlers = handlers; // {message(m), up(), down()}
     this.ws = null;
-    this.want = {view: [], density: 'large'};
+    this.want = {view: [], density: 'compact'}; // the least until the page knows better
   }
 
   connect() {
     const u = new URL('ws', location.href);
     u.protocol = location.protocol === 'https:' ? 'wss:' : 'ws:';
     if (token) u.searchParams.set('token', token);
+    u.searchParams.set('density', this.want.density); // the first update comes at it
     const ws = new WebSocket(u);
     this.ws = ws;
     ws.onopen = () => { this.handlers.up(); this.send(); };

@@ -108,6 +108,9 @@ export function drawReliability(canvas, history, target, etaS) {
     if (target !== null && target !== undefined) line(ctx, [[a.x, Y(target)], [a.x + a.w, Y(target)]], TARGET, 2, [10, 6]);
     line(ctx, history.map((p) => [X(p.t), p.reliability === null ? NaN : Y(p.reliability)]), INK, 3);
     const last = history.length ? history[history.length - 1] : null;
+    if (last && last.reliability !== null) {
+      ctx.fillStyle = INK; ctx.beginPath(); ctx.arc(X(last.t), Y(last.reliability), 4, 0, 2 * Math.PI); ctx.fill();
+    }
     if (tCross !== null && target !== null && target !== undefined && last && last.reliability !== null) {
       line(ctx, [[X(last.t), Y(last.reliability)], [X(tCross), Y(target)]], DIM, 2, [4, 5]);
       ctx.fillStyle = TARGET; ctx.beginPath(); ctx.arc(X(tCross), Y(target), 6, 0, 2 * Math.PI); ctx.fill();

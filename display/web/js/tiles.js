@@ -133,7 +133,7 @@ export function renderOverview(s, open) {
     t.el.className = 'tile ' + st.css + (u.id === view.unit ? ' current' : '');
     t.badge.className = 'badge ' + st.css;
     t.badge.textContent = st.word;
-    t.rel.textContent = (d === 'compact' ? '' : 'r ') + num(u.reliability, 2);
+    t.rel.textContent = (d === 'large' ? 'r ' : '') + num(u.reliability, 2);
     t.rel.title = 'split-half reliability (Spearman–Brown corrected)';
     t.sub.textContent = (u.spikes || 0) + ' sp' + (u.flagged ? ' · STC' : '');
     const r = u.reliability !== null && isFinite(u.reliability) ? Math.max(0, Math.min(1, u.reliability)) : 0;
