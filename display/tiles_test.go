@@ -301,3 +301,23 @@ func BenchmarkHubTiles(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkHubEncode measures the hub goroutine's own work per update and
+// density in use: converting the snapshot to tiles and encoding it once for
+// every browser at that density (compression then happens once, in the
+// first writer that sends it).
+func BenchmarkHubEncode(b *testing.B) {
+	for _, n := range []int{384, 1024} {
+		snap := syntheticSnapshot(n, 1)
+		for _, d := range []Density{Large, Medium, Compact} {
+			b.Run(fmt.Sprintf("units=%d/density=%s", n, d), func(b *testing.B) {
+				b.ReportAllocs()
+				for b.Loop() {
+					if encodeSnapshot(snap, d) == nil {
+						b.Fatal("not encoded")
+					}
+				}
+			})
+		}
+	}
+}
