@@ -147,6 +147,20 @@ func TestBrowserManyUnits(t *testing.T) {
 			if got := pageQuery(t, ctx).Get("density"); got != tc.density {
 				t.Errorf("URL density %q, want %q", got, tc.density)
 			}
+			// The readout names stimulus pixels, also where a map pixel
+			// averages several: the pointer over the bottom-right map pixel.
+			readout := evaluate[string](t, ctx, `(() => {
+  const c = document.querySelector('#tiles canvas'), r = c.getBoundingClientRect();
+  c.dispatchEvent(new MouseEvent('mousemove', {clientX: r.right - 1, clientY: r.bottom - 1, bubbles: true}));
+  return document.getElementById('readout').textContent;
+})()`)
+			want := fmt.Sprintf("x %d  y %d  ", popWidth-1, popHeight-1)
+			if tc.side < popWidth {
+				want = fmt.Sprintf("x %d–%d  y %d–%d  ", popWidth-2, popWidth-1, popHeight-2, popHeight-1)
+			}
+			if !strings.HasPrefix(readout, want) {
+				t.Errorf("%s tiles: readout %q, want it to start %q", tc.density, readout, want)
+			}
 			shoot(t, ctx, "many-"+tc.density+".png")
 		}
 		if err := chromedp.Do(ctx, chromedp.Click(chromedp.CSS(`#densities [data-density="auto"]`))); err != nil {

@@ -53,7 +53,10 @@ type tileSnapshot struct {
 	Lambda      online.Float        `json:"lambda"`
 	Summary     online.BlockSummary `json:"summary"`
 	Density     Density             `json:"density"`
-	Units       []tileUnit          `json:"units"`
+	// MapBlock is the side, in stimulus pixels, of the square that one
+	// pixel of a tile's map averages (1: full resolution; absent: no maps).
+	MapBlock int        `json:"map_block,omitempty"`
+	Units    []tileUnit `json:"units"`
 }
 
 // tileUnit is one unit's tile. Map holds integers in [−100, 100] (null
@@ -88,6 +91,12 @@ func tilesOf(s *online.Snapshot, d Density) *tileSnapshot {
 		Lambda: s.Lambda, Summary: s.Summary, Density: d, Units: make([]tileUnit, len(s.Units)),
 	}
 	height, width := s.Shape[1], s.Shape[2]
+	switch d {
+	case Large:
+		out.MapBlock = 1
+	case Medium:
+		out.MapBlock = shrinkFactor(height, width, MediumSide)
+	}
 	for i, u := range s.Units {
 		t := tileUnit{
 			ID: u.ID, Spikes: u.Spikes, Status: u.Status,
@@ -112,7 +121,7 @@ func tilesOf(s *online.Snapshot, d Density) *tileSnapshot {
 // shrink averages a height×width map over square blocks so that neither
 // side exceeds side; undefined pixels are left out of a block's mean.
 func shrink(m online.Floats, height, width, side int) (out online.Floats, h, w int) {
-	f := max((height+side-1)/side, (width+side-1)/side, 1)
+	f := shrinkFactor(height, width, side)
 	if f == 1 {
 		return m, height, width
 	}
@@ -136,6 +145,12 @@ func shrink(m online.Floats, height, width, side int) (out online.Floats, h, w i
 		}
 	}
 	return out, h, w
+}
+
+// shrinkFactor is the smallest block side that brings height×width within
+// side×side.
+func shrinkFactor(height, width, side int) int {
+	return max((height+side-1)/side, (width+side-1)/side, 1)
 }
 
 // quantise scales m to integers in [−mapLevels, mapLevels] by its largest

@@ -22,9 +22,10 @@ import (
 type tileMessage struct {
 	Type     string `json:"type"`
 	Snapshot struct {
-		Density string `json:"density"`
-		Shape   [3]int `json:"shape"`
-		Units   []struct {
+		Density  string `json:"density"`
+		Shape    [3]int `json:"shape"`
+		MapBlock int    `json:"map_block"`
+		Units    []struct {
 			ID       string    `json:"id"`
 			Map      []*int    `json:"map"`
 			MapShape *[2]int   `json:"map_shape"`
@@ -74,10 +75,11 @@ func TestHubDensity(t *testing.T) {
 	tests := []struct {
 		density    Density
 		rows, cols int // 0: no map
+		block      int
 	}{
-		{Compact, 0, 0},
-		{Medium, MediumSide, MediumSide},
-		{Large, simHeight, simWidth},
+		{Compact, 0, 0, 0},
+		{Medium, MediumSide, MediumSide, simWidth / MediumSide},
+		{Large, simHeight, simWidth, 1},
 	}
 	for _, tc := range tests {
 		t.Run(string(tc.density), func(t *testing.T) {
@@ -85,8 +87,8 @@ func TestHubDensity(t *testing.T) {
 				t.Fatal(err)
 			}
 			m := readTiles(t, c)
-			if m.Snapshot.Density != string(tc.density) || len(m.Snapshot.Units) != len(snap.Units) {
-				t.Fatalf("density %q with %d units", m.Snapshot.Density, len(m.Snapshot.Units))
+			if m.Snapshot.Density != string(tc.density) || len(m.Snapshot.Units) != len(snap.Units) || m.Snapshot.MapBlock != tc.block {
+				t.Fatalf("density %q with %d units, map block %d (want %d)", m.Snapshot.Density, len(m.Snapshot.Units), m.Snapshot.MapBlock, tc.block)
 			}
 			for i, u := range m.Snapshot.Units {
 				if u.ID != snap.Units[i].ID || u.Extra != nil {

@@ -104,7 +104,7 @@ function tileFor(id, open) {
   const tt = t;
   hoverMap(t.canvas, () => {
     const m = tt.unit && tileMap(tt.unit);
-    return m ? {map: m.values, width: m.width, height: m.height} : null;
+    return m ? {map: m.values, width: m.width, height: m.height, block: (live.snap && live.snap.map_block) || 1} : null;
   });
   tiles.set(id, t);
   return t;
