@@ -42,10 +42,11 @@ func (f *rigSource) set(s *online.Snapshot) {
 }
 
 // Health reports a rig whose NATS link is down, on core NATS, with late
-// spikes and refused messages, as /api/health would.
+// spikes, refused messages and an update that takes most of its second, as
+// /api/health would.
 func (f *rigSource) Health() any {
 	return map[string]any{
-		"bins": 1, "connection": "RECONNECTING", "reconnects": 2, "durable": false,
+		"bins": 1, "connection": "RECONNECTING", "reconnects": 2, "durable": false, "update_s": 0.72,
 		"warning":     "core NATS: messages sent during a disconnect are lost",
 		"late_spikes": 3, "rejected": map[string]int{"syntax": 2, "unit-cap": 1},
 	}
