@@ -3,7 +3,7 @@
 import {maxAbs, paintMap} from './colour.js';
 import {clock, num} from './format.js';
 
-const INK = '#ececec', DIM = '#9aa0aa', LINE = '#3a3f4a', FIELD = '#ffd640', ACCENT = '#78e6ff', TARGET = '#de9e00';
+const INK = '#ececec', DIM = '#9aa0aa', LINE = '#3a3f4a', RING = '#ffd640', ACCENT = '#78e6ff', TARGET = '#de9e00';
 
 // frame clears a plot canvas, draws the axes box and hands draw the
 // plotting area.
@@ -59,7 +59,7 @@ export function drawPeakMap(canvas, peak, width, height, f) {
     ctx.beginPath();
     ctx.ellipse((f.centre_x + 0.5) * sx, (f.centre_y + 0.5) * sy, f.sigma_x * sx, f.sigma_y * sy, f.angle || 0, 0, 2 * Math.PI);
     ctx.stroke();
-    ctx.strokeStyle = FIELD; ctx.lineWidth = 2.5; ctx.stroke();
+    ctx.strokeStyle = RING; ctx.lineWidth = 2.5; ctx.stroke();
   }
 }
 
@@ -139,7 +139,7 @@ export function drawSpectrum(canvas, stc) {
     }
     ev.forEach((v, i) => {
       const out = v > stc.null_high || v < stc.null_low;
-      ctx.fillStyle = out ? FIELD : INK;
+      ctx.fillStyle = out ? RING : INK;
       ctx.beginPath(); ctx.arc(X(i), Y(v), out ? 5 : 2.5, 0, 2 * Math.PI); ctx.fill();
     });
     ctx.fillStyle = DIM;

@@ -2,6 +2,7 @@
 // stimulus grid, and the suggested aperture for the next experiment.
 import {num} from './format.js';
 import {naturalCompare} from './order.js';
+import {WORD} from './words.js';
 
 const $ = (id) => document.getElementById(id);
 
@@ -20,7 +21,7 @@ export function renderPopulation(s, details) {
   for (let y = 0; y <= height; y++) { ctx.beginPath(); ctx.moveTo(margin, margin + y * sc); ctx.lineTo(margin + width * sc, margin + y * sc); ctx.stroke(); }
   const b = s.summary || {};
   let n = 0;
-  const reliable = (s.units || []).filter((u) => u.status === 'reliable' && u.centre_x !== null && u.centre_y !== null);
+  const reliable = (s.units || []).filter((u) => u.status === WORD.reliable && u.centre_x !== null && u.centre_y !== null);
   // With many units the labels would cover the grid: ids only up to 40.
   const labels = reliable.length <= 40;
   ctx.font = 'bold 20px system-ui, sans-serif';

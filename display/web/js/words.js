@@ -2,13 +2,17 @@
 // the JSON fields it reads, the sort keys and the densities. Change a word
 // here and every part follows.
 
-// STATUS lists the unit states in the order a unit passes through them
-// (online.Status); css is the class that colours a tile and a badge.
+// WORD holds the status words as the server sends them (online.Status).
+export const WORD = {collecting: 'collecting', emerging: 'emerging', reliable: 'reliable', noField: 'no field'};
+
+// STATUS lists the unit states in the order a unit passes through them;
+// css is the class that colours a tile and a badge. (A Go test checks the
+// words, the field names and the densities here against the server's.)
 export const STATUS = [
-  {word: 'collecting', css: 's-collecting', hint: 'too few spikes to say anything yet'},
-  {word: 'emerging', css: 's-emerging', hint: 'a significant field, not yet reliable'},
-  {word: 'reliable', css: 's-reliable', hint: 'significant and reliable at the target'},
-  {word: 'no field', css: 's-nofield', hint: 'enough spikes, still no significant linear field'},
+  {word: WORD.collecting, css: 's-collecting', hint: 'too few spikes to say anything yet'},
+  {word: WORD.emerging, css: 's-emerging', hint: 'a significant field, not yet reliable'},
+  {word: WORD.reliable, css: 's-reliable', hint: 'significant and reliable at the target'},
+  {word: WORD.noField, css: 's-nofield', hint: 'enough spikes, still no significant linear field'},
 ];
 
 const byWord = new Map(STATUS.map((s, i) => [s.word, {...s, rank: i}]));
@@ -18,8 +22,8 @@ export function statusOf(word) {
   return byWord.get(word) || byWord.get('collecting');
 }
 
-// FIELD names the JSON fields of a unit the page reads (display/tiles.go,
-// online.UnitSummary and online.UnitDetail).
+// FIELD names the JSON fields of a unit that the order, the filter and the
+// sort keys read by name (display/tiles.go, online.UnitDetail).
 export const FIELD = {
   id: 'id', status: 'status', spikes: 'spikes', reliability: 'reliability', significance: 'significance',
   eta: 'eta_s', rate: 'rate_hz', peakLag: 'peak_lag', latency: 'latency_ms',
