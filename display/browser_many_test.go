@@ -388,3 +388,35 @@ func TestBrowserManyUnits(t *testing.T) {
 		eventually(t, ctx, "the STC to start", `/^STC: (collecting|queued|running)/.test(document.getElementById('d-stcstate').textContent)`)
 	})
 }
+
+// At 1024 units (a synthetic block: numbers and maps only) the page picks
+// the compact grid, shows every unit, and a status filter still finds the
+// few that need a look.
+func TestBrowserThousandUnits(t *testing.T) {
+	const n = 1024
+	snap := syntheticSnapshot(n, 2)
+	ctx := newBrowserSized(t, 1400, 900)
+	srv := startPage(t, &rigSource{snap: snap}, "")
+	if err := chromedp.Do(ctx, chromedp.Navigate(srv.URL+"/"), chromedp.WaitVisible(chromedp.CSS(`#tiles .tile`))); err != nil {
+		t.Fatal(err)
+	}
+	eventually(t, ctx, "every tile", fmt.Sprintf(`document.querySelectorAll('#tiles .tile').length === %d`, n))
+	if cls := evaluate[string](t, ctx, `document.getElementById('tiles').className`); !strings.Contains(cls, "d-compact") {
+		t.Fatalf("at %d units the automatic density is %q, want compact", n, cls)
+	}
+	height := evaluate[float64](t, ctx, `document.documentElement.scrollHeight`)
+	t.Logf("page height %.0f px = %.2f screens of 900 px at %d units", height, height/900, n)
+	shoot(t, ctx, "thousand-compact.png")
+	noField := 0
+	for _, u := range snap.Units {
+		if u.Status == online.NoField {
+			noField++
+		}
+	}
+	if err := chromedp.Do(ctx, chromedp.Click(chromedp.CSS(`#statuses [data-status="no field"]`))); err != nil {
+		t.Fatal(err)
+	}
+	if got := len(evaluate[[]string](t, ctx, tileIDsJS)); got != noField {
+		t.Errorf("no-field filter: %d tiles, want %d", got, noField)
+	}
+}

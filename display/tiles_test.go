@@ -180,10 +180,12 @@ func syntheticSnapshot(n int, seed uint64) *online.Snapshot {
 	s := &online.Snapshot{Block: "probe-1", T: 431.6, Bins: 25896, Shape: [3]int{lags, height, width},
 		FramePeriod: 1.0 / 60, Lambda: 100}
 	reliable := 0
+	perChannel := map[int]int{}
 	for i := range n {
 		ch := i * 96 / n
+		perChannel[ch]++
 		u := online.UnitSummary{
-			ID:     fmt.Sprintf("ch%02d.%d", ch, i%4+1),
+			ID:     fmt.Sprintf("ch%02d.%d", ch, perChannel[ch]),
 			Spikes: int64(200 + rng.IntN(6000)),
 			Status: statuses[rng.IntN(len(statuses))],
 		}

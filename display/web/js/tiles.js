@@ -100,6 +100,7 @@ function tileFor(id, open) {
     badge: el.querySelector('.badge'), sub: el.querySelector('.sub'), bar: el.querySelector('.rbar i'),
     tick: el.querySelector('.rbar b'), unit: null};
   t.id.textContent = id;
+  t.id.classList.toggle('long', id.length > 6); // smaller in the compact grid, never cut
   el.addEventListener('click', () => open(id));
   const tt = t;
   hoverMap(t.canvas, () => {
