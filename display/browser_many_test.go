@@ -420,3 +420,20 @@ func TestBrowserThousandUnits(t *testing.T) {
 		t.Errorf("no-field filter: %d tiles, want %d", got, noField)
 	}
 }
+
+// A page opened without the token of a server that has one says so, rather
+// than only showing a lost connection.
+func TestBrowserAsksForToken(t *testing.T) {
+	ctx := newBrowser(t)
+	srv := startPage(t, &rigSource{snap: snapAt(1)}, "the-token")
+	if err := chromedp.Do(ctx, chromedp.Navigate(srv.URL+"/"), chromedp.WaitVisible(chromedp.ID("bar"))); err != nil {
+		t.Fatal(err)
+	}
+	eventually(t, ctx, "the token notice", `document.getElementById('notice').textContent.includes('needs its access token')`)
+	if got := text(t, ctx, "#link"); got == "live" {
+		t.Errorf("the websocket is %q without the token", got)
+	}
+	if n := evaluate[int](t, ctx, `document.querySelectorAll('#tiles .tile').length`); n != 0 {
+		t.Errorf("%d tiles shown without the token", n)
+	}
+}

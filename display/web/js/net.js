@@ -36,11 +36,17 @@ export async function post(path, body) {
   }
 }
 
+// NEED_TOKEN is what the page says when the server wants a token it was
+// not given (the websocket cannot tell; the requests can).
+const NEED_TOKEN = 'This server needs its access token: open the page with the URL livefield printed when it ' +
+  'started (…/?token=…).';
+
 // get fetches JSON; it returns null when the server is unreachable or
 // answers with an error (the callers poll again).
 export async function get(path) {
   try {
     const r = await fetch(path, {headers: headers(false)});
+    if (r.status === 401) report(token ? 'The access token in this page\'s URL is not the server\'s.' : NEED_TOKEN);
     return r.ok ? await r.json() : null;
   } catch (e) {
     return null;
