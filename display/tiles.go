@@ -79,7 +79,7 @@ type tileUnit struct {
 	Polarity     int           `json:"polarity"`
 	HasSTC       bool          `json:"has_stc,omitempty"`
 	Flagged      bool          `json:"flagged,omitempty"`
-	Map          levels        `json:"map,omitempty"`
+	Map          any           `json:"map,omitempty"` // []int8, or levels when a value is undefined
 	MapShape     *[2]int       `json:"map_shape,omitempty"`
 	MapMax       short         `json:"map_max,omitempty"`
 }
@@ -110,7 +110,8 @@ func tilesOf(s *online.Snapshot, d Density) *tileSnapshot {
 			if d == Medium {
 				m, h, w = shrink(u.Map, height, width, MediumSide)
 			}
-			t.Map, t.MapMax = quantise(m)
+			q, top := quantise(m)
+			t.Map, t.MapMax = q.plain(), top
 			t.MapShape = &[2]int{h, w}
 		}
 		out.Units[i] = t
@@ -172,6 +173,18 @@ func quantise(m online.Floats) (levels, short) {
 
 // levels is a quantised map; it encodes levelUndefined as null.
 type levels []int8
+
+// plain returns the levels as a plain []int8 when none is undefined, which
+// encoding/json writes without the validation pass it gives the output of
+// a MarshalJSON method (most of the encoding time of a large update).
+func (q levels) plain() any {
+	for _, v := range q {
+		if v == levelUndefined {
+			return q
+		}
+	}
+	return []int8(q)
+}
 
 const levelUndefined = math.MinInt8
 

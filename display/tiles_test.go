@@ -168,6 +168,20 @@ func TestQuantise(t *testing.T) {
 	if b, _ := json.Marshal(q); string(b) != "[0,0]" || top != 0 {
 		t.Fatalf("flat map = %s, max %v", b, top)
 	}
+	// In a whole tile: plain integers, or null where a value is undefined.
+	for _, tc := range []struct {
+		m    online.Floats
+		want string
+	}{
+		{online.Floats{1, -0.5, 0, 0.25}, `"map":[100,-50,0,25]`},
+		{online.Floats{1, online.Float(math.NaN()), 0, 0.25}, `"map":[100,null,0,25]`},
+	} {
+		s := &online.Snapshot{Shape: [3]int{1, 2, 2}, Units: []online.UnitSummary{{ID: "1", Map: tc.m}}}
+		b, err := encodeTiles(s, Large)
+		if err != nil || !bytes.Contains(b, []byte(tc.want)) {
+			t.Errorf("tile of %v: %s (%v), want it to hold %s", tc.m, b, err, tc.want)
+		}
+	}
 }
 
 // syntheticSnapshot makes a block of n units on a 16×16 stimulus for the
