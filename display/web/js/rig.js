@@ -30,15 +30,19 @@ export function renderRig(h) {
   if (h.slow_consumer_drops) add(h.slow_consumer_drops + ' messages dropped (slow consumer)', 'bad');
   if (h.block_error) add('block ' + (h.rejected_block || '') + ' refused: ' + h.block_error, 'bad');
   if (typeof h.lag_s === 'number' && h.lag_s > 5) add('estimates ' + Math.round(h.lag_s) + ' s behind', 'warn');
-  renderBudget(add, h.update_s);
+  // The time between updates: from the health when it says (update_every_s),
+  // else the mapper's default.
+  const budget = typeof h.update_every_s === 'number' && h.update_every_s > 0 ? h.update_every_s : UPDATE_BUDGET_S;
+  renderBudget(add, h.update_s, budget);
 }
 
 // renderBudget says how long the last update of the estimates took once
 // that is half of the time between updates or more: past the budget the
 // estimates fall behind the rig.
-function renderBudget(add, seconds) {
-  if (typeof seconds !== 'number' || !(seconds >= UPDATE_BUDGET_S / 2)) return;
-  add('update takes ' + num(seconds, 2) + ' s of its ' + UPDATE_BUDGET_S + ' s', seconds >= 0.9 * UPDATE_BUDGET_S ? 'bad' : 'warn',
+function renderBudget(add, seconds, budget) {
+  if (typeof seconds !== 'number' || !(seconds >= budget / 2)) return;
+  add('update takes ' + num(seconds, 2) + ' s of its ' + num(budget, budget < 10 ? 1 : 0).replace(/\.0$/, '') + ' s',
+    seconds >= 0.9 * budget ? 'bad' : 'warn',
     'the time the last update of every unit\'s estimates took; beyond the time between updates the page falls behind the rig');
 }
 
