@@ -6,9 +6,12 @@
 // estimate, the ingest health counters, and the few commands an
 // experimenter gives during a session (reset after the electrode moved,
 // spike-triggered covariance on a unit, the reliability criterion). The
-// websocket fan-out (hub.go), the embedded page (page.go, web/), the
-// server-side PNG renderers (png.go), the NPY and JSON exports (export.go),
-// and Server (server.go), which mounts them all behind the token guard.
+// websocket fan-out (hub.go) and the tiles it sends each browser at the
+// density the browser chose (tiles.go), the embedded page (page.go, web/,
+// its script modules in web/js), the server-side PNG renderers (png.go),
+// the NPY and JSON exports (export.go), and Server (server.go), which
+// mounts them all behind the token guard: with a token set, everything but
+// the page shell needs it.
 // The endpoints of a practice run (practice.go) are mounted beside Server
 // by the command that runs the practice.
 //

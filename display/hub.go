@@ -25,7 +25,7 @@ const (
 	// pingPeriod is how often the server pings; shorter than pongWait so a
 	// pong can arrive before the read deadline.
 	pingPeriod = pongWait * 9 / 10
-	// MaxClientMessage bounds a message from a browser (a view list).
+	// MaxClientMessage bounds a message from a browser (a view request).
 	MaxClientMessage = 4 << 10
 	// MaxView bounds the number of units a browser may have in view; each
 	// one costs a full estimate per update.
@@ -35,7 +35,7 @@ const (
 // Message types sent to the browser. Each message is one JSON object with a
 // "type" field.
 const (
-	typeSnapshot = "snapshot" // {"type":"snapshot","snapshot":{…online.Snapshot}}
+	typeSnapshot = "snapshot" // {"type":"snapshot","snapshot":{…tileSnapshot}}, at the client's density
 	typeUnit     = "unit"     // {"type":"unit","block":…,"t":…,"unit":{…online.UnitDetail}}
 )
 
@@ -67,8 +67,9 @@ type Hub struct {
 	wg    sync.WaitGroup // client goroutines
 }
 
-// NewHub returns a hub; token, when not empty, lets a page from another
-// origin connect (presented as ?token= or the X-Livefield-Token header).
+// NewHub returns a hub; token, when not empty, is required of every
+// websocket (as ?token= or the X-Livefield-Token header) and then also lets
+// a page from another origin connect.
 func NewHub(token string) *Hub {
 	h := &Hub{
 		token:      token,
@@ -82,6 +83,10 @@ func NewHub(token string) *Hub {
 		ReadBufferSize:  1024,
 		WriteBufferSize: 16 << 10,
 		CheckOrigin:     h.checkOrigin,
+		// Browsers offer permessage-deflate (RFC 7692); the repeated keys
+		// and small integers of the tiles compress several times over, and
+		// a prepared message is compressed once for all browsers.
+		EnableCompression: true,
 	}
 	return h
 }
@@ -111,8 +116,8 @@ func (h *Hub) Stats() HubStats {
 func (h *Hub) Run(ctx context.Context) {
 	clients := map[*client]bool{}
 	var cur *online.Snapshot
-	var shared *websocket.PreparedMessage
-	units := map[string]*websocket.PreparedMessage{} // detail messages of cur, encoded once
+	tiles := map[Density]*websocket.PreparedMessage{} // snapshot messages of cur, encoded once per density in use
+	units := map[string]*websocket.PreparedMessage{}  // detail messages of cur, encoded once
 	defer func() {
 		close(h.done)
 		for c := range clients {
@@ -121,21 +126,30 @@ func (h *Hub) Run(ctx context.Context) {
 		h.wg.Wait()
 	}()
 	send := func(c *client) {
-		if shared == nil {
+		if cur == nil {
 			return
 		}
-		f := &frame{snap: cur, msgs: []*websocket.PreparedMessage{shared}}
-		for _, id := range c.viewing() {
+		view, density := c.wants()
+		m, ok := tiles[density]
+		if !ok {
+			m = encodeSnapshot(cur, density)
+			tiles[density] = m // nil for a snapshot that cannot be encoded: not retried
+		}
+		if m == nil {
+			return
+		}
+		b := &batch{msgs: []*websocket.PreparedMessage{m}}
+		for _, id := range view {
 			m, ok := units[id]
 			if !ok {
 				m = encodeUnit(cur, id)
 				units[id] = m // nil for an unknown unit: not retried
 			}
 			if m != nil {
-				f.msgs = append(f.msgs, m)
+				b.msgs = append(b.msgs, m)
 			}
 		}
-		if c.offer(f) {
+		if c.offer(b) {
 			h.count(func(s *HubStats) { s.Dropped++ })
 		}
 	}
@@ -162,11 +176,8 @@ func (h *Hub) Run(ctx context.Context) {
 			if s == cur {
 				continue
 			}
-			m, err := prepare(map[string]any{"type": typeSnapshot, "snapshot": s})
-			if err != nil {
-				continue // a snapshot that cannot be encoded is skipped
-			}
-			cur, shared = s, m
+			cur = s
+			clear(tiles)
 			clear(units)
 			for c := range clients {
 				send(c)
@@ -190,6 +201,18 @@ func prepare(v any) (*websocket.PreparedMessage, error) {
 	return websocket.NewPreparedMessage(websocket.TextMessage, b)
 }
 
+func encodeSnapshot(s *online.Snapshot, d Density) *websocket.PreparedMessage {
+	b, err := encodeTiles(s, d)
+	if err != nil {
+		return nil
+	}
+	m, err := websocket.NewPreparedMessage(websocket.TextMessage, b)
+	if err != nil {
+		return nil
+	}
+	return m
+}
+
 func encodeUnit(s *online.Snapshot, id string) *websocket.PreparedMessage {
 	d, ok := s.Detail(id)
 	if !ok {
@@ -203,7 +226,7 @@ func encodeUnit(s *online.Snapshot, id string) *websocket.PreparedMessage {
 }
 
 // checkOrigin accepts a page served by this host, or any page that presents
-// the token.
+// the token (when a token is set, ServeHTTP has already required it).
 func (h *Hub) checkOrigin(r *http.Request) bool {
 	if h.token != "" && tokenOK(r, h.token) {
 		return true
@@ -229,7 +252,8 @@ func tokenOK(r *http.Request, token string) bool {
 }
 
 // ServeHTTP upgrades the request to a websocket and serves it until the
-// browser leaves or the hub stops.
+// browser leaves or the hub stops. The query parameter density sets the
+// density of the tiles from the first update on (default Large).
 func (h *Hub) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	select {
 	case <-h.done:
@@ -237,11 +261,18 @@ func (h *Hub) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 		return
 	default:
 	}
+	if h.token != "" && !tokenOK(r, h.token) {
+		fail(w, http.StatusUnauthorized, "display: missing or wrong token (header %s or ?token=)", TokenHeader)
+		return
+	}
 	conn, err := h.upgrader.Upgrade(w, r, nil)
 	if err != nil {
 		return // the upgrader has written the error response
 	}
-	c := &client{conn: conn, wake: make(chan struct{}, 1), quit: make(chan struct{})}
+	c := &client{conn: conn, wake: make(chan struct{}, 1), quit: make(chan struct{}), density: Large}
+	if d, ok := parseDensity(r.URL.Query().Get("density")); ok {
+		c.density = d // the first update at the page's density already
+	}
 	h.wg.Add(2) // before register, so Run's Wait cannot start in between
 	select {
 	case h.register <- c:
@@ -254,15 +285,14 @@ func (h *Hub) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	go c.readLoop(h)
 }
 
-// frame is what one browser receives for one snapshot: the shared summary
-// and the details of the units it has in view.
-type frame struct {
-	snap *online.Snapshot
+// batch is what one browser receives for one snapshot: the tiles at its
+// density and the details of the units it has in view, written in order.
+type batch struct {
 	msgs []*websocket.PreparedMessage
 }
 
-// client is one browser. The hub goroutine offers frames; the writer takes
-// them; the reader updates the view.
+// client is one browser. The hub goroutine offers batches; the writer takes
+// them; the reader updates the view and the density.
 type client struct {
 	conn *websocket.Conn
 	wake chan struct{} // capacity 1
@@ -270,16 +300,17 @@ type client struct {
 	once sync.Once
 
 	mu      sync.Mutex
-	pending *frame   // latest frame not yet taken by the writer
+	pending *batch   // latest batch not yet taken by the writer
 	view    []string // unit ids in view
+	density Density  // of the tiles; Large until the browser says otherwise
 }
 
-// offer replaces the pending frame; it reports whether an untaken one was
+// offer replaces the pending batch; it reports whether an untaken one was
 // dropped. It never blocks.
-func (c *client) offer(f *frame) (dropped bool) {
+func (c *client) offer(b *batch) (dropped bool) {
 	c.mu.Lock()
 	dropped = c.pending != nil
-	c.pending = f
+	c.pending = b
 	c.mu.Unlock()
 	select {
 	case c.wake <- struct{}{}:
@@ -288,18 +319,19 @@ func (c *client) offer(f *frame) (dropped bool) {
 	return dropped
 }
 
-func (c *client) take() *frame {
+func (c *client) take() *batch {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	f := c.pending
+	b := c.pending
 	c.pending = nil
-	return f
+	return b
 }
 
-func (c *client) viewing() []string {
+// wants returns the units in view and the density of the tiles.
+func (c *client) wants() ([]string, Density) {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	return c.view
+	return c.view, c.density
 }
 
 func (c *client) stop() { c.once.Do(func() { close(c.quit) }) }
@@ -328,11 +360,11 @@ func (c *client) writeLoop(h *Hub) {
 				websocket.FormatCloseMessage(websocket.CloseGoingAway, "display: server stopping"))
 			return
 		case <-c.wake:
-			f := c.take()
-			if f == nil {
+			b := c.take()
+			if b == nil {
 				continue
 			}
-			for _, m := range f.msgs {
+			for _, m := range b.msgs {
 				if err := c.conn.SetWriteDeadline(time.Now().Add(writeWait)); err != nil {
 					return
 				}
@@ -351,9 +383,12 @@ func (c *client) writeLoop(h *Hub) {
 	}
 }
 
-// viewRequest is the one message a browser sends.
+// viewRequest is the one message a browser sends: the units whose full
+// estimates it wants with every update, and the density of its tiles (an
+// absent or unknown density leaves the density as it was).
 type viewRequest struct {
-	View []string `json:"view"`
+	View    []string `json:"view"`
+	Density string   `json:"density,omitempty"`
 }
 
 func (c *client) readLoop(h *Hub) {
@@ -387,6 +422,9 @@ func (c *client) readLoop(h *Hub) {
 		}
 		c.mu.Lock()
 		c.view = view
+		if d, ok := parseDensity(req.Density); ok {
+			c.density = d
+		}
 		c.mu.Unlock()
 		select {
 		case h.views <- c:

@@ -267,48 +267,59 @@ func TestHubStalledClientCatchesUp(t *testing.T) {
 	}
 }
 
+// Without a token, a websocket is accepted from this host's page or from a
+// client that is not a browser; with one, the token is required of every
+// websocket (issue 12 item 5) and then any origin may present it.
 func TestHubOrigin(t *testing.T) {
 	const token = "s3cret-token"
-	_, srv := startHub(t, token, nil)
-	host := strings.TrimPrefix(srv.URL, "http://")
+	_, open := startHub(t, "", nil)
+	_, guarded := startHub(t, token, nil)
 	tests := []struct {
 		name   string
-		origin string
+		srv    *httptest.Server
+		origin string // "self" for the server's own host
 		query  string
 		header string
-		ok     bool
+		want   int // 0 for accepted
 	}{
-		{"same host", "http://" + host, "", "", true},
-		{"no origin (not a browser)", "", "", "", true},
-		{"other site", "http://elsewhere.example", "", "", false},
-		{"other port", "http://127.0.0.1:1", "", "", false},
-		{"other site with token", "http://elsewhere.example", "?token=" + token, "", true},
-		{"other site with token header", "http://elsewhere.example", "", token, true},
-		{"other site with wrong token", "http://elsewhere.example", "?token=guess", "", false},
-		{"other site with token prefix", "http://elsewhere.example", "?token=s3cret", "", false},
+		{"same host", open, "self", "", "", 0},
+		{"no origin (not a browser)", open, "", "", "", 0},
+		{"other site", open, "http://elsewhere.example", "", "", http.StatusForbidden},
+		{"other port", open, "http://127.0.0.1:1", "", "", http.StatusForbidden},
+		{"token set: same host without token", guarded, "self", "", "", http.StatusUnauthorized},
+		{"token set: no origin without token", guarded, "", "", "", http.StatusUnauthorized},
+		{"token set: same host with token", guarded, "self", "?token=" + token, "", 0},
+		{"token set: other site with token", guarded, "http://elsewhere.example", "?token=" + token, "", 0},
+		{"token set: other site with token header", guarded, "http://elsewhere.example", "", token, 0},
+		{"token set: other site with wrong token", guarded, "http://elsewhere.example", "?token=guess", "", http.StatusUnauthorized},
+		{"token set: token prefix", guarded, "self", "?token=s3cret", "", http.StatusUnauthorized},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
 			hdr := http.Header{}
-			if tc.origin != "" {
+			switch tc.origin {
+			case "":
+			case "self":
+				hdr.Set("Origin", tc.srv.URL)
+			default:
 				hdr.Set("Origin", tc.origin)
 			}
 			if tc.header != "" {
 				hdr.Set(TokenHeader, tc.header)
 			}
-			c, resp, err := websocket.DefaultDialer.Dial(wsURL(srv)+tc.query, hdr)
+			c, resp, err := websocket.DefaultDialer.Dial(wsURL(tc.srv)+tc.query, hdr)
 			if c != nil {
 				c.Close()
 			}
-			if tc.ok && err != nil {
+			if tc.want == 0 && err != nil {
 				t.Fatalf("refused: %v", err)
 			}
-			if !tc.ok {
+			if tc.want != 0 {
 				if err == nil {
-					t.Fatal("accepted a foreign origin")
+					t.Fatal("accepted")
 				}
-				if resp == nil || resp.StatusCode != http.StatusForbidden {
-					t.Fatalf("want 403, got %v", resp)
+				if resp == nil || resp.StatusCode != tc.want {
+					t.Fatalf("want %d, got %v", tc.want, resp)
 				}
 			}
 		})

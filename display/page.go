@@ -9,7 +9,8 @@ import (
 //go:embed web
 var webFiles embed.FS
 
-// pageFiles is the embedded page: index.html, app.js and style.css.
+// pageFiles is the embedded page: index.html, style.css and the script
+// modules under js/.
 var pageFiles, _ = fs.Sub(webFiles, "web")
 
 // Page serves the embedded web page: "/" is index.html, "/static/…" the

@@ -25,7 +25,7 @@ var ErrUnknownUnit = errors.New("display: unknown unit")
 // (index 2) to +limit (index 4): dark blue, light blue, warm white, light
 // orange, burnt orange. Blue against orange stays distinct for the common
 // red–green colour-vision deficiencies (common practice, no source). The
-// page (web/app.js, DIVERGING) uses the same five stops.
+// page (web/js/colour.js, DIVERGING) uses the same five stops.
 var divergingStops = [5][3]uint8{
 	{36, 84, 168},
 	{120, 170, 220},
@@ -160,10 +160,9 @@ func finite(v ...float64) bool {
 	return true
 }
 
-// naturalLess orders unit ids with digit runs compared as numbers, so "2"
-// comes before "10" and "ch2-u1" before "ch10-u1".
-func naturalLess(a, b string) bool { return naturalCompare(a, b) < 0 }
-
+// naturalCompare orders unit ids with digit runs compared as numbers, so "2"
+// comes before "10" and "ch2-u1" before "ch10-u1"; otherwise byte by byte.
+// The page sorts the same way (web/js/order.js, naturalCompare).
 func naturalCompare(a, b string) int {
 	for a != "" && b != "" {
 		da, db := digitRun(a), digitRun(b)

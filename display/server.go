@@ -7,15 +7,17 @@ import (
 	"time"
 )
 
-// TokenHeader carries the access token of controls and exports; the query
-// parameter "token" is accepted as well.
+// TokenHeader carries the access token of the data, the controls and the
+// exports; the query parameter "token" is accepted as well.
 const TokenHeader = "X-Livefield-Token"
 
 // Options configure a Server.
 type Options struct {
-	// Token, when not empty, is required by the controls (POST /api/…) and
-	// the exports (/export/…), and lets pages from other origins open the
-	// websocket. Empty means no token (the default; listen on loopback).
+	// Token, when not empty, is required by everything that carries
+	// estimates or commands: the JSON API (/api/…, reads and controls), the
+	// exports (/export/…) and the websocket; only the page shell (/ and
+	// /static/…) stays open, and the page takes the token from its own URL.
+	// Empty means no token (the default; listen on loopback).
 	Token string
 	// Poll is how often the source is asked for a new snapshot (default 1 s).
 	Poll time.Duration
@@ -41,9 +43,8 @@ func NewServer(src SnapshotSource, opt Options) *Server {
 	page := Page()
 	s.mux.Handle("GET /{$}", page)
 	s.mux.Handle("GET /static/", page)
-	s.mux.Handle("GET /ws", s.hub)
-	s.mux.Handle("GET /api/", api)
-	s.mux.Handle("/api/", s.guard(api)) // the commands
+	s.mux.Handle("GET /ws", s.hub) // the hub asks for the token itself
+	s.mux.Handle("/api/", s.guard(api))
 	s.mux.Handle("/export/", s.guard(ExportHandler(src)))
 	return s
 }

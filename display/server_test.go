@@ -42,10 +42,11 @@ func (f *rigSource) set(s *online.Snapshot) {
 }
 
 // Health reports a rig whose NATS link is down, on core NATS, with late
-// spikes and refused messages, as /api/health would.
+// spikes, refused messages and an update that takes most of its second, as
+// /api/health would.
 func (f *rigSource) Health() any {
 	return map[string]any{
-		"bins": 1, "connection": "RECONNECTING", "reconnects": 2, "durable": false,
+		"bins": 1, "connection": "RECONNECTING", "reconnects": 2, "durable": false, "update_s": 0.72,
 		"warning":     "core NATS: messages sent during a disconnect are lost",
 		"late_spikes": 3, "rejected": map[string]int{"syntax": 2, "unit-cap": 1},
 	}
@@ -111,8 +112,17 @@ func TestTokenGuard(t *testing.T) {
 		want         int
 	}{
 		{"page needs no token", "GET", "/", nil, "", 200},
-		{"script needs no token", "GET", "/static/app.js", nil, "", 200},
-		{"unit list needs no token", "GET", "/api/units", nil, "", 200},
+		{"script needs no token", "GET", "/static/js/main.js", nil, "", 200},
+		{"unit list without token", "GET", "/api/units", nil, "", 401},
+		{"unit list with header", "GET", "/api/units", withHeader, "", 200},
+		{"unit without token", "GET", "/api/units/u1", nil, "", 401},
+		{"unit with wrong token", "GET", "/api/units/u1", wrong, "", 401},
+		{"unit with query, unknown", "GET", "/api/units/u1?token=" + token, nil, "", 404},
+		{"health without token", "GET", "/api/health", nil, "", 401},
+		{"health with header", "GET", "/api/health", withHeader, "", 200},
+		{"unknown endpoint without token", "GET", "/api/nothing", nil, "", 401},
+		{"websocket without token", "GET", "/ws", nil, "", 401},
+		{"style needs no token", "GET", "/static/style.css", nil, "", 200},
 		{"reset without token", "POST", "/api/reset", nil, "", 401},
 		{"reset with wrong token", "POST", "/api/reset", wrong, "", 401},
 		{"reset with header", "POST", "/api/reset", withHeader, "", 200},
@@ -262,8 +272,8 @@ func TestServerPushesSourceUpdates(t *testing.T) {
 func TestPageServed(t *testing.T) {
 	s := NewServer(&rigSource{}, Options{})
 	tests := []struct{ path, kind, contains string }{
-		{"/", "text/html; charset=utf-8", `<script src="static/app.js"`},
-		{"/static/app.js", "text/javascript; charset=utf-8", "new WebSocket"},
+		{"/", "text/html; charset=utf-8", `<script type="module" src="static/js/main.js"`},
+		{"/static/js/net.js", "text/javascript; charset=utf-8", "new WebSocket"},
 		{"/static/style.css", "text/css; charset=utf-8", "--reliable"},
 	}
 	for _, tc := range tests {

@@ -81,6 +81,12 @@ type UnitDetail struct {
 	Z           Floats     `json:"z"` // ridge weight / posterior standard deviation
 	Features    Features   `json:"features"`
 	STC         *STCResult `json:"stc,omitempty"`
+	// STCState says what became of STC on this unit: "running" (a result
+	// is attached), "collecting: …" (too few spike-triggered samples yet),
+	// "queued for results" (enough; its turn comes), "waiting: …" (asked
+	// for, not started, and why) or "unavailable: …"; empty when STC was
+	// neither asked for nor started.
+	STCState string `json:"stc_state,omitempty"`
 	// History of reliability over the block, one point per update.
 	History []HistoryPoint `json:"history"`
 }

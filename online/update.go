@@ -1,6 +1,7 @@
 package online
 
 import (
+	"fmt"
 	"math"
 	"runtime"
 	"slices"
@@ -348,29 +349,59 @@ const stcEvery = 2
 const stcMinSamples = 2
 
 // updateSTC starts STC for flagged units and for units with no linear field
-// (within the cap) and attaches the latest results to the details. STC needs
-// a white stimulus, whose prior covariance c²I is known.
+// (within the cap) and attaches the latest results to the details. A unit the experimenter asked for comes
+// first: it takes a free place, or the place of an automatic ("no field")
+// unit, whose STC is dropped. STC needs a white stimulus, whose prior
+// covariance c²I is known. Each detail's STCState says what became of it.
 func (m *Mapper) updateSTC(details []*UnitDetail) {
 	if !m.cfg.White {
+		for u, d := range details {
+			if m.flagged[u] {
+				d.STCState = "unavailable: STC needs a white-noise stimulus"
+			}
+		}
 		return
 	}
 	if m.stcLags == nil {
 		m.stcLags = m.stcWindow(details)
 	}
-	for u, d := range details {
-		if m.stc[u] != nil || len(m.stc) >= m.cfg.STCMaxUnits {
+	refused := map[int]string{}
+	for u := range details {
+		if !m.flagged[u] || m.stc[u] != nil {
 			continue
 		}
-		if m.flagged[u] || d.Status == NoField {
-			if s, err := NewSTC(m.pixels, m.stcLags); err == nil {
-				m.stc[u] = s
-			}
+		if len(m.stc) >= m.cfg.STCMaxUnits && !m.dropAutomaticSTC() {
+			refused[u] = fmt.Sprintf("waiting: all %d STC places hold requested units", m.cfg.STCMaxUnits)
+			continue
+		}
+		s, err := NewSTC(m.pixels, m.stcLags)
+		if err != nil {
+			refused[u] = "waiting: " + err.Error()
+			continue
+		}
+		m.stc[u] = s
+	}
+	for u, d := range details {
+		if m.stc[u] != nil || len(m.stc) >= m.cfg.STCMaxUnits || d.Status != NoField {
+			continue
+		}
+		if s, err := NewSTC(m.pixels, m.stcLags); err == nil {
+			m.stc[u] = s
 		}
 	}
 	for u, d := range details {
-		if r := m.stcResults[u]; r != nil && m.stc[u] != nil {
+		acc := m.stc[u]
+		switch r := m.stcResults[u]; {
+		case acc != nil && r != nil:
 			d.STC = r
 			d.HasSTC = true
+			d.STCState = "running"
+		case acc != nil && acc.Effective() < stcMinSamples*float64(acc.Dim()):
+			d.STCState = fmt.Sprintf("collecting: %.0f of %d spike-triggered samples", acc.Effective(), stcMinSamples*acc.Dim())
+		case acc != nil:
+			d.STCState = "queued for results"
+		default:
+			d.STCState = refused[u]
 		}
 	}
 }
@@ -410,6 +441,25 @@ func (m *Mapper) refreshSTC() func() {
 		}
 	}
 }
+
+// dropAutomaticSTC ends the STC of one unit that was not asked for (the
+// one with the highest index, the latest to appear), to make room for a
+// request; it reports false when every place holds a request.
+func (m *Mapper) dropAutomaticSTC() bool {
+	drop := -1
+	for u := range m.stc {
+		if !m.flagged[u] && u > drop {
+			drop = u
+		}
+	}
+	if drop < 0 {
+		return false
+	}
+	delete(m.stc, drop)
+	delete(m.stcResults, drop)
+	return true
+}
+
 
 // stcWindow picks STC's lags: STCLags lags centred on the median peak lag of
 // the significant units, or on the lag nearest 60 ms when there is none yet.

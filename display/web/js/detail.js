@@ -1,0 +1,128 @@
+// The unit detail: the header facts and controls of one unit and its
+// plots (plots.js), and moving between units with the keyboard.
+import {statusOf} from './words.js';
+import {num, eta} from './format.js';
+import {hoverMap, hideHover} from './hover.js';
+import {drawFilters, drawLagStrip, drawPeakMap, drawReliability, drawSpectrum, drawTimeCourse, lagSlice, peakPixel} from './plots.js';
+import {live} from './store.js';
+import {view} from './view.js';
+
+const $ = (id) => document.getElementById(id);
+
+// estimate is the estimate chosen by the Ridge / STA / z buttons.
+export function estimate(d) {
+  return view.kind === 'sta' ? d.sta : view.kind === 'z' ? d.z : d.ridge;
+}
+
+// drawn remembers what the detail body last drew, so an update that
+// changes nothing of the open unit does not redraw it.
+let drawn = {d: null, kind: null};
+
+// showDetail opens (or refreshes) the detail of view.unit.
+export function showDetail() {
+  const id = view.unit;
+  $('detail').hidden = id === null;
+  if (id === null) { hideHover(); return; }
+  $('d-id').textContent = 'unit ' + id;
+  const pos = live.order.indexOf(id);
+  $('d-pos').textContent = (pos >= 0 ? (pos + 1) + ' of ' + live.order.length : 'not shown') + ' · ← →';
+  $('d-pos').title = 'position among the shown units, in the chosen order; ← and → (or k and j) move, Esc closes';
+  const d = live.details[id];
+  const known = live.snap && (live.snap.units || []).some((u) => u.id === id);
+  $('d-wait').hidden = !!d;
+  $('d-wait').textContent = known || !live.snap ? 'Loading the full estimate…' : 'No unit ' + id + ' in this block.';
+  $('d-body').hidden = !d;
+  for (const o of document.querySelectorAll('.kind')) o.classList.toggle('on', o.dataset.kind === view.kind);
+  if (d && (d !== drawn.d || view.kind !== drawn.kind)) {
+    renderDetail(d);
+    drawn = {d, kind: view.kind};
+  }
+}
+
+// step moves the detail by delta units in the shown order (wrapping);
+// when the open unit is not among them, it goes to the first or last.
+export function step(delta) {
+  const order = live.order;
+  if (!order.length) return false;
+  const i = order.indexOf(view.unit);
+  const next = i < 0 ? (delta > 0 ? 0 : order.length - 1) : (i + delta + order.length) % order.length;
+  view.unit = order[next];
+  return true;
+}
+
+// The lag strip's cells, made once per number of lags.
+const strip = [];
+
+function lagCells(lags, n) {
+  const box = $('d-lags');
+  while (strip.length > lags) strip.pop().el.remove();
+  while (strip.length < lags) {
+    const l = strip.length;
+    const el = document.createElement('div');
+    el.className = 'lag';
+    el.innerHTML = '<canvas></canvas><div></div>';
+    const canvas = el.querySelector('canvas');
+    hoverMap(canvas, () => {
+      const dd = live.details[view.unit];
+      if (!dd) return null;
+      return {map: lagSlice(estimate(dd), l, dd.shape[1] * dd.shape[2], dd.shape[0]), width: dd.shape[2], height: dd.shape[1], note: 'lag ' + l};
+    });
+    box.appendChild(el);
+    strip.push({el, canvas, label: el.lastChild});
+  }
+  return strip;
+}
+
+// stcWords says what happens to the unit's STC (online.UnitDetail.stc_state):
+// running, waiting and why, or queued for results.
+function stcWords(d) {
+  if (d.stc_state && /^waiting/.test(d.stc_state)) return 'STC: ' + d.stc_state + ' — it starts when a place frees';
+  if (d.stc_state) return 'STC: ' + d.stc_state;
+  return d.flagged ? 'STC requested' : '';
+}
+
+function renderFacts(d) {
+  const f = d.features || {};
+  const st = statusOf(d.status);
+  $('d-status').textContent = st.word;
+  $('d-status').className = 'badge ' + st.css;
+  $('d-facts').textContent = 'reliability ' + num(d.reliability, 2) + ' · ETA ' + eta(d.eta_s) + ' · ' + d.spikes + ' spikes · ' +
+    num(d.rate_hz, 1) + ' sp/s · −log10 p ' + num(d.significance, 1) + ' · latency ' + num(d.latency_ms, 0) +
+    ' ms · separability ' + num(f.separability, 2) + ' · ' + (f.polarity > 0 ? 'bright' : f.polarity < 0 ? 'dark' : '—') + ' peak';
+  $('d-stc').textContent = d.flagged ? 'Stop STC' : 'Ask for STC';
+  const words = stcWords(d);
+  $('d-stcstate').textContent = words;
+  $('d-stcstate').className = 'stcstate' + (/^STC: waiting/.test(words) ? ' warn' : '');
+}
+
+// renderDetail draws everything of one unit.
+export function renderDetail(d) {
+  const [lags, height, width] = d.shape;
+  const n = width * height;
+  const f = d.features || {};
+  const est = estimate(d) || [];
+  renderFacts(d);
+  drawLagStrip(lagCells(lags, n), est, d.shape, f.peak_lag, d.frame_period_s || 0);
+
+  const peak = lagSlice(est, f.peak_lag, n, lags);
+  drawPeakMap($('d-map'), peak, width, height, f);
+  $('d-mapcap').textContent = view.kind.toUpperCase() + ' at the peak lag ' + f.peak_lag + ' — ring: fitted centre, 1σ extent';
+  $('d-map').title = 'centre x ' + num(f.centre_x, 2) + ', y ' + num(f.centre_y, 2) + ' px; σ ' + num(f.sigma_x, 2) + ' × ' + num(f.sigma_y, 2) + ' px';
+
+  const pixel = peakPixel(f.map);
+  drawTimeCourse($('d-time'), est, d.shape, pixel, f);
+  $('d-time').title = 'pixel x ' + (pixel % width) + ', y ' + Math.floor(pixel / width);
+
+  const target = live.snap && live.snap.summary ? live.snap.summary.target : null;
+  drawReliability($('d-hist'), d.history || [], target, d.eta_s);
+  $('d-hist').title = 'reliability ' + num(d.reliability, 3) + ', target ' + num(target, 2) + ', ETA ' + eta(d.eta_s);
+
+  const stc = d.stc;
+  $('d-stcbox').hidden = !stc;
+  if (stc) {
+    drawSpectrum($('d-spec'), stc);
+    $('d-spec').title = (stc.eigenvalues || []).length + ' eigenvalues; chance range ' + num(stc.null_low, 3) + ' to ' +
+      num(stc.null_high, 3) + '; ' + (stc.spikes || 0) + ' spikes';
+    drawFilters($('d-filters'), stc, width, height);
+  }
+}
