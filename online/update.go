@@ -460,7 +460,6 @@ func (m *Mapper) dropAutomaticSTC() bool {
 	return true
 }
 
-
 // stcWindow picks STC's lags: STCLags lags centred on the median peak lag of
 // the significant units, or on the lag nearest 60 ms when there is none yet.
 func (m *Mapper) stcWindow(details []*UnitDetail) []int {
