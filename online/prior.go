@@ -5,10 +5,9 @@ import (
 	"fmt"
 	"math"
 
-	"gonum.org/v1/gonum/blas"
-	"gonum.org/v1/gonum/blas/blas64"
-	"gonum.org/v1/gonum/lapack/lapack64"
 	"gonum.org/v1/gonum/mat"
+
+	"livefield/online/internal/fastmat"
 )
 
 // The smooth-local estimate: the posterior mean of a linear-Gaussian model
@@ -120,7 +119,9 @@ type priorProblem struct {
 	z, zt []float64    // k
 	mu    []float64    // k: posterior mean of the last evaluation
 	kbuf  []float64    // k×k, for kronRows
-	vb    []float64    // k, for kronVec
+	tr    []float64    // cholBlock×k, for cholesky
+	buf   fastmat.Buf
+	vb    []float64 // k, for kronVec
 	eig   mat.EigenSym
 }
 
@@ -136,6 +137,7 @@ func newPriorProblem(win PriorWindow) *priorProblem {
 	p.z = make([]float64, k)
 	p.zt = make([]float64, k)
 	p.mu = make([]float64, k)
+	p.tr = make([]float64, cholBlock*k)
 	for d, n := range [3]int{win.NX, win.NY, win.NT} {
 		p.root[d] = make([]float64, n*n)
 	}
@@ -199,19 +201,17 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 	p.kronRows(p.tmp)
 	transposeTo(p.m, p.tmp, k)
 	p.kronRows(p.m)
-	// B = I + a·m, symmetrised, then its Cholesky factor (upper).
+	// B = I + a·m, symmetrised, then its Cholesky factor (lower).
 	for r := range k {
 		for c := r; c < k; c++ {
 			v := a * 0.5 * (p.m[r*k+c] + p.m[c*k+r])
 			if r == c {
 				v++
 			}
-			p.m[r*k+c] = v
+			p.m[r*k+c], p.m[c*k+r] = v, v
 		}
 	}
-	bs := blas64.Symmetric{N: k, Stride: k, Data: p.m, Uplo: blas.Upper}
-	tri, ok := lapack64.Potrf(bs)
-	if !ok {
+	if !cholesky(p.m, k, p.tr, &p.buf) {
 		return evaluation{}, errors.New("online: smooth-local prior: I + a·LᵀGL is not positive definite")
 	}
 	var logDet float64
@@ -224,9 +224,7 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 	}
 	p.kronVec(p.z, p.zt)
 	copy(p.zt, p.z)
-	zv := blas64.Vector{N: k, Inc: 1, Data: p.zt}
-	blas64.Trsv(blas.Trans, tri, zv)
-	blas64.Trsv(blas.NoTrans, tri, zv)
+	cholSolve(p.m, k, p.zt)
 	var cmu float64
 	for r := range k {
 		cmu += p.z[r] * p.zt[r]
@@ -290,15 +288,14 @@ func (p *priorProblem) kernelRoot(axis, n int, delta float64) error {
 }
 
 // kronRows replaces the k×k matrix a by (K_t^½ ⊗ K_y^½ ⊗ K_x^½)·a, one axis at
-// a time, each as a few matrix products: O(k²·(NX + NY + NT)).
+// a time, each as a few products on the package's matrix kernel:
+// O(k²·(NX + NY + NT)).
 func (p *priorProblem) kronRows(a []float64) {
 	k, w := p.k, p.win
 	buf := p.kronBuf()
 	mul := func(n int, root []float64, rows, cols int, src, dst []float64) {
-		r := blas64.General{Rows: n, Cols: n, Stride: n, Data: root}
-		s := blas64.General{Rows: rows, Cols: cols, Stride: cols, Data: src}
-		d := blas64.General{Rows: rows, Cols: cols, Stride: cols, Data: dst}
-		blas64.Gemm(blas.NoTrans, blas.NoTrans, 1, r, s, 0, d)
+		clear(dst[:rows*cols])
+		p.buf.MulAdd(n, cols, n, 1, root, n, src, cols, dst, cols)
 	}
 	// x: blocks of NX consecutive rows.
 	for b := 0; b < k; b += w.NX {

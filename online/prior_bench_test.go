@@ -30,3 +30,50 @@ func BenchmarkPriorEvaluate(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkPriorRefit is one warm refit of one unit at the reference frame
+// (16×16 pixels, 12 lags, D = 3072) after two minutes of the synthetic
+// rig: the window's Gram from the view, the evidence re-evaluated at the
+// last hyperparameters and up to 11 more evaluations of the compass search
+// (the default Evaluations of 12), and the full-D posterior mean.
+func BenchmarkPriorRefit(b *testing.B) {
+	blk := newSimBlock(b, 7)
+	blk.run(2 * 3600)
+	view, err := blk.lg.View()
+	if err != nil {
+		b.Fatal(err)
+	}
+	u := blk.linearUnits()[0]
+	st := blk.stats(view, u)
+	fitter, _ := NewPriorFitter(blk.width, blk.height, blk.lags, PriorOptions{})
+	if _, err := fitter.Refit(u, st); err != nil {
+		b.Fatal(err)
+	}
+	st.Seed = nil // keep the window, as a round-robin refit of a placed unit may
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := fitter.Refit(u, st); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkGramView is the copy of a LagGram's statistics that refits read
+// (16×16 pixels, 12 lags), once per round of refits.
+func BenchmarkGramView(b *testing.B) {
+	g, _ := NewLagGram(256, 12)
+	r := rand.New(rand.NewPCG(3, 3))
+	f := make([]float64, 256)
+	for range 2 * 3600 {
+		for i := range f {
+			f[i] = float64(2*r.IntN(2) - 1)
+		}
+		_ = g.AddFrame(f)
+	}
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := g.View(); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
