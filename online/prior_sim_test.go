@@ -483,7 +483,7 @@ func poissonDraw(r *rand.Rand, lam float64) int {
 // TestPriorCurves prints the correlation with the true filter against
 // minutes of recording for the STA, the ridge and the smooth-local
 // estimate on the synthetic rig's linear cells, and the spikes each needs
-// to reach r ≥ 0.8 (the README's curves). It runs 12 simulated minutes and
+// to reach r ≥ 0.8 (the README's curves). It runs 20 simulated minutes and
 // takes a few minutes: set LIVEFIELD_PRIOR_CURVES=1.
 func TestPriorCurves(t *testing.T) {
 	if os.Getenv("LIVEFIELD_PRIOR_CURVES") == "" {
@@ -502,7 +502,7 @@ func TestPriorCurves(t *testing.T) {
 		first[e] = make([]float64, len(units))
 	}
 	t.Logf("%7s %8s %8s %8s   (median r over %d units)", "minutes", names[0], names[1], names[2], len(units))
-	for _, minutes := range []float64{0.25, 0.5, 1, 1.5, 2, 3, 4, 5, 6, 8, 10, 12} {
+	for _, minutes := range []float64{0.25, 0.5, 1, 1.5, 2, 3, 4, 5, 6, 8, 10, 12, 14, 16, 20} {
 		b.run(int64(minutes * 3600))
 		view, err := b.lg.View()
 		if err != nil {
@@ -529,7 +529,15 @@ func TestPriorCurves(t *testing.T) {
 	}
 	var ratios []float64
 	for i, u := range units {
-		t.Logf("unit %2d (%s): spikes to r ≥ 0.8: STA %.0f, ridge %.0f, smooth-local %.0f (0: not within 12 minutes)", u, b.truth[u].Kind, first[0][i], first[1][i], first[2][i])
+		// The ceiling the window sets: the true filter's correlation with
+		// itself restricted to the unit's last window.
+		fit, _ := fitter.Last(u)
+		cut := make([]float64, len(fit.Weights))
+		for _, a := range fit.Window.Indices(b.width, b.height) {
+			cut[a] = b.truth[u].Filter[a]
+		}
+		t.Logf("unit %2d (%s): spikes to r ≥ 0.8: STA %.0f, ridge %.0f, smooth-local %.0f (0: not within 20 minutes); window ceiling r %.3f",
+			u, b.truth[u].Kind, first[0][i], first[1][i], first[2][i], priorCorr(cut, b.truth[u].Filter))
 		if first[2][i] > 0 {
 			ridge := first[1][i]
 			if ridge == 0 {
