@@ -18,7 +18,8 @@ type PriorOptions struct {
 	// fit, coarse grid included (default 40).
 	FirstEvaluations int
 	// Evaluations bounds the evidence evaluations of every later refit
-	// (default 12).
+	// (default 12); a refit that reopens the search (the data grew by a
+	// quarter since it last did) adds six probes of the prior's scale.
 	Evaluations int
 }
 
@@ -134,8 +135,11 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 		u = &priorUnit{}
 		f.units[unit] = u
 	}
+	moved := false
 	if st.Seed != nil {
-		u.win, u.peak = f.placeWindow(st.Seed)
+		win, peak := f.placeWindow(st.Seed)
+		moved = u.search != nil && win != u.win
+		u.win, u.peak = win, peak
 	}
 	p := f.problem(u.win)
 	if err := v.WindowTo(p.gram, f.idx); err != nil {
@@ -176,6 +180,14 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 		evals += c.run(objective, lo, hi, f.opt.FirstEvaluations-evals)
 	} else {
 		c = u.search
+		if moved {
+			// The field was placed elsewhere: the envelope follows it, and
+			// the search reopens with probes of the scale below.
+			for d := range 3 {
+				c.theta[4+d] = u.peak[d]
+			}
+			u.reopenedAt = 0
+		}
 		for i := range c.theta {
 			c.theta[i] = min(max(c.theta[i], lo[i]), hi[i])
 		}
@@ -188,8 +200,13 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 		}
 		c.best = val
 		if p.n >= u.reopenedAt+u.reopenedAt/4 {
+			// The data grew by a quarter since the search was last
+			// reopened: reopen its steps, and probe a = s/σ² at the six
+			// decades of the grid, so that a unit whose first fits found
+			// no field (a near its lower bound) can leave that basin.
 			c.reopen(1.0 / 4)
 			u.reopenedAt = p.n
+			evals += f.probeScale(p, c, objective)
 		}
 		evals += c.run(objective, lo, hi, f.opt.Evaluations-1)
 	}
@@ -221,6 +238,31 @@ func (f *PriorFitter) problem(w PriorWindow) *priorProblem {
 	f.prob.win = w
 	f.idx = w.Indices(f.width, f.height)
 	return f.prob
+}
+
+// probeScale evaluates the compass's point with log a at the grid's six
+// decades around D_w/tr(G_w) and moves to the best if it is better. It
+// returns the evaluations made.
+func (f *PriorFitter) probeScale(p *priorProblem, c *compass, obj func([thetaDim]float64) (float64, bool)) int {
+	var tr float64
+	for i := range p.k {
+		tr += p.gram[i*p.k+i]
+	}
+	if !(tr > 0) {
+		return 0
+	}
+	a0 := float64(p.k) / tr
+	n := 0
+	base := c.theta
+	for e := -2; e <= 3; e++ {
+		t := base
+		t[0] = math.Log(a0 * math.Pow(10, float64(e)))
+		n++
+		if v, ok := obj(t); ok && v > c.best {
+			c.theta, c.best = t, v
+		}
+	}
+	return n
 }
 
 // gridPoint is the best point of the coarse grid.
