@@ -1,0 +1,119 @@
+package online
+
+import (
+	"fmt"
+)
+
+// GramView is a read-only copy of what a LagGram holds at one moment, from
+// which any entry of the centred Gram matrix X̃ᵀX̃ can be formed without the
+// D×D matrix: the lag cross-products Q_τ(n) (P×D), the first and last
+// frames for the exact edge terms, and the mean lagged stimulus. A view
+// never changes after View returns it, so any number of goroutines may read
+// it while the LagGram goes on accumulating. Its size is P·D + D + 2·L·P
+// floats (6.3 MB at 16×16 pixels and 12 lags).
+type GramView struct {
+	pixels, lags, dim int
+	frames            int
+	cross             []float64   // P×D: cross[p*D + τ*P + q] = Q_τ(n)[p, q]
+	first, last       [][]float64 // first and last min(frames, lags) frames, in order
+	mean              []float64   // mean lagged stimulus over the used bins
+}
+
+// View copies the LagGram's statistics into a GramView. It must be called by
+// the goroutine that owns the LagGram; it costs about one pass over P·D
+// values (plus the counts of the partial chunk on the two-level route).
+func (g *LagGram) View() (*GramView, error) {
+	if g.n < g.lags {
+		return nil, ErrFewFrames
+	}
+	P, L, d := g.pixels, g.lags, g.dim
+	v := &GramView{pixels: P, lags: L, dim: d, frames: g.n}
+	v.cross = make([]float64, P*d)
+	g.crossTo(v.cross)
+	v.first = make([][]float64, L)
+	v.last = make([][]float64, L)
+	for m := range L {
+		v.first[m] = append([]float64(nil), g.frame(m)...)
+		v.last[m] = append([]float64(nil), g.frame(g.n-L+m)...)
+	}
+	v.mean = make([]float64, d)
+	g.lagSumsTo(v.mean)
+	nb := float64(g.Bins())
+	for i := range v.mean {
+		v.mean[i] /= nb
+	}
+	return v, nil
+}
+
+// Pixels is the number of values per frame.
+func (v *GramView) Pixels() int { return v.pixels }
+
+// Lags is the number of lags.
+func (v *GramView) Lags() int { return v.lags }
+
+// Dim is Pixels·Lags.
+func (v *GramView) Dim() int { return v.dim }
+
+// Bins is the number of used bins behind the view.
+func (v *GramView) Bins() int { return v.frames - v.lags + 1 }
+
+// Mean returns the mean lagged stimulus over the used bins (length Dim). The
+// slice belongs to the view and must not be modified.
+func (v *GramView) Mean() []float64 { return v.mean }
+
+// frame returns frame m, which must be among the first or the last lags
+// frames.
+func (v *GramView) frame(m int) []float64 {
+	if m < v.lags {
+		return v.first[m]
+	}
+	return v.last[m-(v.frames-v.lags)]
+}
+
+// Entry is element (a, b) of XᵀX (centred: X̃ᵀX̃ = XᵀX − N x̄x̄ᵀ) over the
+// used bins, with a and b lag-major indices below Dim. It costs O(Lags).
+func (v *GramView) Entry(a, b int, centred bool) float64 {
+	P, d, n, L := v.pixels, v.dim, v.frames, v.lags
+	i, p := a/P, a%P
+	j, q := b/P, b%P
+	if j < i {
+		i, p, j, q = j, q, i, p
+	}
+	tau := j - i
+	s := v.cross[p*d+tau*P+q]
+	// Minus Σ_{m=n−i}^{n−1} s_m[p] s_{m−τ}[q] (bins past the end for lag i).
+	for m := n - i; m < n; m++ {
+		s -= v.frame(m)[p] * v.frame(m - tau)[q]
+	}
+	// Minus Q_τ(L−1−i) = Σ_{m=τ}^{L−2−i} s_m[p] s_{m−τ}[q] (frames before the first used bin).
+	for m := tau; m <= L-2-i; m++ {
+		s -= v.frame(m)[p] * v.frame(m - tau)[q]
+	}
+	if centred {
+		s -= float64(v.Bins()) * v.mean[a] * v.mean[b]
+	}
+	return s
+}
+
+// WindowTo writes the centred Gram matrix X̃ᵀX̃ restricted to the lag-major
+// indices idx into dst, row-major len(idx)×len(idx), without forming the
+// D×D matrix: O(len(idx)²·Lags).
+func (v *GramView) WindowTo(dst []float64, idx []int) error {
+	k := len(idx)
+	if len(dst) != k*k {
+		return fmt.Errorf("online: GramView.WindowTo: destination has %d values, want %d", len(dst), k*k)
+	}
+	for _, a := range idx {
+		if a < 0 || a >= v.dim {
+			return fmt.Errorf("online: GramView.WindowTo: index %d outside 0…%d", a, v.dim-1)
+		}
+	}
+	for r, a := range idx {
+		for c := r; c < k; c++ {
+			e := v.Entry(a, idx[c], true)
+			dst[r*k+c] = e
+			dst[c*k+r] = e
+		}
+	}
+	return nil
+}

@@ -1,0 +1,79 @@
+package online
+
+import (
+	"math/rand/v2"
+	"testing"
+)
+
+// BenchmarkPriorEvaluate is one evidence evaluation (posterior mean and
+// profile log evidence) in the default 7×7 pixel × 6 lag window (d = 294).
+func BenchmarkPriorEvaluate(b *testing.B) {
+	w := PriorWindow{X0: 4, Y0: 4, T0: 1, NX: 7, NY: 7, NT: 6}
+	p := newPriorProblem(w)
+	r := rand.New(rand.NewPCG(1, 2))
+	k := p.k
+	// A Gram matrix of white binary noise over 3600 bins.
+	for i := range k {
+		p.gram[i*k+i] = 3600
+		for j := range i {
+			v := 60 * r.NormFloat64()
+			p.gram[i*k+j], p.gram[j*k+i] = v, v
+		}
+		p.c[i] = 10 * r.NormFloat64()
+	}
+	p.q, p.n = 500, 3600
+	h := SmoothLocal{Scale: 1e-3, Noise: 1, Length: [3]float64{1.5, 1.5, 1}, Centre: [3]float64{7, 7, 3}, Width: [3]float64{2, 2, 1.5}}
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := p.evaluate(h, true); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkPriorRefit is one warm refit of one unit at the reference frame
+// (16×16 pixels, 12 lags, D = 3072) after two minutes of the synthetic
+// rig: the window's Gram from the view, the evidence re-evaluated at the
+// last hyperparameters and up to 11 more evaluations of the compass search
+// (the default Evaluations of 12), and the full-D posterior mean.
+func BenchmarkPriorRefit(b *testing.B) {
+	blk := newSimBlock(b, 7)
+	blk.run(2 * 3600)
+	view, err := blk.lg.View()
+	if err != nil {
+		b.Fatal(err)
+	}
+	u := blk.linearUnits()[0]
+	st := blk.stats(view, u)
+	fitter, _ := NewPriorFitter(blk.width, blk.height, blk.lags, PriorOptions{})
+	if _, err := fitter.Refit(u, st); err != nil {
+		b.Fatal(err)
+	}
+	st.Seed = nil // keep the window, as a round-robin refit of a placed unit may
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := fitter.Refit(u, st); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkGramView is the copy of a LagGram's statistics that refits read
+// (16×16 pixels, 12 lags), once per round of refits.
+func BenchmarkGramView(b *testing.B) {
+	g, _ := NewLagGram(256, 12)
+	r := rand.New(rand.NewPCG(3, 3))
+	f := make([]float64, 256)
+	for range 2 * 3600 {
+		for i := range f {
+			f[i] = float64(2*r.IntN(2) - 1)
+		}
+		_ = g.AddFrame(f)
+	}
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := g.View(); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
