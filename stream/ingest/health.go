@@ -99,6 +99,9 @@ type Health struct {
 	// UpdateSeconds is the time the last estimate update took (process
 	// time, not the injected clock).
 	UpdateSeconds float64 `json:"update_s"`
+	// UpdateEvery is the time between two updates, seconds: the budget of
+	// one update.
+	UpdateEvery float64 `json:"update_every_s"`
 	// Route is how the last update folded its bins: a block RLS update
 	// ("woodbury") when few had queued, one exact re-solve from the Gram
 	// matrix ("resolve") when many had (catching up).
@@ -128,7 +131,7 @@ func (c *Loop) Health() any { return c.Counters() }
 
 // Counters returns a copy of the counters. Safe from any goroutine.
 func (c *Loop) Counters() Health {
-	h := Health{Prefix: c.opt.Prefix, Shard: c.opt.Shard.String()}
+	h := Health{Prefix: c.opt.Prefix, Shard: c.opt.Shard.String(), UpdateEvery: c.opt.UpdateEvery.Seconds()}
 	c.mu.Lock()
 	h.Rejected = maps.Clone(c.rejected)
 	b := c.block

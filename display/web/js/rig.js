@@ -29,7 +29,13 @@ export function renderRig(h) {
   }
   if (h.slow_consumer_drops) add(h.slow_consumer_drops + ' messages dropped (slow consumer)', 'bad');
   if (h.block_error) add('block ' + (h.rejected_block || '') + ' refused: ' + h.block_error, 'bad');
-  if (typeof h.lag_s === 'number' && h.lag_s > 5) add('estimates ' + Math.round(h.lag_s) + ' s behind', 'warn');
+  // How far the estimates trail the data received: a second or so normally
+  // (the grace for late spikes and the time between updates); more while the
+  // mapper catches up with a backlog. Nothing is lost meanwhile.
+  if (typeof h.stream_lag_s === 'number' && h.stream_lag_s > 3) {
+    add('estimates ' + num(h.stream_lag_s, h.stream_lag_s < 10 ? 1 : 0) + ' s behind the stream, catching up', 'warn',
+      (h.bins_waiting || 0) + ' bins waiting to be folded in; the estimates are exact for the bins they hold');
+  }
   // The time between updates: from the health when it says (update_every_s),
   // else the mapper's default.
   const budget = typeof h.update_every_s === 'number' && h.update_every_s > 0 ? h.update_every_s : UPDATE_BUDGET_S;
