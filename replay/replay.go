@@ -52,7 +52,7 @@ type FeedStats struct {
 	Messages int64            `json:"messages"`
 	Rejected map[string]int64 `json:"rejected"` // by reason
 	Blocks   int64            `json:"blocks"`
-	Bins     int64            `json:"bins"`
+	Bins     int64            `json:"bins"` // closed so far, in the estimates or waiting for the next update
 	Spikes   int64            `json:"spikes"`
 	Block    string           `json:"block"` // the running block, "" between blocks
 	Stream   float64          `json:"stream_t"`
@@ -156,7 +156,7 @@ func (f *Feeder) Stats() FeedStats {
 	if math.IsNaN(stream) {
 		stream = 0
 	}
-	s := FeedStats{Messages: int64(h.Processed), Blocks: int64(h.Blocks), Bins: int64(h.Bins), Spikes: int64(h.SpikesTotal),
+	s := FeedStats{Messages: int64(h.Processed), Blocks: int64(h.Blocks), Bins: int64(h.Bins + h.BinsWaiting), Spikes: int64(h.SpikesTotal),
 		Block: block, Stream: stream, Rejected: make(map[string]int64, len(h.Rejected))}
 	for k, v := range h.Rejected {
 		s.Rejected[k] = int64(v)
