@@ -140,6 +140,13 @@ func (c *Loop) Feed(subject string, data []byte, at time.Time) error {
 	return nil
 }
 
+// handle runs one message through the intake (a Rig's intake goroutine);
+// refusals are counted there.
+func (c *Loop) handle(m message) { _ = c.in.handle(m) }
+
+// processed is the number of messages the intake has handled.
+func (c *Loop) processed() uint64 { return c.n.processed.Load() }
+
 // settle lets an inline estimator catch up with the intake and update when
 // due; an estimator on its own goroutine does that by itself.
 func (c *Loop) settle(now time.Time) {

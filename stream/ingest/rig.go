@@ -196,11 +196,11 @@ func (r *Rig) run() {
 // take handles one queued message on the intake goroutine.
 func (r *Rig) take(m message) {
 	if r.dur == nil {
-		_ = r.core.in.handle(m)
+		r.core.handle(m)
 		return
 	}
 	if r.dur.admit(m) {
-		_ = r.core.in.handle(m)
+		r.core.handle(m)
 		r.dur.processed(m)
 	}
 }
@@ -208,7 +208,7 @@ func (r *Rig) take(m message) {
 // onTick acknowledges processed JetStream messages, retries a pending
 // resynchronisation and notices slow-consumer episodes.
 func (r *Rig) onTick() {
-	r.core.in.tick(r.opt.Now())
+	r.core.Advance(r.opt.Now())
 	if r.dur != nil {
 		r.dur.ack()
 		r.dur.retry()
@@ -269,7 +269,7 @@ func (r *Rig) Sync() *online.Snapshot {
 func (r *Rig) WaitProcessed(ctx context.Context, n uint64) bool {
 	t := time.NewTicker(tickEvery / 5)
 	defer t.Stop()
-	for r.core.n.processed.Load() < n {
+	for r.core.processed() < n {
 		select {
 		case <-ctx.Done():
 			return false
@@ -281,12 +281,12 @@ func (r *Rig) WaitProcessed(ctx context.Context, n uint64) bool {
 
 // Reset forgets the estimates of the running block (the electrode moved);
 // units stay registered and the stream goes on.
-func (r *Rig) Reset() { r.do(func() { r.core.in.reset(r.core.in.clock) }) }
+func (r *Rig) Reset() { r.do(r.core.Reset) }
 
 // FlagSTC asks for (or stops) spike-triggered covariance on one unit of the
 // running block and the blocks after it.
 func (r *Rig) FlagSTC(id string, on bool) error {
-	if !r.do(func() { r.core.in.flagSTC(id, on, r.core.in.clock) }) {
+	if !r.do(func() { _ = r.core.FlagSTC(id, on) }) {
 		return errors.New("ingest: closed")
 	}
 	return nil
@@ -298,7 +298,7 @@ func (r *Rig) FlagSTC(id string, on bool) error {
 func (r *Rig) SetCriterion(target, fraction float64) error {
 	var err error
 	if !r.do(func() {
-		err = r.core.in.setCriterion(online.Criterion{Target: target, Fraction: fraction}, r.core.in.clock)
+		err = r.core.SetCriterion(target, fraction)
 	}) {
 		return errors.New("ingest: closed")
 	}
