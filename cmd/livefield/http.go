@@ -61,14 +61,16 @@ type route struct {
 
 // serveHTTP serves the page, websocket, JSON API and exports of src, and
 // the extra routes, on ln until ctx is done, then shuts down gracefully.
-// token guards the commands and exports; beyond loopback one is made up
-// when none is given (webToken).
-func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, token string, out io.Writer, extra ...route) error {
+// updates, rung by src's update hook, pushes each snapshot to the browsers
+// as it is published (nil: the page polls src). token guards the commands
+// and exports; beyond loopback one is made up when none is given
+// (webToken).
+func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, updates *display.Updates, token string, out io.Writer, extra ...route) error {
 	token, err := webToken(ln, token, out)
 	if err != nil {
 		return err
 	}
-	web := display.NewServer(src, display.Options{Token: token})
+	web := display.NewServer(src, display.Options{Token: token, Updates: updates})
 	var h http.Handler = web
 	if len(extra) > 0 {
 		mux := http.NewServeMux()

@@ -13,6 +13,7 @@ import (
 
 	"github.com/nats-io/nats.go"
 
+	"livefield/display"
 	"livefield/replay"
 	"livefield/replay/session"
 	"livefield/stream/ingest"
@@ -94,7 +95,8 @@ func replayWithPage(ctx context.Context, f *session.File, prefix string, play re
 	defer srv.close()
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	r, err := ingest.Start(ctx, srv.sub, ingest.Options{Prefix: prefix, StimuliDir: stimuli, Logger: log})
+	updates := display.NewUpdates()
+	r, err := ingest.Start(ctx, srv.sub, ingest.Options{Prefix: prefix, StimuliDir: stimuli, Logger: log, OnUpdate: updates.Notify})
 	if err != nil {
 		return err
 	}
@@ -121,7 +123,7 @@ func replayWithPage(ctx context.Context, f *session.File, prefix string, play re
 	defer wg.Wait()
 	defer cancel()
 	fmt.Fprintf(stdout, "livefield: replaying at %gx through an embedded NATS server\nlivefield: open http://%s/  (Ctrl-C stops)\n", play.Speed, ln.Addr())
-	return serveHTTP(ctx, ln, r, "", stdout)
+	return serveHTTP(ctx, ln, r, updates, "", stdout)
 }
 
 // publishSession plays r into nc under prefix.
@@ -146,7 +148,10 @@ func progressPrinter(w io.Writer) func(replay.FeedStats) {
 // progress each second, and serves the page afterwards when addr is set.
 // The estimates are updated once, at the end of each block (replay.FinalOnly).
 func replayFullSpeed(ctx context.Context, f *session.File, play replay.PlayOptions, addr, stimuli string, stdout, stderr io.Writer) error {
-	feeder, err := replay.NewFeeder(replay.FeedOptions{StimuliDir: stimuli, UpdateEvery: replay.FinalOnly})
+	// The page, served after the pass, shows the snapshots of its own
+	// commands (a reset, a criterion) as they are published.
+	updates := display.NewUpdates()
+	feeder, err := replay.NewFeeder(replay.FeedOptions{StimuliDir: stimuli, UpdateEvery: replay.FinalOnly, OnUpdate: updates.Notify})
 	if err != nil {
 		return err
 	}
@@ -173,5 +178,5 @@ func replayFullSpeed(ctx context.Context, f *session.File, play replay.PlayOptio
 	}
 	defer ln.Close()
 	fmt.Fprintf(stdout, "livefield: open http://%s/  (Ctrl-C stops)\n", ln.Addr())
-	return serveHTTP(ctx, ln, feeder, "", stdout)
+	return serveHTTP(ctx, ln, feeder, updates, "", stdout)
 }

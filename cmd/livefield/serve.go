@@ -68,6 +68,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 			return err
 		}
 	}
+	updates := display.NewUpdates()
 	r, err := ingest.Start(ctx, nc, ingest.Options{
 		Prefix:     prefix,
 		StimuliDir: *stimuli,
@@ -78,6 +79,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 		Logger:     log,
 		Shard:      shard,
 		Durable:    durable,
+		OnUpdate:   updates.Notify,
 	})
 	if err != nil {
 		return err
@@ -93,7 +95,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 		log.Warn("livefield: not durable ("+why+"): "+ingest.CoreWarning, "prefix", prefix)
 	}
 	fmt.Fprintf(stdout, "livefield: mapping %s.* (shard %s) from %s\nlivefield: open http://%s/\n", prefix, shard, redact(nf.url), ln.Addr())
-	return serveHTTP(ctx, ln, r, *apiToken, stdout)
+	return serveHTTP(ctx, ln, r, updates, *apiToken, stdout)
 }
 
 // parseLambda reads a --lambda flag: a penalty ≥ 0 (0: the estimator's
