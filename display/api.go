@@ -13,13 +13,14 @@ import (
 	"livefield/online"
 )
 
-// SnapshotSource is what the API reads and commands. Every method may be
-// called from several goroutines at once.
-type SnapshotSource interface {
+// Source is what the API reads and commands; H is the type of its
+// counters (ingest.Health for a rig or a replay's feeder). Every method
+// may be called from several goroutines at once.
+type Source[H any] interface {
 	// Snapshot is the latest published update; nil before the first.
 	Snapshot() *online.Snapshot
-	// Health is any JSON-encodable value describing the ingest state.
-	Health() any
+	// Health is a JSON-encodable copy of the ingest's counters.
+	Health() H
 	// Reset forgets the estimates of the running block.
 	Reset()
 	// FlagSTC asks for (on) or stops spike-triggered covariance on a unit.
@@ -27,6 +28,23 @@ type SnapshotSource interface {
 	// SetCriterion changes the target reliability and block fraction.
 	SetCriterion(target, fraction float64) error
 }
+
+// SnapshotSource is a Source whose counters may be any JSON value: what the
+// API and the Server take. AnyHealth makes one of any Source.
+type SnapshotSource = Source[any]
+
+// AnyHealth adapts a Source with a concrete counters type to a
+// SnapshotSource: display.AnyHealth(rig).
+func AnyHealth[H any](src Source[H]) SnapshotSource {
+	if s, ok := src.(SnapshotSource); ok {
+		return s
+	}
+	return anyHealth[H]{src}
+}
+
+type anyHealth[H any] struct{ Source[H] }
+
+func (s anyHealth[H]) Health() any { return s.Source.Health() }
 
 // Limits of the API's inputs.
 const (

@@ -65,7 +65,7 @@ func runDemo(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stder
 		return err
 	}
 	defer r.Close()
-	if h := r.Counters(); h.Durable {
+	if h := r.Health(); h.Durable {
 		fmt.Fprintf(stdout, "livefield: durable: JetStream stream %s, consumer %s\n", h.Stream, h.Consumer)
 	}
 

@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"livefield/display"
+	"livefield/stream/ingest"
 )
 
 // shutdownTimeout bounds the wait for open requests at shutdown.
@@ -65,12 +66,12 @@ type route struct {
 // as it is published (nil: the page polls src). token guards the commands
 // and exports; beyond loopback one is made up when none is given
 // (webToken).
-func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, updates *display.Updates, token string, out io.Writer, extra ...route) error {
+func serveHTTP(ctx context.Context, ln net.Listener, src display.Source[ingest.Health], updates *display.Updates, token string, out io.Writer, extra ...route) error {
 	token, err := webToken(ln, token, out)
 	if err != nil {
 		return err
 	}
-	web := display.NewServer(src, display.Options{Token: token, Updates: updates})
+	web := display.NewServer(display.AnyHealth(src), display.Options{Token: token, Updates: updates})
 	var h http.Handler = web
 	if len(extra) > 0 {
 		mux := http.NewServeMux()

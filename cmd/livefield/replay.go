@@ -138,9 +138,13 @@ func publishSession(ctx context.Context, nc *nats.Conn, prefix string, r *sessio
 }
 
 // progressPrinter prints the counts of a full-speed pass (replay.PassOptions.Progress).
-func progressPrinter(w io.Writer) func(replay.FeedStats) {
-	return func(s replay.FeedStats) {
-		fmt.Fprintf(w, "livefield: %d messages, %d blocks, %d bins, stream at %.1f s\n", s.Messages, s.Blocks, s.Bins, s.Stream)
+func progressPrinter(w io.Writer) func(ingest.Health) {
+	return func(h ingest.Health) {
+		stream := float64(h.StreamTime)
+		if math.IsNaN(stream) {
+			stream = 0 // no spike or frame yet
+		}
+		fmt.Fprintf(w, "livefield: %d messages, %d blocks, %d bins, stream at %.1f s\n", h.Processed, h.Blocks, h.Bins, stream)
 	}
 }
 
@@ -162,7 +166,7 @@ func replayFullSpeed(ctx context.Context, f *session.File, play replay.PlayOptio
 	}
 	snap := feeder.Finish()
 	el := time.Since(start).Seconds()
-	fs := feeder.Stats()
+	fs := feeder.Health()
 	fmt.Fprintf(stdout, "livefield: replayed %d messages (%.1f s of session) in %.2f s: %.0fx real time; %d blocks, %d bins\n",
 		st.Records, st.Span.Seconds(), el, st.Span.Seconds()/math.Max(el, 1e-9), fs.Blocks, fs.Bins)
 	for reason, n := range fs.Rejected {

@@ -111,7 +111,7 @@ func BenchmarkDecodeBin(b *testing.B) {
 	b.ReportAllocs()
 	b.ResetTimer()
 	for range b.N {
-		bn, err := binning.New(binning.Config{FramePeriod: refPeriod, Grace: DefaultGrace})
+		bn, err := binning.New(binning.Config{FramePeriod: refPeriod, Grace: binning.DefaultGrace})
 		if err != nil {
 			b.Fatal(err)
 		}
@@ -166,7 +166,7 @@ func BenchmarkLoop(b *testing.B) {
 		for _, m := range msgs {
 			feedRaw(c, m)
 		}
-		if h := c.Counters(); len(h.Rejected) != 0 {
+		if h := c.Health(); len(h.Rejected) != 0 {
 			b.Fatalf("rejected %v", h.Rejected)
 		}
 		bins = c.n.bins.Load()
@@ -184,7 +184,7 @@ func BenchmarkLatency(b *testing.B) {
 	srv := startServer(b)
 	sub, pubc := connect(b, srv), connect(b, srv)
 	r := startRig(b, sub, Options{Prefix: "bench.lat"})
-	web := httptest.NewServer(display.NewAPI(r))
+	web := httptest.NewServer(display.NewAPI(display.AnyHealth(r)))
 	defer web.Close()
 
 	ctx, cancel := context.WithCancel(context.Background())
@@ -258,7 +258,7 @@ func BenchmarkLatency(b *testing.B) {
 				break
 			}
 			if time.Since(sent) > 10*time.Second {
-				b.Fatalf("probe spike %d not in /api/units after 10 s (health %+v)", i+1, r.Counters())
+				b.Fatalf("probe spike %d not in /api/units after 10 s (health %+v)", i+1, r.Health())
 			}
 			time.Sleep(5 * time.Millisecond)
 		}
@@ -266,7 +266,7 @@ func BenchmarkLatency(b *testing.B) {
 	}
 	b.StopTimer()
 	b.ReportMetric(total.Seconds()*1000/float64(b.N), "ms-latency")
-	h := r.Counters()
+	h := r.Health()
 	b.ReportMetric(float64(h.Lag)*1000, "ms-update-wait")
 	b.ReportMetric(h.UpdateSeconds*1000, "ms-update")
 	if len(h.Rejected) != 0 {
@@ -319,7 +319,7 @@ func TestSteadyStateNoAlloc(t *testing.T) {
 			feedRaw(c, rest[i])
 			i++
 		})
-		h := c.Counters()
+		h := c.Health()
 		if allocs != 0 || len(h.Rejected) != 0 {
 			t.Fatalf("shard %v: %.2f allocations per message (rejected %v), want 0", sh, allocs, h.Rejected)
 		}

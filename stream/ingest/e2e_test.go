@@ -47,7 +47,7 @@ func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Sc
 	}
 	deadline := time.Now().Add(20 * time.Second)
 	for {
-		h := r.Counters()
+		h := r.Health()
 		var sent uint64
 		for _, n := range h.Messages {
 			sent += n
@@ -88,7 +88,7 @@ func TestRecoversFields(t *testing.T) {
 	spec := stimulus.Spec{Type: "binary", Width: 8, Height: 8, Seed: 11}
 	rig := playSynth(t, r, "e2e.fields", p, synth.Scenario{Width: 8, Height: 8, Lags: 8, Seed: 5}, spec, seconds)
 
-	h := r.Counters()
+	h := r.Health()
 	if len(h.Rejected) != 0 || h.SlowConsumer != 0 {
 		t.Fatalf("rejected %v, slow-consumer drops %d; want none", h.Rejected, h.SlowConsumer)
 	}

@@ -35,11 +35,11 @@ func Example() {
 	nc.Publish("livefield.rig1.spikes", []byte(`{"unit":["ch01.0","ch01.0"],"t":[0.02,0.07]}`))
 	nc.Publish("livefield.rig1.block", []byte(`{"kind":"end","block":"B1","t":0.1}`))
 	nc.Flush()
-	for r.Counters().Processed < 4 {
+	for r.Health().Processed < 4 {
 		time.Sleep(time.Millisecond)
 	}
 	r.Sync()
-	h := r.Counters()
+	h := r.Health()
 	fmt.Println(h.Block, h.BlockState, "bins:", h.Bins, "spikes:", h.SpikesTotal, "rejected:", len(h.Rejected))
 	// Output: B1 ended bins: 6 spikes: 2 rejected: 0
 }
@@ -58,7 +58,7 @@ func ExampleLoop() {
 	err = l.Feed("spikes", []byte(`{"unit":["ch01.0"],"t":[-1]}`), at)
 	fmt.Println("refused:", err.(*ingest.Error).Reason)
 	l.Feed("block", []byte(`{"kind":"end","block":"B1","t":0.1}`), at.Add(time.Second))
-	h := l.Counters()
+	h := l.Health()
 	fmt.Println("bins:", h.Bins, "spikes:", h.SpikesTotal, "units:", len(l.Snapshot().Units))
 	// Output:
 	// refused: negative-time

@@ -140,7 +140,7 @@ func (p *publisher) settle(r *Rig) Health {
 		time.Sleep(2 * time.Millisecond)
 	}
 	r.Sync()
-	return r.Counters()
+	return r.Health()
 }
 
 func binary(w, h int, seed uint64) map[string]any {
@@ -152,7 +152,7 @@ func pollHealth(t testing.TB, r *Rig, what string, cond func(Health) bool) Healt
 	t.Helper()
 	deadline := time.Now().Add(20 * time.Second)
 	for {
-		h := r.Counters()
+		h := r.Health()
 		if cond(h) {
 			return h
 		}

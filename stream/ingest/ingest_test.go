@@ -162,7 +162,7 @@ func TestReset(t *testing.T) {
 			t.Errorf("%s reset: block %s, rejected %v; want running, none", how, h.BlockState, h.Rejected)
 		}
 	}
-	if h := r.Counters(); h.Resets != 2 {
+	if h := r.Health(); h.Resets != 2 {
 		t.Errorf("resets %d, want 2", h.Resets)
 	}
 	// The stream goes on after a reset.
@@ -246,7 +246,7 @@ func TestRejections(t *testing.T) {
 		{"unknown command", "control", `{"command":"jump"}`, wire.ReasonUnknownCommand},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			before := r.Counters().Rejected[tc.reason]
+			before := r.Health().Rejected[tc.reason]
 			p.raw(tc.subject, []byte(tc.data))
 			h := p.settle(r)
 			if got := h.Rejected[tc.reason] - before; got != 1 {
@@ -261,7 +261,7 @@ func TestRejections(t *testing.T) {
 			}
 		})
 	}
-	h := r.Counters()
+	h := r.Health()
 	if h.RejectedBlock != "b3" || !strings.Contains(h.BlockError, "absent.npy") {
 		t.Errorf("health names rejected block %q: %q; want b3 and the missing file", h.RejectedBlock, h.BlockError)
 	}
@@ -306,7 +306,7 @@ func TestUpdateClock(t *testing.T) {
 	// The clock has not moved since the block started: the first update
 	// (the block start's) is the only one, and it holds no bins.
 	time.Sleep(3 * tickEvery)
-	if h = r.Counters(); h.Updates != 1 || h.Bins != 0 {
+	if h = r.Health(); h.Updates != 1 || h.Bins != 0 {
 		t.Fatalf("before the clock moved: %d updates, %d bins; want 1 and 0", h.Updates, h.Bins)
 	}
 	now.Add(int64(DefaultUpdateEvery))

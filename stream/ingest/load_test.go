@@ -90,7 +90,7 @@ func TestLoad(t *testing.T) {
 				liveLate = liveHeap() // in the last minute, the block still running
 			}
 			runtime.ReadMemStats(&ms)
-			h := r.Counters()
+			h := r.Health()
 			mu.Lock()
 			samples = append(samples, sample{wall: time.Since(t0w).Seconds(), pubT: pubT, binT: float64(h.BinTime), heap: ms.HeapInuse,
 				queue: h.Queue, backlog: h.Backlog, update: h.UpdateSeconds})
@@ -142,7 +142,7 @@ func TestLoad(t *testing.T) {
 		t.Fatal(err)
 	}
 	deadline := time.Now().Add(time.Duration(seconds/speed*float64(time.Second)) + time.Minute)
-	for h := r.Counters(); h.BlockState != "ended"; h = r.Counters() {
+	for h := r.Health(); h.BlockState != "ended"; h = r.Health() {
 		if time.Now().After(deadline) {
 			t.Fatalf("block not ended a minute after the publisher finished: %+v", h)
 		}
@@ -151,7 +151,7 @@ func TestLoad(t *testing.T) {
 	doneWall := time.Since(t0w).Seconds()
 	close(stop)
 	wg.Wait()
-	h := r.Counters()
+	h := r.Health()
 
 	minute := func(from, to float64) (heapMed uint64, queueMax int, backlogMax uint64, trailMax, updMax float64) {
 		var heaps []uint64
