@@ -14,6 +14,7 @@ import (
 
 	"livefield/display"
 	"livefield/stream/binning"
+	"livefield/stream/natstest"
 	"livefield/stream/wire"
 )
 
@@ -181,8 +182,8 @@ func BenchmarkLoop(b *testing.B) {
 // publication of a probe unit's spike to its presence in the spike counts
 // of GET /api/units. Target ≤ 1.5 s.
 func BenchmarkLatency(b *testing.B) {
-	srv := startServer(b)
-	sub, pubc := connect(b, srv), connect(b, srv)
+	srv := natstest.Start(b, natstest.Options{})
+	sub, pubc := srv.Connect(b), srv.Connect(b)
 	r := startRig(b, sub, Options{Prefix: "bench.lat"})
 	web := httptest.NewServer(display.NewAPI(display.AnyHealth(r)))
 	defer web.Close()

@@ -8,6 +8,7 @@ import (
 
 	"livefield/online"
 	"livefield/replay/synth"
+	"livefield/stream/natstest"
 	"livefield/stream/stimulus"
 )
 
@@ -81,8 +82,8 @@ func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Sc
 // significant or reliable.
 func TestRecoversFields(t *testing.T) {
 	const seconds = 240.0
-	srv := startServer(t)
-	sub, pubc := connect(t, srv), connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	sub, pubc := srv.Connect(t), srv.Connect(t)
 	r := startRig(t, sub, Options{Prefix: "e2e.fields", Queue: 1 << 16})
 	p := &publisher{t: t, nc: pubc, prefix: "e2e.fields"}
 	spec := stimulus.Spec{Type: "binary", Width: 8, Height: 8, Seed: 11}

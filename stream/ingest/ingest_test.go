@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"livefield/online"
+	"livefield/stream/natstest"
 	"livefield/stream/stimulus"
 	"livefield/stream/wire"
 )
@@ -65,8 +66,8 @@ func spikesOf(s *online.Snapshot) map[string]int64 {
 }
 
 func TestBlockToBins(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.bins"})
 	p := &publisher{t: t, nc: nc, prefix: "test.bins"}
 	sent := feed(t, p, "b1", 600, [2]string{"on", "odd"})
@@ -115,8 +116,8 @@ func TestBlockToBins(t *testing.T) {
 }
 
 func TestLateSpikes(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.late", Grace: 0.25})
 	p := &publisher{t: t, nc: nc, prefix: "test.late"}
 	feed(t, p, "b1", 600, [2]string{"on", "odd"})
@@ -137,8 +138,8 @@ func TestLateSpikes(t *testing.T) {
 }
 
 func TestReset(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.reset"})
 	p := &publisher{t: t, nc: nc, prefix: "test.reset"}
 	feed(t, p, "b1", 300, [2]string{"on", "odd"})
@@ -176,8 +177,8 @@ func TestReset(t *testing.T) {
 }
 
 func TestTwoRigs(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r1 := startRig(t, nc, Options{Prefix: "test.rig1"})
 	r2 := startRig(t, nc, Options{Prefix: "test.rig2"})
 	p1 := &publisher{t: t, nc: nc, prefix: "test.rig1"}
@@ -203,8 +204,8 @@ func TestTwoRigs(t *testing.T) {
 // is counted under its reason and leaves bins, spikes and estimates as
 // they were.
 func TestRejections(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	const maxPayload = 64 << 10
 	r := startRig(t, nc, Options{Prefix: "test.bad", MaxUnits: 32, MaxPayload: maxPayload, StimuliDir: filepath.Join("..", "..", "testdata", "ingest")})
 	p := &publisher{t: t, nc: nc, prefix: "test.bad"}
@@ -268,8 +269,8 @@ func TestRejections(t *testing.T) {
 }
 
 func TestMovieFrameRange(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.movie", StimuliDir: filepath.Join("..", "..", "testdata", "ingest")})
 	p := &publisher{t: t, nc: nc, prefix: "test.movie"}
 	// testdata/ingest/movie.npy has 30 frames (see make_movie.py and
@@ -291,8 +292,8 @@ func TestMovieFrameRange(t *testing.T) {
 // TestUpdateClock checks that updates follow the injected clock: none
 // until UpdateEvery has passed on it, then one.
 func TestUpdateClock(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	var now atomic.Int64 // nanoseconds since an arbitrary epoch
 	clock := func() time.Time { return time.Unix(0, now.Load()) }
 	r := startRig(t, nc, Options{Prefix: "test.clock", Now: clock})

@@ -12,6 +12,7 @@ import (
 	"testing"
 	"time"
 
+	"livefield/stream/natstest"
 	"livefield/stream/wire"
 )
 
@@ -41,10 +42,10 @@ func TestLoad(t *testing.T) {
 			t.Fatalf("LIVEFIELD_LOAD_SPEED=%q", s)
 		}
 	}
-	js := startJS(t)
+	js := natstest.Start(t, natstest.Options{JetStream: true})
 	const prefix = "load.ref"
-	r := startRig(t, js.dial(t), Options{Prefix: prefix, Durable: true})
-	pub := js.dial(t)
+	r := startRig(t, js.Connect(t), Options{Prefix: prefix, Durable: true})
+	pub := js.Connect(t)
 
 	start, _ := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: "load", T: 0, Lags: refLags, FramePeriod: refPeriod,
 		Stimulus: json.RawMessage(fmt.Sprintf(`{"type":"binary","width":%d,"height":%d,"seed":3}`, refSide, refSide))})
