@@ -29,17 +29,35 @@ func startRig(t testing.TB, nc *nats.Conn, opt Options) *Rig {
 }
 
 // publisher publishes on one prefix and counts what it sent, so a test can
-// wait until the rig has handled all of it.
+// wait until the rig has handled all of it. With loop set it feeds the
+// loop directly, at the loop's clock, instead of publishing.
 type publisher struct {
 	t      testing.TB
 	nc     *nats.Conn
+	loop   *Loop
 	prefix string
 	sent   uint64
 }
 
+// asyncLoop returns a Loop whose estimator runs on a goroutine of its own,
+// as a Rig's, fed by the test goroutine instead of NATS (so that it can
+// run in a synctest bubble). The caller closes it.
+func asyncLoop(t testing.TB, opt Options) *Loop {
+	t.Helper()
+	if opt.Logger == nil {
+		opt.Logger = quiet()
+	}
+	if err := opt.fill(); err != nil {
+		t.Fatal(err)
+	}
+	return newLoop(opt, true)
+}
+
 func (p *publisher) raw(subject string, data []byte) {
 	p.t.Helper()
-	if err := p.nc.Publish(wire.Subject(p.prefix, subject), data); err != nil {
+	if p.loop != nil {
+		_ = p.loop.Feed(subject, data, p.loop.opt.Now()) // refusals are counted
+	} else if err := p.nc.Publish(wire.Subject(p.prefix, subject), data); err != nil {
 		p.t.Fatal(err)
 	}
 	p.sent++

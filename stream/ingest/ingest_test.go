@@ -7,6 +7,7 @@ import (
 	"strings"
 	"sync/atomic"
 	"testing"
+	"testing/synctest"
 	"time"
 
 	"livefield/online"
@@ -289,30 +290,42 @@ func TestMovieFrameRange(t *testing.T) {
 	}
 }
 
-// TestUpdateClock checks that updates follow the injected clock: none
-// until UpdateEvery has passed on it, then one.
+// TestUpdateClock checks that the estimator goroutine updates on the
+// injected clock: none until UpdateEvery has passed on it, however many
+// ticks go by, then one. It runs in a synctest bubble, so the ticks are
+// the fake clock's and synctest.Wait says when the estimator has done
+// all it can: no sleeping on the machine's time.
 func TestUpdateClock(t *testing.T) {
-	srv := natstest.Start(t, natstest.Options{})
-	nc := srv.Connect(t)
-	var now atomic.Int64 // nanoseconds since an arbitrary epoch
-	clock := func() time.Time { return time.Unix(0, now.Load()) }
-	r := startRig(t, nc, Options{Prefix: "test.clock", Now: clock})
-	p := &publisher{t: t, nc: nc, prefix: "test.clock"}
-	feed(t, p, "b1", 120, [2]string{"on", "odd"})
-	if err := nc.Flush(); err != nil {
+	// The mapper's worker pool lives as long as the process and starts at
+	// its first update: start it outside the bubble, which must end with
+	// no goroutine of its own left.
+	warm, err := NewLoop(Options{Logger: quiet()})
+	if err != nil {
 		t.Fatal(err)
 	}
-	wait := func(cond func(Health) bool, what string) Health { t.Helper(); return pollHealth(t, r, what, cond) }
-	h := wait(func(h Health) bool { return h.Processed == p.sent }, "all messages")
-	// The clock has not moved since the block started: the first update
-	// (the block start's) is the only one, and it holds no bins.
-	time.Sleep(3 * tickEvery)
-	if h = r.Health(); h.Updates != 1 || h.Bins != 0 {
-		t.Fatalf("before the clock moved: %d updates, %d bins; want 1 and 0", h.Updates, h.Bins)
-	}
-	now.Add(int64(DefaultUpdateEvery))
-	h = wait(func(h Health) bool { return h.Updates == 2 }, "the second update")
-	if h.Bins == 0 || h.LastUpdate != "1970-01-01T00:00:01Z" {
-		t.Fatalf("second update: %d bins at %q; want bins at 1970-01-01T00:00:01Z", h.Bins, h.LastUpdate)
-	}
+	feed(t, &publisher{t: t, loop: warm}, "warm", 120, [2]string{"on", "odd"})
+	warm.Finish(time.Now())
+	warm.Close()
+
+	synctest.Test(t, func(t *testing.T) {
+		var now atomic.Int64 // nanoseconds since an arbitrary epoch
+		clock := func() time.Time { return time.Unix(0, now.Load()) }
+		l := asyncLoop(t, Options{Prefix: "test.clock", Now: clock})
+		defer l.Close()
+		p := &publisher{t: t, loop: l}
+		feed(t, p, "b1", 120, [2]string{"on", "odd"})
+		// The clock has not moved since the block started: the first
+		// update (the block start's) is the only one, and it holds no bins.
+		time.Sleep(3 * tickEvery)
+		synctest.Wait()
+		if h := l.Health(); h.Processed != p.sent || h.Updates != 1 || h.Bins != 0 {
+			t.Fatalf("before the clock moved: %d of %d messages, %d updates, %d bins; want all, 1 and 0", h.Processed, p.sent, h.Updates, h.Bins)
+		}
+		now.Add(int64(DefaultUpdateEvery))
+		time.Sleep(tickEvery)
+		synctest.Wait()
+		if h := l.Health(); h.Updates != 2 || h.Bins == 0 || h.LastUpdate != "1970-01-01T00:00:01Z" {
+			t.Fatalf("second update: %d updates, %d bins at %q; want 2, bins at 1970-01-01T00:00:01Z", h.Updates, h.Bins, h.LastUpdate)
+		}
+	})
 }
