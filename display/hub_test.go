@@ -61,17 +61,23 @@ type message struct {
 	T        online.Float       `json:"t"`
 }
 
-func read(t *testing.T, c *websocket.Conn) message {
+// readInto reads the next websocket message (10 s deadline) into v.
+func readInto(t *testing.T, c *websocket.Conn, v any) {
 	t.Helper()
 	c.SetReadDeadline(time.Now().Add(10 * time.Second))
 	_, b, err := c.ReadMessage()
 	if err != nil {
 		t.Fatalf("read: %v", err)
 	}
-	var m message
-	if err := json.Unmarshal(b, &m); err != nil {
-		t.Fatalf("decode %q: %v", b, err)
+	if err := json.Unmarshal(b, v); err != nil {
+		t.Fatalf("decode %.80q: %v", b, err)
 	}
+}
+
+func read(t *testing.T, c *websocket.Conn) message {
+	t.Helper()
+	var m message
+	readInto(t, c, &m)
 	return m
 }
 

@@ -87,6 +87,19 @@ func (f *rigSource) resetCount() int {
 	return f.resets
 }
 
+// startPage serves src behind a test server, its Run going, until the test
+// ends.
+func startPage(t *testing.T, src SnapshotSource, opt Options) *httptest.Server {
+	t.Helper()
+	s := NewServer(src, opt)
+	ctx, stop := context.WithCancel(context.Background())
+	done := make(chan struct{})
+	go func() { s.Run(ctx); close(done) }()
+	srv := httptest.NewServer(s)
+	t.Cleanup(func() { stop(); <-done; srv.Close() })
+	return srv
+}
+
 func get(t *testing.T, h http.Handler, method, target string, hdr http.Header, body string) *httptest.ResponseRecorder {
 	t.Helper()
 	r := httptest.NewRequest(method, target, strings.NewReader(body))
@@ -338,13 +351,7 @@ func ExampleNewServer() {
 func TestServerPushesUpdates(t *testing.T) {
 	src := &rigSource{snap: snapAt(1)}
 	updates := NewUpdates()
-	s := NewServer(src, Options{Updates: updates, Poll: 24 * time.Hour})
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan struct{})
-	go func() { s.Run(ctx); close(done) }()
-	srv := httptest.NewServer(s)
-	t.Cleanup(func() { cancel(); <-done; srv.Close() })
-
+	srv := startPage(t, src, Options{Updates: updates, Poll: 24 * time.Hour})
 	c := dial(t, wsURL(srv)+"/ws", nil)
 	if got := readSnapshot(t, c); got.T != 1 {
 		t.Fatalf("first snapshot at t = %v, want 1", got.T)

@@ -39,15 +39,8 @@ type tileMessage struct {
 func readTiles(t *testing.T, c *websocket.Conn) tileMessage {
 	t.Helper()
 	for {
-		c.SetReadDeadline(time.Now().Add(10 * time.Second))
-		_, b, err := c.ReadMessage()
-		if err != nil {
-			t.Fatalf("read: %v", err)
-		}
 		var m tileMessage
-		if err := json.Unmarshal(b, &m); err != nil {
-			t.Fatalf("decode %.80q: %v", b, err)
-		}
+		readInto(t, c, &m)
 		if m.Type == typeSnapshot {
 			return m
 		}
