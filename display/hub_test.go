@@ -18,7 +18,7 @@ import (
 )
 
 // startHub runs a hub behind a test server until the test ends.
-func startHub(t *testing.T, token string, ln net.Listener) (*Hub, *httptest.Server) {
+func startHub(t testing.TB, token string, ln net.Listener) (*Hub, *httptest.Server) {
 	t.Helper()
 	h := NewHub(token)
 	ctx, cancel := context.WithCancel(context.Background())
@@ -405,12 +405,7 @@ func TestHubShutdown(t *testing.T) {
 func BenchmarkHubUpdate(b *testing.B) {
 	const clients = 20
 	snap := simulated(b)
-	h := NewHub("")
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan struct{})
-	go func() { h.Run(ctx); close(done) }()
-	srv := httptest.NewServer(h)
-	defer func() { cancel(); <-done; srv.Close() }()
+	h, srv := startHub(b, "", nil)
 	got := make(chan int, clients)
 	var bytesPer int
 	for range clients {

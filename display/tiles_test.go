@@ -8,7 +8,6 @@ import (
 	"math"
 	"math/rand/v2"
 	"net"
-	"net/http/httptest"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -255,12 +254,7 @@ func BenchmarkHubTiles(b *testing.B) {
 		snap := syntheticSnapshot(n, 1)
 		for _, d := range []Density{Large, Medium, Compact} {
 			b.Run(fmt.Sprintf("units=%d/density=%s", n, d), func(b *testing.B) {
-				h := NewHub("")
-				ctx, cancel := context.WithCancel(context.Background())
-				done := make(chan struct{})
-				go func() { h.Run(ctx); close(done) }()
-				srv := httptest.NewServer(h)
-				defer func() { cancel(); <-done; srv.Close() }()
+				h, srv := startHub(b, "", nil)
 				var wire countingConn
 				dialer := websocket.Dialer{
 					EnableCompression: true, // as browsers do

@@ -24,11 +24,8 @@ func runPractice(ctx context.Context, fs *flag.FlagSet, args []string, stdout, s
 	stopFlag := fs.String("stop-at", "", "stop by itself this long after the block start (a scripted decision)")
 	reportPath := fs.String("report", "", "where to write the JSON report (default FILE with .practice.json)")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
-	file, err := fileArg(fs, args)
+	file, err := pace.fileArg(fs, args)
 	if err != nil {
-		return err
-	}
-	if err := pace.check(); err != nil {
 		return err
 	}
 	speed, from := pace.speed, pace.from

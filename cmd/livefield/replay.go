@@ -27,11 +27,8 @@ func runReplay(ctx context.Context, fs *flag.FlagSet, args []string, stdout, std
 	nf.add(fs, "publish into this NATS server instead of an embedded one (the page is then served by livefield serve)")
 	rig := fs.String("rig", "", "publish under livefield.<rig> instead of the recorded prefix")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
-	file, err := fileArg(fs, args)
+	file, err := pace.fileArg(fs, args)
 	if err != nil {
-		return err
-	}
-	if err := pace.check(); err != nil {
 		return err
 	}
 	f, prefix, err := openSession(file, stdout)

@@ -71,13 +71,7 @@ func session(b testing.TB, seconds float64) (msgs []message, spikes int) {
 	nextFrames, nextSpikes := 0.05, 0.02
 	for now := 0.0; now < seconds; now += 0.01 {
 		if now+1e-9 >= nextFrames {
-			var f wire.Frames
-			f.Block = "bench"
-			for ; float64(frame)*refPeriod < nextFrames; frame++ {
-				f.Index = append(f.Index, frame)
-				f.T = append(f.T, float64(frame)*refPeriod)
-			}
-			data, err := wire.EncodeFrames(f)
+			data, err := wire.EncodeFrames(framesBefore("bench", &frame, refPeriod, nextFrames))
 			if err != nil {
 				b.Fatal(err)
 			}
@@ -218,13 +212,7 @@ func BenchmarkLatency(b *testing.B) {
 			}
 			now := time.Since(t0).Seconds()
 			if now >= nextFrames {
-				var f wire.Frames
-				f.Block = "lat"
-				for ; float64(frame)*refPeriod < now; frame++ {
-					f.Index = append(f.Index, frame)
-					f.T = append(f.T, float64(frame)*refPeriod)
-				}
-				data, _ := wire.EncodeFrames(f)
+				data, _ := wire.EncodeFrames(framesBefore("lat", &frame, refPeriod, now))
 				_ = pubc.Publish("bench.lat.frames", data)
 				nextFrames = now + 0.05
 			}

@@ -76,13 +76,7 @@ func (p *jsPublisher) msg(subject string, b []byte, err error) {
 func (p *jsPublisher) numbered(block string, from, to int64, sent map[string]int64) {
 	p.t.Helper()
 	for lo := from; lo < to; lo += 6 {
-		var f wire.Frames
-		f.Block = block
-		for i := lo; i < min(lo+6, to); i++ {
-			f.Index = append(f.Index, i)
-			f.T = append(f.T, frameTime(t0, i))
-		}
-		b, err := wire.EncodeFrames(f)
+		b, err := wire.EncodeFrames(frameRun(block, lo, min(lo+6, to), t0))
 		p.msg(wire.SubjectFrames, b, err)
 		var s wire.Spikes
 		for u := range 8 {
@@ -98,14 +92,13 @@ func (p *jsPublisher) numbered(block string, from, to int64, sent map[string]int
 
 func (p *jsPublisher) start(block string) {
 	p.t.Helper()
-	spec, _ := json.Marshal(binary(8, 8, 7))
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: block, T: t0, Stimulus: spec, Lags: 4, FramePeriod: 1.0 / 60})
+	b, err := encodeStart(block, binary(8, 8, 7), t0)
 	p.msg(wire.SubjectBlock, b, err)
 }
 
 func (p *jsPublisher) end(block string, t float64) {
 	p.t.Helper()
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindEnd, Block: block, T: t})
+	b, err := encodeEnd(block, t)
 	p.msg(wire.SubjectBlock, b, err)
 }
 

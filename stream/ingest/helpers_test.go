@@ -73,36 +73,62 @@ func (p *publisher) msg(subject string, b []byte, err error) {
 
 func (p *publisher) start(block string, stim any, t float64) {
 	p.t.Helper()
-	spec, err := json.Marshal(stim)
-	if err != nil {
-		p.t.Fatal(err)
-	}
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: block, T: t, Stimulus: spec, Lags: 4, FramePeriod: 1.0 / 60})
+	b, err := encodeStart(block, stim, t)
 	p.msg(wire.SubjectBlock, b, err)
 }
 
 func (p *publisher) end(block string, t float64) {
 	p.t.Helper()
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindEnd, Block: block, T: t})
+	b, err := encodeEnd(block, t)
 	p.msg(wire.SubjectBlock, b, err)
+}
+
+// encodeStart is the start of a block of stimulus stim (a spec) at t, with
+// 4 lags of 1/60 s.
+func encodeStart(block string, stim any, t float64) ([]byte, error) {
+	spec, err := json.Marshal(stim)
+	if err != nil {
+		return nil, err
+	}
+	return wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: block, T: t, Stimulus: spec, Lags: 4, FramePeriod: 1.0 / 60})
+}
+
+func encodeEnd(block string, t float64) ([]byte, error) {
+	return wire.EncodeBlock(wire.Block{Kind: wire.KindEnd, Block: block, T: t})
 }
 
 // frames publishes frames from…to−1, frame i at t0 + i/60, in batches of 10.
 func (p *publisher) frames(block string, from, to int64, t0 float64) {
 	p.t.Helper()
 	for lo := from; lo < to; lo += 10 {
-		var f wire.Frames
-		f.Block = block
-		for i := lo; i < min(lo+10, to); i++ {
-			f.Index = append(f.Index, i)
-			f.T = append(f.T, frameTime(t0, i))
-		}
-		b, err := wire.EncodeFrames(f)
+		b, err := wire.EncodeFrames(frameRun(block, lo, min(lo+10, to), t0))
 		p.msg(wire.SubjectFrames, b, err)
 	}
 }
 
 func frameTime(t0 float64, i int64) float64 { return t0 + float64(i)/60 }
+
+// frameRun is block's frames from…to−1, frame i at frameTime(t0, i).
+func frameRun(block string, from, to int64, t0 float64) wire.Frames {
+	f := wire.Frames{Block: block}
+	for i := from; i < to; i++ {
+		f.Index = append(f.Index, i)
+		f.T = append(f.T, frameTime(t0, i))
+	}
+	return f
+}
+
+// framesBefore is block's frames from *next on whose onset, i·period,
+// comes before t; it moves *next past them (the reference workload's
+// batches).
+func framesBefore(block string, next *int64, period, t float64) wire.Frames {
+	f := wire.Frames{Block: block}
+	for ; float64(*next)*period < t; *next++ {
+		f.Index = append(f.Index, *next)
+		f.T = append(f.T, float64(*next)*period)
+	}
+	return f
+}
 
 func (p *publisher) spikes(units []string, t []float64) {
 	p.t.Helper()

@@ -107,13 +107,7 @@ func TestLoad(t *testing.T) {
 	for now := 0.0; now < seconds; {
 		now = min(time.Since(t0w).Seconds()*speed, seconds)
 		for nextFrames <= now {
-			var f wire.Frames
-			f.Block = "load"
-			for ; float64(frame)*refPeriod < nextFrames; frame++ {
-				f.Index = append(f.Index, frame)
-				f.T = append(f.T, float64(frame)*refPeriod)
-			}
-			data, _ := wire.EncodeFrames(f)
+			data, _ := wire.EncodeFrames(framesBefore("load", &frame, refPeriod, nextFrames))
 			if err := pub.Publish(prefix+".frames", data); err != nil {
 				t.Fatal(err)
 			}
