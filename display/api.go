@@ -6,7 +6,6 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"math"
 	"net/http"
 	"sync/atomic"
 
@@ -184,13 +183,10 @@ func (a *API) criterion(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	t, f := *req.Target, *req.Fraction
-	// A reliability is a correlation: a target must lie strictly between 0 and 1.
-	if !(t > 0 && t < 1) {
-		fail(w, http.StatusBadRequest, "display: criterion: target %v is not in (0, 1)", t)
-		return
-	}
-	if !(f > 0 && f <= 1) || math.IsNaN(f) {
-		fail(w, http.StatusBadRequest, "display: criterion: fraction %v is not in (0, 1]", f)
+	// The estimator's rule (a target strictly between 0 and 1, a fraction
+	// in (0, 1]), checked here too so that a bad request is a 400.
+	if err := (online.Criterion{Target: t, Fraction: f}).Check(); err != nil {
+		fail(w, http.StatusBadRequest, "display: criterion: %v", err)
 		return
 	}
 	if err := a.src.SetCriterion(t, f); err != nil {

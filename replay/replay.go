@@ -158,11 +158,9 @@ func (f *Feeder) FlagSTC(id string, on bool) error {
 	return f.loop.FlagSTC(id, on)
 }
 
-// SetCriterion changes the target reliability and block fraction.
+// SetCriterion changes the target reliability and block fraction; one
+// that fails online.Criterion.Check is refused with its error.
 func (f *Feeder) SetCriterion(target, fraction float64) error {
-	if !(target > 0 && target < 1) || !(fraction > 0 && fraction <= 1) {
-		return fmt.Errorf("replay: criterion target %v not in (0, 1) or fraction %v not in (0, 1]", target, fraction)
-	}
 	f.mu.Lock()
 	defer f.mu.Unlock()
 	return f.loop.SetCriterion(target, fraction)
