@@ -62,6 +62,7 @@ type route struct {
 
 // serveHTTP serves the page, websocket, JSON API and exports of src, and
 // the extra routes, on ln until ctx is done, then shuts down gracefully.
+// src is a live rig or a replay's feeder (the ingest's counters).
 // updates, rung by src's update hook, pushes each snapshot to the browsers
 // as it is published (nil: the page polls src). token guards the commands
 // and exports; beyond loopback one is made up when none is given

@@ -98,7 +98,9 @@ type Options struct {
 	// OnUpdate, when set, is called on the estimator's goroutine (the
 	// feeding goroutine of a NewLoop) with the block
 	// id, every snapshot published and the clock it was made at. It must
-	// not call back into the ingest.
+	// not call back into the ingest, and should not block: it holds up the
+	// estimator (display.Updates.Notify, which pushes the snapshot to the
+	// page, never does).
 	OnUpdate func(block string, s *online.Snapshot, at time.Time)
 	// OnBlockEnd, when set, is called likewise with each block's final
 	// snapshot.
