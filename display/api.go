@@ -6,20 +6,20 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"math"
 	"net/http"
 	"sync/atomic"
 
 	"livefield/online"
 )
 
-// SnapshotSource is what the API reads and commands. Every method may be
-// called from several goroutines at once.
-type SnapshotSource interface {
+// Source is what the API reads and commands; H is the type of its
+// counters (ingest.Health for a rig or a replay's feeder). Every method
+// may be called from several goroutines at once.
+type Source[H any] interface {
 	// Snapshot is the latest published update; nil before the first.
 	Snapshot() *online.Snapshot
-	// Health is any JSON-encodable value describing the ingest state.
-	Health() any
+	// Health is a JSON-encodable copy of the ingest's counters.
+	Health() H
 	// Reset forgets the estimates of the running block.
 	Reset()
 	// FlagSTC asks for (on) or stops spike-triggered covariance on a unit.
@@ -27,6 +27,23 @@ type SnapshotSource interface {
 	// SetCriterion changes the target reliability and block fraction.
 	SetCriterion(target, fraction float64) error
 }
+
+// SnapshotSource is a Source whose counters may be any JSON value: what the
+// API and the Server take. AnyHealth makes one of any Source.
+type SnapshotSource = Source[any]
+
+// AnyHealth adapts a Source with a concrete counters type to a
+// SnapshotSource: display.AnyHealth(rig).
+func AnyHealth[H any](src Source[H]) SnapshotSource {
+	if s, ok := src.(SnapshotSource); ok {
+		return s
+	}
+	return anyHealth[H]{src}
+}
+
+type anyHealth[H any] struct{ Source[H] }
+
+func (s anyHealth[H]) Health() any { return s.Source.Health() }
 
 // Limits of the API's inputs.
 const (
@@ -166,13 +183,10 @@ func (a *API) criterion(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	t, f := *req.Target, *req.Fraction
-	// A reliability is a correlation: a target must lie strictly between 0 and 1.
-	if !(t > 0 && t < 1) {
-		fail(w, http.StatusBadRequest, "display: criterion: target %v is not in (0, 1)", t)
-		return
-	}
-	if !(f > 0 && f <= 1) || math.IsNaN(f) {
-		fail(w, http.StatusBadRequest, "display: criterion: fraction %v is not in (0, 1]", f)
+	// The estimator's rule (a target strictly between 0 and 1, a fraction
+	// in (0, 1]), checked here too so that a bad request is a 400.
+	if err := (online.Criterion{Target: t, Fraction: f}).Check(); err != nil {
+		fail(w, http.StatusBadRequest, "display: criterion: %v", err)
 		return
 	}
 	if err := a.src.SetCriterion(t, f); err != nil {

@@ -245,3 +245,26 @@ func ExampleAPI() {
 	fmt.Println(res.StatusCode, string(body))
 	// Output: 200 {"fraction":0.5,"ok":true,"target":0.8}
 }
+
+// counted is a source whose counters have a concrete type, as ingest's.
+type counted struct{ fakeSource }
+
+type binCount struct {
+	Bins int `json:"bins"`
+}
+
+func (c *counted) Health() binCount { return binCount{Bins: 7} }
+
+// AnyHealth serves a source's concrete counters as /api/health, as a
+// source that returns them as any does.
+func TestAnyHealth(t *testing.T) {
+	c := &counted{}
+	code, body := do(t, NewAPI(AnyHealth[binCount](c)), "GET", "/api/health", "")
+	if code != http.StatusOK || string(body) != `{"bins":7}` {
+		t.Errorf("health: %d %s, want the source's counters", code, body)
+	}
+	plain := &fakeSource{}
+	if got := AnyHealth(plain); got != SnapshotSource(plain) {
+		t.Errorf("AnyHealth wrapped a source that already returns any")
+	}
+}

@@ -6,6 +6,7 @@ import (
 	"math"
 	"slices"
 	"testing"
+	"time"
 
 	"github.com/chromedp/chromedp"
 )
@@ -15,7 +16,7 @@ import (
 // pictures and lists (png.go), value for value (issue 13 item 5).
 func TestBrowserAgreesWithServer(t *testing.T) {
 	ctx := newBrowser(t)
-	srv := startPage(t, &rigSource{snap: snapAt(1)}, "")
+	srv := startPage(t, &rigSource{snap: snapAt(1)}, Options{Poll: 50 * time.Millisecond})
 	if err := chromedp.Do(ctx, chromedp.Navigate(srv.URL+"/"), chromedp.WaitVisible(chromedp.ID("bar"))); err != nil {
 		t.Fatal(err)
 	}

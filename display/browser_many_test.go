@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"math"
-	"net/http/httptest"
 	"net/url"
 	"slices"
 	"strconv"
@@ -17,18 +16,6 @@ import (
 
 	"livefield/online"
 )
-
-// startPage serves src with token behind a test server until the test ends.
-func startPage(t *testing.T, src SnapshotSource, token string) *httptest.Server {
-	t.Helper()
-	s := NewServer(src, Options{Token: token, Poll: 50 * time.Millisecond})
-	ctx, stop := context.WithCancel(context.Background())
-	done := make(chan struct{})
-	go func() { s.Run(ctx); close(done) }()
-	srv := httptest.NewServer(s)
-	t.Cleanup(func() { stop(); <-done; srv.Close() })
-	return srv
-}
 
 func evaluate[T any](t *testing.T, ctx context.Context, js string) T {
 	t.Helper()
@@ -105,7 +92,7 @@ func TestBrowserManyUnits(t *testing.T) {
 	const token = "probe-token"
 	src := &rigSource{snap: snap}
 	src.flag = func(id string, on bool) { mapper.FlagSTC(id, on) }
-	srv := startPage(t, src, token)
+	srv := startPage(t, src, Options{Token: token, Poll: 50 * time.Millisecond})
 	byID := map[string]online.UnitSummary{}
 	statusCount := map[online.Status]int{}
 	for _, u := range snap.Units {
@@ -396,7 +383,7 @@ func TestBrowserThousandUnits(t *testing.T) {
 	const n = 1024
 	snap := syntheticSnapshot(n, 2)
 	ctx := newBrowserSized(t, 1400, 900)
-	srv := startPage(t, &rigSource{snap: snap}, "")
+	srv := startPage(t, &rigSource{snap: snap}, Options{Poll: 50 * time.Millisecond})
 	if err := chromedp.Do(ctx, chromedp.Navigate(srv.URL+"/"), chromedp.WaitVisible(chromedp.CSS(`#tiles .tile`))); err != nil {
 		t.Fatal(err)
 	}
@@ -425,7 +412,7 @@ func TestBrowserThousandUnits(t *testing.T) {
 // than only showing a lost connection.
 func TestBrowserAsksForToken(t *testing.T) {
 	ctx := newBrowser(t)
-	srv := startPage(t, &rigSource{snap: snapAt(1)}, "the-token")
+	srv := startPage(t, &rigSource{snap: snapAt(1)}, Options{Token: "the-token", Poll: 50 * time.Millisecond})
 	if err := chromedp.Do(ctx, chromedp.Navigate(srv.URL+"/"), chromedp.WaitVisible(chromedp.ID("bar"))); err != nil {
 		t.Fatal(err)
 	}

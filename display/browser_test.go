@@ -158,12 +158,7 @@ func TestBrowserPage(t *testing.T) {
 	src := &rigSource{snap: first}
 	src.reset = func() *online.Snapshot { simState.m.Reset(); return simState.m.Update() }
 	src.flag = func(id string, on bool) { simState.m.FlagSTC(id, on) }
-	s := NewServer(src, Options{Token: token, Poll: 20 * time.Millisecond})
-	rctx, stop := context.WithCancel(context.Background())
-	done := make(chan struct{})
-	go func() { s.Run(rctx); close(done) }()
-	srv := httptest.NewServer(s)
-	t.Cleanup(func() { stop(); <-done; srv.Close() })
+	srv := startPage(t, src, Options{Token: token, Poll: 20 * time.Millisecond})
 
 	// Exceptions, console.error and browser-log errors (failed loads) count.
 	var errs pageErrors

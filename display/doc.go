@@ -27,7 +27,10 @@
 // may be called from any goroutine. Each websocket has exactly one reader
 // and one writer goroutine, and a one-slot queue in which a newer update
 // replaces one not yet sent, so a slow browser never holds up the hub.
-// Server.Run is called once and returns after every connection has closed.
+// Server.Run is called once and returns after every connection has closed;
+// it hands the hub each new snapshot when the source's update hook rings
+// Options.Updates (Updates.Notify never blocks: the latest wins), or polls
+// a source without a hook every Options.Poll.
 // The renderers are pure functions of an immutable Snapshot.
 //
 // # Limits

@@ -18,7 +18,7 @@ import (
 )
 
 // startHub runs a hub behind a test server until the test ends.
-func startHub(t *testing.T, token string, ln net.Listener) (*Hub, *httptest.Server) {
+func startHub(t testing.TB, token string, ln net.Listener) (*Hub, *httptest.Server) {
 	t.Helper()
 	h := NewHub(token)
 	ctx, cancel := context.WithCancel(context.Background())
@@ -61,17 +61,23 @@ type message struct {
 	T        online.Float       `json:"t"`
 }
 
-func read(t *testing.T, c *websocket.Conn) message {
+// readInto reads the next websocket message (10 s deadline) into v.
+func readInto(t *testing.T, c *websocket.Conn, v any) {
 	t.Helper()
 	c.SetReadDeadline(time.Now().Add(10 * time.Second))
 	_, b, err := c.ReadMessage()
 	if err != nil {
 		t.Fatalf("read: %v", err)
 	}
-	var m message
-	if err := json.Unmarshal(b, &m); err != nil {
-		t.Fatalf("decode %q: %v", b, err)
+	if err := json.Unmarshal(b, v); err != nil {
+		t.Fatalf("decode %.80q: %v", b, err)
 	}
+}
+
+func read(t *testing.T, c *websocket.Conn) message {
+	t.Helper()
+	var m message
+	readInto(t, c, &m)
 	return m
 }
 
@@ -399,12 +405,7 @@ func TestHubShutdown(t *testing.T) {
 func BenchmarkHubUpdate(b *testing.B) {
 	const clients = 20
 	snap := simulated(b)
-	h := NewHub("")
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan struct{})
-	go func() { h.Run(ctx); close(done) }()
-	srv := httptest.NewServer(h)
-	defer func() { cancel(); <-done; srv.Close() }()
+	h, srv := startHub(b, "", nil)
 	got := make(chan int, clients)
 	var bytesPer int
 	for range clients {

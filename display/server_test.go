@@ -87,6 +87,19 @@ func (f *rigSource) resetCount() int {
 	return f.resets
 }
 
+// startPage serves src behind a test server, its Run going, until the test
+// ends.
+func startPage(t *testing.T, src SnapshotSource, opt Options) *httptest.Server {
+	t.Helper()
+	s := NewServer(src, opt)
+	ctx, stop := context.WithCancel(context.Background())
+	done := make(chan struct{})
+	go func() { s.Run(ctx); close(done) }()
+	srv := httptest.NewServer(s)
+	t.Cleanup(func() { stop(); <-done; srv.Close() })
+	return srv
+}
+
 func get(t *testing.T, h http.Handler, method, target string, hdr http.Header, body string) *httptest.ResponseRecorder {
 	t.Helper()
 	r := httptest.NewRequest(method, target, strings.NewReader(body))
@@ -330,4 +343,35 @@ func ExampleNewServer() {
 	json.Unmarshal(body, &e)
 	fmt.Println(resp.StatusCode, e.Block, len(e.Units), "units")
 	// Output: 200 demo-1 2 units
+}
+
+// A source with an update hook reaches the browsers when it rings, not on
+// the next poll: with a poll period far longer than the test's deadlines,
+// only the push can deliver the second snapshot.
+func TestServerPushesUpdates(t *testing.T) {
+	src := &rigSource{snap: snapAt(1)}
+	updates := NewUpdates()
+	srv := startPage(t, src, Options{Updates: updates, Poll: 24 * time.Hour})
+	c := dial(t, wsURL(srv)+"/ws", nil)
+	if got := readSnapshot(t, c); got.T != 1 {
+		t.Fatalf("first snapshot at t = %v, want 1", got.T)
+	}
+	for _, sec := range []float64{2, 3} {
+		src.set(snapAt(sec))
+		updates.Notify("b1", src.Snapshot(), time.Time{})
+		if got := readSnapshot(t, c); got.T != online.Float(sec) {
+			t.Fatalf("pushed snapshot at t = %v, want %v", got.T, sec)
+		}
+	}
+}
+
+// Notify never blocks, however often it rings before the server looks.
+func TestUpdatesNotifyNeverBlocks(t *testing.T) {
+	u := NewUpdates()
+	for range 1000 {
+		u.Notify("", nil, time.Time{})
+	}
+	if n := len(u.c); n != 1 {
+		t.Fatalf("%d notifications pending, want 1", n)
+	}
 }

@@ -8,7 +8,6 @@ import (
 	"math"
 	"math/rand/v2"
 	"net"
-	"net/http/httptest"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -39,15 +38,8 @@ type tileMessage struct {
 func readTiles(t *testing.T, c *websocket.Conn) tileMessage {
 	t.Helper()
 	for {
-		c.SetReadDeadline(time.Now().Add(10 * time.Second))
-		_, b, err := c.ReadMessage()
-		if err != nil {
-			t.Fatalf("read: %v", err)
-		}
 		var m tileMessage
-		if err := json.Unmarshal(b, &m); err != nil {
-			t.Fatalf("decode %.80q: %v", b, err)
-		}
+		readInto(t, c, &m)
 		if m.Type == typeSnapshot {
 			return m
 		}
@@ -262,12 +254,7 @@ func BenchmarkHubTiles(b *testing.B) {
 		snap := syntheticSnapshot(n, 1)
 		for _, d := range []Density{Large, Medium, Compact} {
 			b.Run(fmt.Sprintf("units=%d/density=%s", n, d), func(b *testing.B) {
-				h := NewHub("")
-				ctx, cancel := context.WithCancel(context.Background())
-				done := make(chan struct{})
-				go func() { h.Run(ctx); close(done) }()
-				srv := httptest.NewServer(h)
-				defer func() { cancel(); <-done; srv.Close() }()
+				h, srv := startHub(b, "", nil)
 				var wire countingConn
 				dialer := websocket.Dialer{
 					EnableCompression: true, // as browsers do

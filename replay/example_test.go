@@ -24,13 +24,13 @@ func ExampleFeeder_FeedSession() {
 		log.Fatal(err)
 	}
 	played, err := feeder.FeedSession(context.Background(), f.Reader, replay.PassOptions{
-		Until: func() bool { return feeder.Stats().Stream >= 10 },
+		Until: func() bool { return float64(feeder.Health().StreamTime) >= 10 },
 	})
 	if err != nil {
 		log.Fatal(err)
 	}
 	snap := feeder.Finish()
-	st := feeder.Stats()
+	st := feeder.Health()
 	fmt.Printf("%d records, %d blocks, %d bins\n", played.Records, st.Blocks, st.Bins)
 	fmt.Printf("block %s: %d units over %.0f s\n", snap.Block, len(snap.Units), float64(snap.T))
 	// Output:
@@ -58,8 +58,8 @@ func ExampleFeeder_Feed() {
 	arrival = arrival.Add(2 * time.Second)
 	feed("block", `{"kind":"end","block":"B1","t":1}`)
 	snap := feeder.Snapshot()
-	st := feeder.Stats()
-	fmt.Printf("%d messages, %d bins, %d spikes\n", st.Messages, st.Bins, st.Spikes)
+	st := feeder.Health()
+	fmt.Printf("%d messages, %d bins, %d spikes\n", st.Processed, st.Bins, st.SpikesTotal)
 	fmt.Printf("block %s: unit %s\n", snap.Block, snap.Units[0].ID)
 	// Output:
 	// 4 messages, 20 bins, 5 spikes

@@ -14,6 +14,7 @@ import (
 	"livefield/display"
 	"livefield/online"
 	"livefield/replay/session"
+	"livefield/stream/ingest"
 	"livefield/stream/npy"
 )
 
@@ -26,7 +27,7 @@ type ExportOptions struct {
 	OnDamage func(*session.CorruptError)
 	// Progress, when set, is called about once per ProgressEvery of wall
 	// time with the counts so far, and once at the end (PassOptions).
-	Progress      func(FeedStats)
+	Progress      func(ingest.Health)
 	ProgressEvery time.Duration
 }
 
@@ -94,7 +95,7 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 	}
 	f.Finish()
 	if opt.Progress != nil {
-		opt.Progress(f.Stats())
+		opt.Progress(f.Health())
 	}
 	if final == nil {
 		if opt.Block != "" {

@@ -7,6 +7,7 @@ import (
 	"time"
 
 	"livefield/replay/session"
+	"livefield/stream/ingest"
 )
 
 // FinalOnly, as FeedOptions.UpdateEvery, leaves the estimates alone while
@@ -29,7 +30,7 @@ type PassOptions struct {
 	// Progress, when set, is called with the feeder's counts about once per
 	// ProgressEvery (DefaultProgressEvery when 0) of wall time: messages
 	// and bins fed, not estimate updates.
-	Progress      func(FeedStats)
+	Progress      func(ingest.Health)
 	ProgressEvery time.Duration
 	// Until, when set, is asked after each record; true ends the pass
 	// early, without an error.
@@ -50,11 +51,11 @@ func (f *Feeder) FeedSession(ctx context.Context, r *session.Reader, opt PassOpt
 	}
 	next := time.Now().Add(every)
 	st, err := Play(ctx, r, PlayOptions{From: opt.From, OnDamage: opt.OnDamage}, func(rec session.Record) error {
-		_ = f.FeedRecord(rec) // counted in f.Stats
+		_ = f.FeedRecord(rec) // counted in f.Health
 		if opt.Progress != nil {
 			if now := time.Now(); now.After(next) {
 				next = now.Add(every)
-				opt.Progress(f.Stats())
+				opt.Progress(f.Health())
 			}
 		}
 		if opt.Until != nil && opt.Until() {

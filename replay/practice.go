@@ -198,9 +198,9 @@ func (p *Practice) Run(ctx context.Context, r *session.Reader, name string) (*Re
 		}
 		ferr := p.feeder.FeedRecord(rec)
 		if block == "" && ferr == nil && rec.Subject == wire.SubjectBlock {
-			if id := p.feeder.Stats().Block; id != "" {
+			if h := p.feeder.Health(); h.BlockState == "running" {
 				p.runMu.Lock()
-				p.block, p.blockStart = id, rec.At
+				p.block, p.blockStart = h.Block, rec.At
 				p.runMu.Unlock()
 			}
 		}

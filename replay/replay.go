@@ -12,14 +12,9 @@ import (
 
 	"livefield/online"
 	"livefield/replay/session"
-	"livefield/stream/binning"
 	"livefield/stream/ingest"
 	"livefield/stream/wire"
 )
-
-// DefaultUpdateEvery is the arrival-time interval between two estimate
-// updates of a Feeder, the same cadence as the live ingest.
-const DefaultUpdateEvery = time.Second
 
 // FeedOptions configure a Feeder.
 type FeedOptions struct {
@@ -29,7 +24,8 @@ type FeedOptions struct {
 	// (binning.DefaultGrace when 0).
 	Grace float64
 	// UpdateEvery is the arrival-time interval between estimate updates
-	// (DefaultUpdateEvery when 0; FinalOnly for none before the block end).
+	// (ingest.DefaultUpdateEvery, the live cadence, when 0; FinalOnly for
+	// none before the block end).
 	UpdateEvery time.Duration
 	// OnUpdate, when set, is called with the block id, every snapshot the
 	// feeder publishes and the arrival time it was made at. It runs with
@@ -47,17 +43,6 @@ type FeedOptions struct {
 	OnBlockEnd func(block string, s *online.Snapshot, at time.Time)
 }
 
-// FeedStats count what a Feeder has taken.
-type FeedStats struct {
-	Messages int64            `json:"messages"`
-	Rejected map[string]int64 `json:"rejected"` // by reason
-	Blocks   int64            `json:"blocks"`
-	Bins     int64            `json:"bins"` // closed so far, in the estimates or waiting for the next update
-	Spikes   int64            `json:"spikes"`
-	Block    string           `json:"block"` // the running block, "" between blocks
-	Stream   float64          `json:"stream_t"`
-}
-
 // Feeder turns decoded session messages into estimates without NATS: it is
 // the live ingest's own loop (ingest.Loop), with the records' arrival
 // times as its clock, behind a lock so that the display may call it.
@@ -67,24 +52,14 @@ type Feeder struct {
 	now  time.Time // arrival of the latest message
 }
 
-// discard is the feeder's logger: refusals are counted in Stats, and a
+// discard is the feeder's logger: refusals are counted in Health, and a
 // replay reports them itself.
 var discard = slog.New(slog.NewTextHandler(io.Discard, nil))
 
-// NewFeeder returns a Feeder with no block running.
+// NewFeeder returns a Feeder with no block running. Its options are
+// filled and checked by the ingest (ingest.NewLoop), the one place of
+// those rules.
 func NewFeeder(opt FeedOptions) (*Feeder, error) {
-	if opt.Grace == 0 {
-		opt.Grace = binning.DefaultGrace
-	}
-	if !(opt.Grace > 0) || math.IsInf(opt.Grace, 0) {
-		return nil, fmt.Errorf("replay: grace %v is not a positive number of seconds", opt.Grace)
-	}
-	if opt.UpdateEvery == 0 {
-		opt.UpdateEvery = DefaultUpdateEvery
-	}
-	if opt.UpdateEvery < 0 {
-		return nil, fmt.Errorf("replay: update interval %v is negative", opt.UpdateEvery)
-	}
 	l, err := ingest.NewLoop(ingest.Options{
 		Prefix:      "replay",
 		StimuliDir:  opt.StimuliDir,
@@ -146,33 +121,16 @@ func (f *Feeder) Finish() *online.Snapshot {
 // Snapshot is the latest published snapshot (nil before the first block).
 func (f *Feeder) Snapshot() *online.Snapshot { return f.loop.Snapshot() }
 
-// Stats returns the counts so far.
-func (f *Feeder) Stats() FeedStats {
-	h := f.loop.Counters()
-	block, stream := h.Block, float64(h.StreamTime)
-	if h.BlockState != "running" {
-		block = ""
-	}
-	if math.IsNaN(stream) {
-		stream = 0
-	}
-	s := FeedStats{Messages: int64(h.Processed), Blocks: int64(h.Blocks), Bins: int64(h.Bins + h.BinsWaiting), Spikes: int64(h.SpikesTotal),
-		Block: block, Stream: stream, Rejected: make(map[string]int64, len(h.Rejected))}
-	for k, v := range h.Rejected {
-		s.Rejected[k] = int64(v)
-	}
-	return s
-}
-
-// Health is Stats, for the display.
-func (f *Feeder) Health() any { return f.Stats() }
+// Health returns the counters so far (the ingest's, without the NATS
+// side). Safe from any goroutine.
+func (f *Feeder) Health() ingest.Health { return f.loop.Health() }
 
 // EvidenceLambda waits for the evidence fits of the ended blocks
 // (FeedOptions.Evidence) and returns the choice of λ from the named block,
 // or from the last block that ended when block is "".
 func (f *Feeder) EvidenceLambda(block string) (float64, error) {
 	f.loop.WaitEvidence()
-	h := f.loop.Counters()
+	h := f.loop.Health()
 	if block == "" {
 		block = h.EvidenceBlock
 	}
@@ -200,11 +158,9 @@ func (f *Feeder) FlagSTC(id string, on bool) error {
 	return f.loop.FlagSTC(id, on)
 }
 
-// SetCriterion changes the target reliability and block fraction.
+// SetCriterion changes the target reliability and block fraction; one
+// that fails online.Criterion.Check is refused with its error.
 func (f *Feeder) SetCriterion(target, fraction float64) error {
-	if !(target > 0 && target < 1) || !(fraction > 0 && fraction <= 1) {
-		return fmt.Errorf("replay: criterion target %v not in (0, 1) or fraction %v not in (0, 1]", target, fraction)
-	}
 	f.mu.Lock()
 	defer f.mu.Unlock()
 	return f.loop.SetCriterion(target, fraction)

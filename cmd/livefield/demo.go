@@ -9,6 +9,7 @@ import (
 	"sync"
 	"time"
 
+	"livefield/display"
 	"livefield/stream/ingest"
 	"livefield/stream/wire"
 )
@@ -58,12 +59,13 @@ func runDemo(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stder
 	prefix := wire.Prefix(demoRig)
 	// The embedded server has JetStream, so the demo maps durably, as serve
 	// does on such a server.
-	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, Logger: log, Durable: true})
+	updates := display.NewUpdates()
+	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, Logger: log, Durable: true, OnUpdate: updates.Notify})
 	if err != nil {
 		return err
 	}
 	defer r.Close()
-	if h := r.Counters(); h.Durable {
+	if h := r.Health(); h.Durable {
 		fmt.Fprintf(stdout, "livefield: durable: JetStream stream %s, consumer %s\n", h.Stream, h.Consumer)
 	}
 
@@ -85,7 +87,7 @@ func runDemo(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stder
 
 	fmt.Fprintf(stdout, "livefield: synthetic rig %q: 16×16 binary noise at 60 Hz, %d units on 32 channels\n", demoRig, *units)
 	fmt.Fprintf(stdout, "livefield: open http://%s/  (Ctrl-C stops)\n", ln.Addr())
-	err = serveHTTP(ctx, ln, r, "", stdout)
+	err = serveHTTP(ctx, ln, r, updates, "", stdout)
 	fmt.Fprintln(stdout, "livefield: stopping")
 	return err
 }

@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"livefield/display"
+	"livefield/stream/ingest"
 )
 
 // shutdownTimeout bounds the wait for open requests at shutdown.
@@ -61,14 +62,17 @@ type route struct {
 
 // serveHTTP serves the page, websocket, JSON API and exports of src, and
 // the extra routes, on ln until ctx is done, then shuts down gracefully.
-// token guards the commands and exports; beyond loopback one is made up
-// when none is given (webToken).
-func serveHTTP(ctx context.Context, ln net.Listener, src display.SnapshotSource, token string, out io.Writer, extra ...route) error {
+// src is a live rig or a replay's feeder (the ingest's counters).
+// updates, rung by src's update hook, pushes each snapshot to the browsers
+// as it is published (nil: the page polls src). token guards the commands
+// and exports; beyond loopback one is made up when none is given
+// (webToken).
+func serveHTTP(ctx context.Context, ln net.Listener, src display.Source[ingest.Health], updates *display.Updates, token string, out io.Writer, extra ...route) error {
 	token, err := webToken(ln, token, out)
 	if err != nil {
 		return err
 	}
-	web := display.NewServer(src, display.Options{Token: token})
+	web := display.NewServer(display.AnyHealth(src), display.Options{Token: token, Updates: updates})
 	var h http.Handler = web
 	if len(extra) > 0 {
 		mux := http.NewServeMux()

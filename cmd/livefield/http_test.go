@@ -51,7 +51,7 @@ func TestWebTokenBeyondLoopback(t *testing.T) {
 			}
 			ctx, cancel := context.WithCancel(context.Background())
 			done := make(chan error, 1)
-			go func() { done <- serveHTTP(ctx, ln, src, token, io.Discard) }()
+			go func() { done <- serveHTTP(ctx, ln, src, nil, token, io.Discard) }()
 			defer func() { cancel(); <-done }()
 			// Requests go to loopback only, whatever the listener.
 			url := "http://127.0.0.1:" + strconv.Itoa(ln.Addr().(*net.TCPAddr).Port) + "/api/reset"

@@ -24,11 +24,8 @@ func runPractice(ctx context.Context, fs *flag.FlagSet, args []string, stdout, s
 	stopFlag := fs.String("stop-at", "", "stop by itself this long after the block start (a scripted decision)")
 	reportPath := fs.String("report", "", "where to write the JSON report (default FILE with .practice.json)")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
-	file, err := fileArg(fs, args)
+	file, err := pace.fileArg(fs, args)
 	if err != nil {
-		return err
-	}
-	if err := pace.check(); err != nil {
 		return err
 	}
 	speed, from := pace.speed, pace.from
@@ -47,8 +44,9 @@ func runPractice(ctx context.Context, fs *flag.FlagSet, args []string, stdout, s
 		return err
 	}
 	defer f.Close()
+	updates := display.NewUpdates()
 	p, err := replay.NewPractice(replay.PracticeOptions{
-		Feed:     replay.FeedOptions{StimuliDir: *stimuli},
+		Feed:     replay.FeedOptions{StimuliDir: *stimuli, OnUpdate: updates.Notify},
 		Speed:    speed,
 		StopAt:   stopAt,
 		From:     from,
@@ -72,7 +70,7 @@ func runPractice(ctx context.Context, fs *flag.FlagSet, args []string, stdout, s
 		}
 		served = make(chan error, 1)
 		go func() {
-			served <- serveHTTP(ctx, ln, p.Source(), token, io.Discard, route{"/api/practice/", display.PracticeHandler(p, token)})
+			served <- serveHTTP(ctx, ln, p.Source(), updates, token, io.Discard, route{"/api/practice/", display.PracticeHandler(p, token)})
 		}()
 		defer func() { cancel(); <-served }()
 		fmt.Fprintf(stdout, "livefield: open http://%s/?practice=1%s ; stop with the page's Stop button, Enter here, or POST /api/practice/stop\n", ln.Addr(), tokenQuery(token))

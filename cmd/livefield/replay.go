@@ -13,6 +13,7 @@ import (
 
 	"github.com/nats-io/nats.go"
 
+	"livefield/display"
 	"livefield/replay"
 	"livefield/replay/session"
 	"livefield/stream/ingest"
@@ -26,11 +27,8 @@ func runReplay(ctx context.Context, fs *flag.FlagSet, args []string, stdout, std
 	nf.add(fs, "publish into this NATS server instead of an embedded one (the page is then served by livefield serve)")
 	rig := fs.String("rig", "", "publish under livefield.<rig> instead of the recorded prefix")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
-	file, err := fileArg(fs, args)
+	file, err := pace.fileArg(fs, args)
 	if err != nil {
-		return err
-	}
-	if err := pace.check(); err != nil {
 		return err
 	}
 	f, prefix, err := openSession(file, stdout)
@@ -94,7 +92,8 @@ func replayWithPage(ctx context.Context, f *session.File, prefix string, play re
 	defer srv.close()
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	r, err := ingest.Start(ctx, srv.sub, ingest.Options{Prefix: prefix, StimuliDir: stimuli, Logger: log})
+	updates := display.NewUpdates()
+	r, err := ingest.Start(ctx, srv.sub, ingest.Options{Prefix: prefix, StimuliDir: stimuli, Logger: log, OnUpdate: updates.Notify})
 	if err != nil {
 		return err
 	}
@@ -121,7 +120,7 @@ func replayWithPage(ctx context.Context, f *session.File, prefix string, play re
 	defer wg.Wait()
 	defer cancel()
 	fmt.Fprintf(stdout, "livefield: replaying at %gx through an embedded NATS server\nlivefield: open http://%s/  (Ctrl-C stops)\n", play.Speed, ln.Addr())
-	return serveHTTP(ctx, ln, r, "", stdout)
+	return serveHTTP(ctx, ln, r, updates, "", stdout)
 }
 
 // publishSession plays r into nc under prefix.
@@ -136,9 +135,15 @@ func publishSession(ctx context.Context, nc *nats.Conn, prefix string, r *sessio
 }
 
 // progressPrinter prints the counts of a full-speed pass (replay.PassOptions.Progress).
-func progressPrinter(w io.Writer) func(replay.FeedStats) {
-	return func(s replay.FeedStats) {
-		fmt.Fprintf(w, "livefield: %d messages, %d blocks, %d bins, stream at %.1f s\n", s.Messages, s.Blocks, s.Bins, s.Stream)
+func progressPrinter(w io.Writer) func(ingest.Health) {
+	return func(h ingest.Health) {
+		stream := float64(h.StreamTime)
+		if math.IsNaN(stream) {
+			stream = 0 // no spike or frame yet
+		}
+		// Bins fed so far: in the estimates or waiting for the next update
+		// (a full-speed pass updates only at each block's end).
+		fmt.Fprintf(w, "livefield: %d messages, %d blocks, %d bins, stream at %.1f s\n", h.Processed, h.Blocks, h.Bins+h.BinsWaiting, stream)
 	}
 }
 
@@ -146,7 +151,10 @@ func progressPrinter(w io.Writer) func(replay.FeedStats) {
 // progress each second, and serves the page afterwards when addr is set.
 // The estimates are updated once, at the end of each block (replay.FinalOnly).
 func replayFullSpeed(ctx context.Context, f *session.File, play replay.PlayOptions, addr, stimuli string, stdout, stderr io.Writer) error {
-	feeder, err := replay.NewFeeder(replay.FeedOptions{StimuliDir: stimuli, UpdateEvery: replay.FinalOnly})
+	// The page, served after the pass, shows the snapshots of its own
+	// commands (a reset, a criterion) as they are published.
+	updates := display.NewUpdates()
+	feeder, err := replay.NewFeeder(replay.FeedOptions{StimuliDir: stimuli, UpdateEvery: replay.FinalOnly, OnUpdate: updates.Notify})
 	if err != nil {
 		return err
 	}
@@ -157,7 +165,7 @@ func replayFullSpeed(ctx context.Context, f *session.File, play replay.PlayOptio
 	}
 	snap := feeder.Finish()
 	el := time.Since(start).Seconds()
-	fs := feeder.Stats()
+	fs := feeder.Health()
 	fmt.Fprintf(stdout, "livefield: replayed %d messages (%.1f s of session) in %.2f s: %.0fx real time; %d blocks, %d bins\n",
 		st.Records, st.Span.Seconds(), el, st.Span.Seconds()/math.Max(el, 1e-9), fs.Blocks, fs.Bins)
 	for reason, n := range fs.Rejected {
@@ -173,5 +181,5 @@ func replayFullSpeed(ctx context.Context, f *session.File, play replay.PlayOptio
 	}
 	defer ln.Close()
 	fmt.Fprintf(stdout, "livefield: open http://%s/  (Ctrl-C stops)\n", ln.Addr())
-	return serveHTTP(ctx, ln, feeder, "", stdout)
+	return serveHTTP(ctx, ln, feeder, updates, "", stdout)
 }

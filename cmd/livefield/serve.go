@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"livefield/display"
+	"livefield/stream/binning"
 	"livefield/stream/ingest"
 )
 
@@ -20,7 +21,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 	rig := fs.String("rig", "", "rig name (required); subjects are livefield.<rig>.block|frames|spikes|control")
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
-	grace := fs.Duration("grace", 250*time.Millisecond, "how long a bin waits for late spikes")
+	grace := fs.Duration("grace", time.Duration(binning.DefaultGrace*float64(time.Second)), "how long a bin waits for late spikes")
 	lambdaFlag := fs.String("lambda", "0", "ridge penalty λ; 0 takes the default, 100 × the stimulus pixel variance; \"evidence\" chooses it by empirical Bayes at the end of each block for the blocks that follow")
 	maxUnits := fs.Int("max-units", ingest.DefaultMaxUnits, "cap on distinct unit ids per block")
 	apiToken := fs.String("api-token", "", "when set, required by the HTTP commands (POST /api/…) and exports, header "+display.TokenHeader)
@@ -68,6 +69,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 			return err
 		}
 	}
+	updates := display.NewUpdates()
 	r, err := ingest.Start(ctx, nc, ingest.Options{
 		Prefix:     prefix,
 		StimuliDir: *stimuli,
@@ -78,12 +80,13 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 		Logger:     log,
 		Shard:      shard,
 		Durable:    durable,
+		OnUpdate:   updates.Notify,
 	})
 	if err != nil {
 		return err
 	}
 	defer r.Close()
-	if h := r.Counters(); h.Durable {
+	if h := r.Health(); h.Durable {
 		fmt.Fprintf(stdout, "livefield: durable: JetStream stream %s, consumer %s, from sequence %d\n", h.Stream, h.Consumer, h.StartSeq)
 	} else {
 		why := "the server has no JetStream"
@@ -93,7 +96,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 		log.Warn("livefield: not durable ("+why+"): "+ingest.CoreWarning, "prefix", prefix)
 	}
 	fmt.Fprintf(stdout, "livefield: mapping %s.* (shard %s) from %s\nlivefield: open http://%s/\n", prefix, shard, redact(nf.url), ln.Addr())
-	return serveHTTP(ctx, ln, r, *apiToken, stdout)
+	return serveHTTP(ctx, ln, r, updates, *apiToken, stdout)
 }
 
 // parseLambda reads a --lambda flag: a penalty ≥ 0 (0: the estimator's

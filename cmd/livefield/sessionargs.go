@@ -56,6 +56,16 @@ func (p *pacing) add(fs *flag.FlagSet, speedHelp string) {
 	fs.StringVar(&p.fromText, "from", "", "start this far into the session (seconds after its first message, or a duration); the running block's start is kept")
 }
 
+// fileArg parses args with one positional FILE (fileArg) and checks the
+// pacing flags.
+func (p *pacing) fileArg(fs *flag.FlagSet, args []string) (string, error) {
+	file, err := fileArg(fs, args)
+	if err != nil {
+		return "", err
+	}
+	return file, p.check()
+}
+
 // check parses the flags' text.
 func (p *pacing) check() (err error) {
 	if p.speed, err = parseSpeed(p.speedText); err != nil {

@@ -14,6 +14,7 @@ import (
 
 	"livefield/display"
 	"livefield/stream/binning"
+	"livefield/stream/natstest"
 	"livefield/stream/wire"
 )
 
@@ -70,13 +71,7 @@ func session(b testing.TB, seconds float64) (msgs []message, spikes int) {
 	nextFrames, nextSpikes := 0.05, 0.02
 	for now := 0.0; now < seconds; now += 0.01 {
 		if now+1e-9 >= nextFrames {
-			var f wire.Frames
-			f.Block = "bench"
-			for ; float64(frame)*refPeriod < nextFrames; frame++ {
-				f.Index = append(f.Index, frame)
-				f.T = append(f.T, float64(frame)*refPeriod)
-			}
-			data, err := wire.EncodeFrames(f)
+			data, err := wire.EncodeFrames(framesBefore("bench", &frame, refPeriod, nextFrames))
 			if err != nil {
 				b.Fatal(err)
 			}
@@ -111,7 +106,7 @@ func BenchmarkDecodeBin(b *testing.B) {
 	b.ReportAllocs()
 	b.ResetTimer()
 	for range b.N {
-		bn, err := binning.New(binning.Config{FramePeriod: refPeriod, Grace: DefaultGrace})
+		bn, err := binning.New(binning.Config{FramePeriod: refPeriod, Grace: binning.DefaultGrace})
 		if err != nil {
 			b.Fatal(err)
 		}
@@ -166,7 +161,7 @@ func BenchmarkLoop(b *testing.B) {
 		for _, m := range msgs {
 			feedRaw(c, m)
 		}
-		if h := c.Counters(); len(h.Rejected) != 0 {
+		if h := c.Health(); len(h.Rejected) != 0 {
 			b.Fatalf("rejected %v", h.Rejected)
 		}
 		bins = c.n.bins.Load()
@@ -181,10 +176,10 @@ func BenchmarkLoop(b *testing.B) {
 // publication of a probe unit's spike to its presence in the spike counts
 // of GET /api/units. Target ≤ 1.5 s.
 func BenchmarkLatency(b *testing.B) {
-	srv := startServer(b)
-	sub, pubc := connect(b, srv), connect(b, srv)
+	srv := natstest.Start(b, natstest.Options{})
+	sub, pubc := srv.Connect(b), srv.Connect(b)
 	r := startRig(b, sub, Options{Prefix: "bench.lat"})
-	web := httptest.NewServer(display.NewAPI(r))
+	web := httptest.NewServer(display.NewAPI(display.AnyHealth(r)))
 	defer web.Close()
 
 	ctx, cancel := context.WithCancel(context.Background())
@@ -217,13 +212,7 @@ func BenchmarkLatency(b *testing.B) {
 			}
 			now := time.Since(t0).Seconds()
 			if now >= nextFrames {
-				var f wire.Frames
-				f.Block = "lat"
-				for ; float64(frame)*refPeriod < now; frame++ {
-					f.Index = append(f.Index, frame)
-					f.T = append(f.T, float64(frame)*refPeriod)
-				}
-				data, _ := wire.EncodeFrames(f)
+				data, _ := wire.EncodeFrames(framesBefore("lat", &frame, refPeriod, now))
 				_ = pubc.Publish("bench.lat.frames", data)
 				nextFrames = now + 0.05
 			}
@@ -258,7 +247,7 @@ func BenchmarkLatency(b *testing.B) {
 				break
 			}
 			if time.Since(sent) > 10*time.Second {
-				b.Fatalf("probe spike %d not in /api/units after 10 s (health %+v)", i+1, r.Counters())
+				b.Fatalf("probe spike %d not in /api/units after 10 s (health %+v)", i+1, r.Health())
 			}
 			time.Sleep(5 * time.Millisecond)
 		}
@@ -266,7 +255,7 @@ func BenchmarkLatency(b *testing.B) {
 	}
 	b.StopTimer()
 	b.ReportMetric(total.Seconds()*1000/float64(b.N), "ms-latency")
-	h := r.Counters()
+	h := r.Health()
 	b.ReportMetric(float64(h.Lag)*1000, "ms-update-wait")
 	b.ReportMetric(h.UpdateSeconds*1000, "ms-update")
 	if len(h.Rejected) != 0 {
@@ -319,7 +308,7 @@ func TestSteadyStateNoAlloc(t *testing.T) {
 			feedRaw(c, rest[i])
 			i++
 		})
-		h := c.Counters()
+		h := c.Health()
 		if allocs != 0 || len(h.Rejected) != 0 {
 			t.Fatalf("shard %v: %.2f allocations per message (rejected %v), want 0", sh, allocs, h.Rejected)
 		}

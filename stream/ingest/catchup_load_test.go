@@ -3,6 +3,7 @@ package ingest
 import (
 	"encoding/json"
 	"fmt"
+	"livefield/stream/natstest"
 	"os"
 	"runtime"
 	"strconv"
@@ -28,12 +29,12 @@ func TestRestartCatchUp(t *testing.T) {
 	if err != nil || seconds <= 0 {
 		t.Fatalf("LIVEFIELD_CATCHUP=%q: want a number of seconds", env)
 	}
-	js := startJS(t)
+	js := natstest.Start(t, natstest.Options{JetStream: true})
 	const prefix = "catchup.ref"
 	// A first worker creates the stream, then goes away.
-	first := startRig(t, js.dial(t), Options{Prefix: prefix, Durable: true})
+	first := startRig(t, js.Connect(t), Options{Prefix: prefix, Durable: true})
 	first.Close()
-	pub := js.dial(t)
+	pub := js.Connect(t)
 	start, _ := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: "bench", T: 0, Lags: refLags, FramePeriod: refPeriod,
 		Stimulus: json.RawMessage(fmt.Sprintf(`{"type":"binary","width":%d,"height":%d,"seed":3}`, refSide, refSide))})
 	msgs, spikes := session(t, seconds)
@@ -56,12 +57,12 @@ func TestRestartCatchUp(t *testing.T) {
 	total := uint64(len(msgs) + 1)
 	time.Sleep(time.Second) // let the stream store the last messages
 	t0 := time.Now()
-	r := startRig(t, js.dial(t), Options{Prefix: prefix, Durable: true})
+	r := startRig(t, js.Connect(t), Options{Prefix: prefix, Durable: true})
 	h := pollHealthFor(t, r, 30*time.Minute, func(h Health) bool { return h.Processed >= total })
 	read := time.Since(t0)
 	snap := r.Sync()
 	took := time.Since(t0)
-	h = r.Counters()
+	h = r.Health()
 	var ms runtime.MemStats
 	runtime.GC()
 	runtime.ReadMemStats(&ms)
@@ -77,7 +78,7 @@ func pollHealthFor(t *testing.T, r *Rig, d time.Duration, cond func(Health) bool
 	t.Helper()
 	deadline := time.Now().Add(d)
 	for {
-		h := r.Counters()
+		h := r.Health()
 		if cond(h) {
 			return h
 		}

@@ -2,6 +2,7 @@ package ingest
 
 import (
 	"encoding/json"
+	"livefield/stream/natstest"
 	"math"
 	"testing"
 	"time"
@@ -23,8 +24,8 @@ func TestFasterThanTheSolves(t *testing.T) {
 		"stimulus": binary(8, 8, 3)})
 	end, _ := json.Marshal(map[string]any{"kind": "end", "block": "bench", "t": 60})
 
-	srv := startServer(t)
-	sub, pub := connect(t, srv), connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	sub, pub := srv.Connect(t), srv.Connect(t)
 	r := startRig(t, sub, Options{Prefix: "test.fast", UpdateEvery: 50 * time.Millisecond, Queue: 64})
 	p := &publisher{t: t, nc: pub, prefix: "test.fast"}
 	p.raw("block", start)

@@ -3,24 +3,21 @@ package ingest
 import (
 	"encoding/json"
 	"log/slog"
-	"net"
 	"strings"
 	"sync"
 	"sync/atomic"
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
-	"github.com/nats-io/nats.go"
-
+	"livefield/stream/natstest"
 	"livefield/stream/wire"
 )
 
 // TestHealthJSON: the counters encode before any data arrived (no NaN
 // reaches encoding/json).
 func TestHealthJSON(t *testing.T) {
-	srv := startServer(t)
-	r := startRig(t, connect(t, srv), Options{Prefix: "test.json"})
+	srv := natstest.Start(t, natstest.Options{})
+	r := startRig(t, srv.Connect(t), Options{Prefix: "test.json"})
 	b, err := json.Marshal(r.Health())
 	if err != nil {
 		t.Fatalf("health does not encode: %v", err)
@@ -35,41 +32,16 @@ func TestHealthJSON(t *testing.T) {
 // own tests do: the health shows the outage and the reconnect, and the
 // stream goes on.
 func TestReconnect(t *testing.T) {
-	opts := &server.Options{Host: "127.0.0.1", Port: server.RANDOM_PORT, NoSigs: true, NoLog: true}
-	srv, err := server.NewServer(opts)
-	if err != nil {
-		t.Fatal(err)
-	}
-	go srv.Start()
-	if !srv.ReadyForConnections(10 * time.Second) {
-		t.Fatal("not ready")
-	}
-	url := srv.ClientURL()
-	port := srv.Addr().(*net.TCPAddr).Port
-	nc, err := nats.Connect(url, nats.MaxReconnects(-1), nats.ReconnectWait(20*time.Millisecond))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer nc.Close()
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.reconnect"})
 	poll := func(what string, cond func(Health) bool) Health { t.Helper(); return pollHealth(t, r, what, cond) }
 	poll("connected", func(h Health) bool { return h.Connection == "CONNECTED" })
 
-	srv.Shutdown()
-	srv.WaitForShutdown()
+	srv.Stop()
 	poll("the outage", func(h Health) bool { return h.Connection == "RECONNECTING" })
 
-	again := *opts
-	again.Port = port
-	srv2, err := server.NewServer(&again)
-	if err != nil {
-		t.Fatal(err)
-	}
-	go srv2.Start()
-	defer func() { srv2.Shutdown(); srv2.WaitForShutdown() }()
-	if !srv2.ReadyForConnections(10 * time.Second) {
-		t.Fatal("restarted server not ready")
-	}
+	srv.Restart() // on the same port
 	h := poll("the reconnect", func(h Health) bool { return h.Connection == "CONNECTED" && h.Reconnects == 1 })
 	if h.Reconnects != 1 {
 		t.Fatalf("reconnects %d, want 1", h.Reconnects)
@@ -102,8 +74,8 @@ func (w *syncWriter) lines(substr string) int {
 // TestRejectionLogRate: every rejection is counted, but one reason is
 // logged at most once per 5 s of the injected clock.
 func TestRejectionLogRate(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	var now atomic.Int64
 	var logs syncWriter
 	r := startRig(t, nc, Options{Prefix: "test.log", Now: func() time.Time { return time.Unix(0, now.Load()) },
@@ -129,8 +101,8 @@ func TestRejectionLogRate(t *testing.T) {
 // message is handled once the intake runs again (rig data is never dropped
 // by livefield itself; only nats.go's pending limits can drop, counted).
 func TestQueueFullWaits(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.queue", Queue: 1})
 	started, release := make(chan struct{}), make(chan struct{})
 	var once sync.Once

@@ -60,7 +60,7 @@
 // # Goroutines
 //
 //   - A Loop is fed by one goroutine at a time (Feed, Advance, Update,
-//     Finish, Reset, FlagSTC, SetCriterion); Snapshot, Counters, Health
+//     Finish, Reset, FlagSTC, SetCriterion); Snapshot, Health
 //     and EvidenceOf may be called from any goroutine. Options.OnUpdate and
 //     OnBlockEnd run on the estimator's goroutine (the feeding goroutine of
 //     a NewLoop).
@@ -73,7 +73,7 @@
 //     the estimator goroutine folds bins in and updates. Both run until
 //     the context of Start ends or Close is called, which also cancels the
 //     evidence fits and waits for all of them.
-//   - Any goroutine may call a Rig's Snapshot, Health, Counters, Reset,
+//   - Any goroutine may call a Rig's Snapshot, Health, Reset,
 //     FlagSTC, SetCriterion, Sync, WaitProcessed and Close. Snapshot is an
 //     atomic load; the commands run on the intake goroutine and wait for it.
 //

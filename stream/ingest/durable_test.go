@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
-	"net"
 	"net/http/httptest"
 	"runtime"
 	"slices"
@@ -13,71 +12,16 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
 	"livefield/display"
 	"livefield/online"
 	"livefield/replay/synth"
+	"livefield/stream/natstest"
 	"livefield/stream/stimulus"
 	"livefield/stream/wire"
 )
-
-// jsServer is an embedded nats-server with JetStream on a store directory
-// that outlives it, so a test can restart it on the same port and store,
-// as nats-server's own tests do.
-type jsServer struct {
-	t    testing.TB
-	srv  *server.Server
-	dir  string
-	port int
-}
-
-func startJS(t testing.TB) *jsServer {
-	t.Helper()
-	s := &jsServer{t: t, dir: t.TempDir(), port: server.RANDOM_PORT}
-	s.start()
-	t.Cleanup(s.stop)
-	return s
-}
-
-func (s *jsServer) start() {
-	s.t.Helper()
-	srv, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: s.port, NoSigs: true, NoLog: true,
-		JetStream: true, StoreDir: s.dir})
-	if err != nil {
-		s.t.Fatal(err)
-	}
-	go srv.Start()
-	if !srv.ReadyForConnections(10*time.Second) || !srv.JetStreamEnabled() {
-		s.t.Fatal("nats-server with JetStream not ready")
-	}
-	s.srv, s.port = srv, srv.Addr().(*net.TCPAddr).Port
-}
-
-func (s *jsServer) stop() {
-	if s.srv != nil {
-		s.srv.Shutdown()
-		s.srv.WaitForShutdown()
-		s.srv = nil
-	}
-}
-
-func (s *jsServer) restart() { s.t.Helper(); s.stop(); s.start() }
-
-func (s *jsServer) url() string { return fmt.Sprintf("nats://127.0.0.1:%d", s.port) }
-
-// dial connects with reconnects forever, 20 ms apart.
-func (s *jsServer) dial(t testing.TB) *nats.Conn {
-	t.Helper()
-	nc, err := nats.Connect(s.url(), nats.MaxReconnects(-1), nats.ReconnectWait(20*time.Millisecond))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return nc
-}
 
 // jsPublisher publishes with JetStream acknowledgements, retrying (same
 // Nats-Msg-Id, so the stream stores a retry once) until the server has
@@ -132,13 +76,7 @@ func (p *jsPublisher) msg(subject string, b []byte, err error) {
 func (p *jsPublisher) numbered(block string, from, to int64, sent map[string]int64) {
 	p.t.Helper()
 	for lo := from; lo < to; lo += 6 {
-		var f wire.Frames
-		f.Block = block
-		for i := lo; i < min(lo+6, to); i++ {
-			f.Index = append(f.Index, i)
-			f.T = append(f.T, frameTime(t0, i))
-		}
-		b, err := wire.EncodeFrames(f)
+		b, err := wire.EncodeFrames(frameRun(block, lo, min(lo+6, to), t0))
 		p.msg(wire.SubjectFrames, b, err)
 		var s wire.Spikes
 		for u := range 8 {
@@ -154,14 +92,13 @@ func (p *jsPublisher) numbered(block string, from, to int64, sent map[string]int
 
 func (p *jsPublisher) start(block string) {
 	p.t.Helper()
-	spec, _ := json.Marshal(binary(8, 8, 7))
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: block, T: t0, Stimulus: spec, Lags: 4, FramePeriod: 1.0 / 60})
+	b, err := encodeStart(block, binary(8, 8, 7), t0)
 	p.msg(wire.SubjectBlock, b, err)
 }
 
 func (p *jsPublisher) end(block string, t float64) {
 	p.t.Helper()
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindEnd, Block: block, T: t})
+	b, err := encodeEnd(block, t)
 	p.msg(wire.SubjectBlock, b, err)
 }
 
@@ -170,7 +107,7 @@ func ended(t testing.TB, r *Rig, block string) Health {
 	t.Helper()
 	pollHealth(t, r, "the block end", func(h Health) bool { return h.Block == block && h.BlockState == "ended" })
 	r.Sync()
-	return r.Counters()
+	return r.Health()
 }
 
 // TestDurableServerRestart restarts the JetStream server mid-block, on the
@@ -178,10 +115,10 @@ func ended(t testing.TB, r *Rig, block string) Health {
 // every acknowledged spike is counted exactly once (set arithmetic per
 // unit: lost = sent − counted, extra = counted − sent, both empty).
 func TestDurableServerRestart(t *testing.T) {
-	js := startJS(t)
+	js := natstest.Start(t, natstest.Options{JetStream: true})
 	const prefix = "test.jsrestart"
-	r := startRig(t, js.dial(t), Options{Prefix: prefix, Durable: true})
-	p := newJSPublisher(t, js.dial(t), prefix)
+	r := startRig(t, js.Connect(t), Options{Prefix: prefix, Durable: true})
+	p := newJSPublisher(t, js.Connect(t), prefix)
 	sent := map[string]int64{}
 	p.start("b1")
 	// The rig publishes throughout; the server goes down and comes back
@@ -196,7 +133,7 @@ func TestDurableServerRestart(t *testing.T) {
 		p.end("b1", frameTime(t0, 600))
 	}()
 	<-half
-	js.restart()
+	js.Restart()
 	<-done
 	h := ended(t, r, "b1")
 
@@ -221,7 +158,7 @@ func TestDurableServerRestart(t *testing.T) {
 	}
 	// nats.go calls the reconnect handler on its own goroutine: the count
 	// may trail the messages that came after the reconnection.
-	for deadline := time.Now().Add(5 * time.Second); h.Reconnects < 1 && time.Now().Before(deadline); h = r.Counters() {
+	for deadline := time.Now().Add(5 * time.Second); h.Reconnects < 1 && time.Now().Before(deadline); h = r.Health() {
 		time.Sleep(10 * time.Millisecond)
 	}
 	if h.Reconnects < 1 || !h.Durable || h.Processed != uint64(p.n) {
@@ -231,7 +168,7 @@ func TestDurableServerRestart(t *testing.T) {
 		total, p.n, h.Duplicates, h.Resyncs)
 	// Every processed message is acknowledged: the consumer's floor is the
 	// block end.
-	cons, err := jetstream.New(js.dial(t))
+	cons, err := jetstream.New(js.Connect(t))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -296,23 +233,23 @@ func unitIDs(s *online.Snapshot) []string {
 // a new one: it rebuilds the block from its start message and ends with
 // the estimates of a mapper that ran throughout.
 func TestDurableMapperRestart(t *testing.T) {
-	js := startJS(t)
+	js := natstest.Start(t, natstest.Options{JetStream: true})
 	const prefix = "test.jskill"
-	whole := startRig(t, js.dial(t), Options{Prefix: prefix, Durable: true, Consumer: "WHOLE"})
-	p := newJSPublisher(t, js.dial(t), prefix)
+	whole := startRig(t, js.Connect(t), Options{Prefix: prefix, Durable: true, Consumer: "WHOLE"})
+	p := newJSPublisher(t, js.Connect(t), prefix)
 	sent := map[string]int64{}
 	p.start("b1")
 	p.numbered("b1", 0, 300, sent)
 
-	killedConn := js.dial(t)
+	killedConn := js.Connect(t)
 	killed := startRig(t, killedConn, Options{Prefix: prefix, Durable: true})
 	pollHealth(t, killed, "the first half", func(h Health) bool { return h.Processed == uint64(p.n) })
 	killedConn.Close()
 	killed.Close()
 
 	p.numbered("b1", 300, 450, sent)
-	again := startRig(t, js.dial(t), Options{Prefix: prefix, Durable: true})
-	if h := again.Counters(); h.StartSeq != 1 {
+	again := startRig(t, js.Connect(t), Options{Prefix: prefix, Durable: true})
+	if h := again.Health(); h.StartSeq != 1 {
 		t.Fatalf("restarted at stream sequence %d, want 1 (the block start)", h.StartSeq)
 	}
 	p.numbered("b1", 450, 600, sent)
@@ -338,13 +275,13 @@ func TestDurableMapperRestart(t *testing.T) {
 // estimated by exactly one shard, identically to the unsharded worker,
 // and the other shard's spikes are ignored and counted, not rejected.
 func TestShards(t *testing.T) {
-	js := startJS(t)
+	js := natstest.Start(t, natstest.Options{JetStream: true})
 	const prefix = "test.shards"
-	nc := js.dial(t)
+	nc := js.Connect(t)
 	all := startRig(t, nc, Options{Prefix: prefix, Durable: true, Queue: 1 << 14})
 	s0 := startRig(t, nc, Options{Prefix: prefix, Durable: true, Queue: 1 << 14, Shard: Shard{0, 2}})
 	s1 := startRig(t, nc, Options{Prefix: prefix, Durable: true, Queue: 1 << 14, Shard: Shard{1, 2}})
-	if names := []string{all.Counters().Consumer, s0.Counters().Consumer, s1.Counters().Consumer}; names[0] == names[1] || names[1] == names[2] {
+	if names := []string{all.Health().Consumer, s0.Health().Consumer, s1.Health().Consumer}; names[0] == names[1] || names[1] == names[2] {
 		t.Fatalf("consumer names %v are not distinct", names)
 	}
 	spec := stimulus.Spec{Type: "binary", Width: 8, Height: 8, Seed: 11}
@@ -356,7 +293,7 @@ func TestShards(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if err := synth.Publish(context.Background(), js.dial(t), prefix, rig, synth.PublishOptions{Stimulus: spec, Duration: 60, Speed: 0}); err != nil {
+	if err := synth.Publish(context.Background(), js.Connect(t), prefix, rig, synth.PublishOptions{Stimulus: spec, Duration: 60, Speed: 0}); err != nil {
 		t.Fatal(err)
 	}
 	var h [3]Health
@@ -393,8 +330,8 @@ func TestShards(t *testing.T) {
 // small pending limits on core NATS: nats.go drops what overflows, and the
 // drops and the episode show in /api/health.
 func TestSlowConsumer(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.slow", Queue: 1, PendingMsgs: 4, PendingBytes: 1 << 20})
 	started, release := make(chan struct{}), make(chan struct{})
 	var once sync.Once
@@ -402,7 +339,7 @@ func TestSlowConsumer(t *testing.T) {
 	t.Cleanup(free) // before the rig's Close, which needs the intake
 	go r.do(func() { close(started); <-release })
 	<-started
-	p := &publisher{t: t, nc: connect(t, srv), prefix: "test.slow"}
+	p := &publisher{t: t, nc: srv.Connect(t), prefix: "test.slow"}
 	for range 50 {
 		p.raw("control", []byte(`{"command":"reset"}`))
 	}
@@ -415,7 +352,7 @@ func TestSlowConsumer(t *testing.T) {
 	free()
 	h := pollHealth(t, r, "the episode", func(h Health) bool { return h.SlowConsumerEvents >= 1 })
 
-	web := httptest.NewServer(display.NewAPI(r))
+	web := httptest.NewServer(display.NewAPI(display.AnyHealth(r)))
 	defer web.Close()
 	res, err := web.Client().Get(web.URL + "/api/health")
 	if err != nil {
@@ -439,7 +376,7 @@ func TestSlowConsumer(t *testing.T) {
 // TestDurableNeedsJetStream: asking for a durable ingest from a server
 // without JetStream is a clear error, and HasJetStream says why.
 func TestDurableNeedsJetStream(t *testing.T) {
-	nc := connect(t, startServer(t))
+	nc := natstest.Start(t, natstest.Options{}).Connect(t)
 	if ok, err := HasJetStream(context.Background(), nc); ok || err != nil {
 		t.Fatalf("HasJetStream on a server without it: %v, %v", ok, err)
 	}
@@ -447,8 +384,8 @@ func TestDurableNeedsJetStream(t *testing.T) {
 	if err == nil || err.Error() != "ingest: the NATS server has no JetStream; run on core NATS instead (messages sent during a disconnect are then lost)" {
 		t.Fatalf("Start: %v", err)
 	}
-	js := startJS(t)
-	if ok, err := HasJetStream(context.Background(), js.dial(t)); !ok || err != nil {
+	js := natstest.Start(t, natstest.Options{JetStream: true})
+	if ok, err := HasJetStream(context.Background(), js.Connect(t)); !ok || err != nil {
 		t.Fatalf("HasJetStream with JetStream: %v, %v", ok, err)
 	}
 }

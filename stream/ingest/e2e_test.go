@@ -8,6 +8,7 @@ import (
 
 	"livefield/online"
 	"livefield/replay/synth"
+	"livefield/stream/natstest"
 	"livefield/stream/stimulus"
 )
 
@@ -47,7 +48,7 @@ func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Sc
 	}
 	deadline := time.Now().Add(20 * time.Second)
 	for {
-		h := r.Counters()
+		h := r.Health()
 		var sent uint64
 		for _, n := range h.Messages {
 			sent += n
@@ -81,14 +82,14 @@ func playSynth(t *testing.T, r *Rig, pubPrefix string, p *publisher, sc synth.Sc
 // significant or reliable.
 func TestRecoversFields(t *testing.T) {
 	const seconds = 240.0
-	srv := startServer(t)
-	sub, pubc := connect(t, srv), connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	sub, pubc := srv.Connect(t), srv.Connect(t)
 	r := startRig(t, sub, Options{Prefix: "e2e.fields", Queue: 1 << 16})
 	p := &publisher{t: t, nc: pubc, prefix: "e2e.fields"}
 	spec := stimulus.Spec{Type: "binary", Width: 8, Height: 8, Seed: 11}
 	rig := playSynth(t, r, "e2e.fields", p, synth.Scenario{Width: 8, Height: 8, Lags: 8, Seed: 5}, spec, seconds)
 
-	h := r.Counters()
+	h := r.Health()
 	if len(h.Rejected) != 0 || h.SlowConsumer != 0 {
 		t.Fatalf("rejected %v, slow-consumer drops %d; want none", h.Rejected, h.SlowConsumer)
 	}

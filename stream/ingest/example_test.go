@@ -5,18 +5,20 @@ import (
 	"fmt"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 
 	"livefield/stream/ingest"
+	"livefield/stream/natstest"
 )
 
 func Example() {
-	srv, _ := server.NewServer(&server.Options{Host: "127.0.0.1", Port: server.RANDOM_PORT, NoSigs: true, NoLog: true})
-	go srv.Start()
-	defer srv.Shutdown()
-	srv.ReadyForConnections(10 * time.Second)
-	nc, err := nats.Connect(srv.ClientURL())
+	// A NATS server of the test's own; a rig's would do.
+	srv, err := natstest.New(natstest.Options{})
+	if err != nil {
+		panic(err)
+	}
+	defer srv.Close()
+	nc, err := nats.Connect(srv.URL())
 	if err != nil {
 		panic(err)
 	}
@@ -35,11 +37,11 @@ func Example() {
 	nc.Publish("livefield.rig1.spikes", []byte(`{"unit":["ch01.0","ch01.0"],"t":[0.02,0.07]}`))
 	nc.Publish("livefield.rig1.block", []byte(`{"kind":"end","block":"B1","t":0.1}`))
 	nc.Flush()
-	for r.Counters().Processed < 4 {
-		time.Sleep(time.Millisecond)
-	}
+	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+	defer cancel()
+	r.WaitProcessed(ctx, 4)
 	r.Sync()
-	h := r.Counters()
+	h := r.Health()
 	fmt.Println(h.Block, h.BlockState, "bins:", h.Bins, "spikes:", h.SpikesTotal, "rejected:", len(h.Rejected))
 	// Output: B1 ended bins: 6 spikes: 2 rejected: 0
 }
@@ -58,7 +60,7 @@ func ExampleLoop() {
 	err = l.Feed("spikes", []byte(`{"unit":["ch01.0"],"t":[-1]}`), at)
 	fmt.Println("refused:", err.(*ingest.Error).Reason)
 	l.Feed("block", []byte(`{"kind":"end","block":"B1","t":0.1}`), at.Add(time.Second))
-	h := l.Counters()
+	h := l.Health()
 	fmt.Println("bins:", h.Bins, "spikes:", h.SpikesTotal, "units:", len(l.Snapshot().Units))
 	// Output:
 	// refused: negative-time

@@ -25,7 +25,10 @@ const (
 	ReasonSubject       = "unknown-subject"    // a subject under the prefix that is none of the four
 )
 
-// Health is a copy of a rig's counters, safe to encode and keep.
+// Health is a copy of the counters of a rig (Rig.Health) or of a Loop fed
+// without NATS (Loop.Health, replay.Feeder.Health), safe to encode and
+// keep: the one counters type of the ingest, served as /api/health. The
+// NATS fields stay empty in a Loop's.
 type Health struct {
 	Prefix string `json:"prefix"`
 	// NATS connection state, from nats.go.
@@ -125,12 +128,8 @@ type Health struct {
 	Lag online.Float `json:"lag_s"`
 }
 
-// Health returns a copy of the counters, for the display. Safe from any
-// goroutine.
-func (c *Loop) Health() any { return c.Counters() }
-
-// Counters returns a copy of the counters. Safe from any goroutine.
-func (c *Loop) Counters() Health {
+// Health returns a copy of the counters. Safe from any goroutine.
+func (c *Loop) Health() Health {
 	h := Health{Prefix: c.opt.Prefix, Shard: c.opt.Shard.String(), UpdateEvery: c.opt.UpdateEvery.Seconds()}
 	c.mu.Lock()
 	h.Rejected = maps.Clone(c.rejected)
@@ -168,14 +167,10 @@ func (c *Loop) Counters() Health {
 	return h
 }
 
-// Health returns a copy of the counters, for the display. Safe from any
-// goroutine.
-func (r *Rig) Health() any { return r.Counters() }
-
-// Counters returns a copy of the counters, with the NATS side's. Safe from
+// Health returns a copy of the counters, with the NATS side's. Safe from
 // any goroutine.
-func (r *Rig) Counters() Health {
-	h := r.core.Counters()
+func (r *Rig) Health() Health {
+	h := r.core.Health()
 	h.Messages = make(map[string]uint64, nSubjects)
 	for i := range nSubjects {
 		h.Messages[subjectNames[i]] = r.received[i].Load()

@@ -8,37 +8,10 @@ import (
 	"testing"
 	"time"
 
-	"github.com/nats-io/nats-server/v2/server"
 	"github.com/nats-io/nats.go"
 
 	"livefield/stream/wire"
 )
-
-// startServer runs an embedded nats-server on a random loopback port for
-// the test, as nats-server's own tests do (Port: -1).
-func startServer(t testing.TB) *server.Server {
-	t.Helper()
-	srv, err := server.NewServer(&server.Options{Host: "127.0.0.1", Port: server.RANDOM_PORT, NoSigs: true, NoLog: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	go srv.Start()
-	if !srv.ReadyForConnections(10 * time.Second) {
-		t.Fatal("nats-server not ready")
-	}
-	t.Cleanup(func() { srv.Shutdown(); srv.WaitForShutdown() })
-	return srv
-}
-
-func connect(t testing.TB, srv *server.Server) *nats.Conn {
-	t.Helper()
-	nc, err := nats.Connect(srv.ClientURL())
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(nc.Close)
-	return nc
-}
 
 func quiet() *slog.Logger { return slog.New(slog.NewTextHandler(io.Discard, nil)) }
 
@@ -56,17 +29,35 @@ func startRig(t testing.TB, nc *nats.Conn, opt Options) *Rig {
 }
 
 // publisher publishes on one prefix and counts what it sent, so a test can
-// wait until the rig has handled all of it.
+// wait until the rig has handled all of it. With loop set it feeds the
+// loop directly, at the loop's clock, instead of publishing.
 type publisher struct {
 	t      testing.TB
 	nc     *nats.Conn
+	loop   *Loop
 	prefix string
 	sent   uint64
 }
 
+// asyncLoop returns a Loop whose estimator runs on a goroutine of its own,
+// as a Rig's, fed by the test goroutine instead of NATS (so that it can
+// run in a synctest bubble). The caller closes it.
+func asyncLoop(t testing.TB, opt Options) *Loop {
+	t.Helper()
+	if opt.Logger == nil {
+		opt.Logger = quiet()
+	}
+	if err := opt.fill(); err != nil {
+		t.Fatal(err)
+	}
+	return newLoop(opt, true)
+}
+
 func (p *publisher) raw(subject string, data []byte) {
 	p.t.Helper()
-	if err := p.nc.Publish(wire.Subject(p.prefix, subject), data); err != nil {
+	if p.loop != nil {
+		_ = p.loop.Feed(subject, data, p.loop.opt.Now()) // refusals are counted
+	} else if err := p.nc.Publish(wire.Subject(p.prefix, subject), data); err != nil {
 		p.t.Fatal(err)
 	}
 	p.sent++
@@ -82,36 +73,62 @@ func (p *publisher) msg(subject string, b []byte, err error) {
 
 func (p *publisher) start(block string, stim any, t float64) {
 	p.t.Helper()
-	spec, err := json.Marshal(stim)
-	if err != nil {
-		p.t.Fatal(err)
-	}
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: block, T: t, Stimulus: spec, Lags: 4, FramePeriod: 1.0 / 60})
+	b, err := encodeStart(block, stim, t)
 	p.msg(wire.SubjectBlock, b, err)
 }
 
 func (p *publisher) end(block string, t float64) {
 	p.t.Helper()
-	b, err := wire.EncodeBlock(wire.Block{Kind: wire.KindEnd, Block: block, T: t})
+	b, err := encodeEnd(block, t)
 	p.msg(wire.SubjectBlock, b, err)
+}
+
+// encodeStart is the start of a block of stimulus stim (a spec) at t, with
+// 4 lags of 1/60 s.
+func encodeStart(block string, stim any, t float64) ([]byte, error) {
+	spec, err := json.Marshal(stim)
+	if err != nil {
+		return nil, err
+	}
+	return wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: block, T: t, Stimulus: spec, Lags: 4, FramePeriod: 1.0 / 60})
+}
+
+func encodeEnd(block string, t float64) ([]byte, error) {
+	return wire.EncodeBlock(wire.Block{Kind: wire.KindEnd, Block: block, T: t})
 }
 
 // frames publishes frames from…to−1, frame i at t0 + i/60, in batches of 10.
 func (p *publisher) frames(block string, from, to int64, t0 float64) {
 	p.t.Helper()
 	for lo := from; lo < to; lo += 10 {
-		var f wire.Frames
-		f.Block = block
-		for i := lo; i < min(lo+10, to); i++ {
-			f.Index = append(f.Index, i)
-			f.T = append(f.T, frameTime(t0, i))
-		}
-		b, err := wire.EncodeFrames(f)
+		b, err := wire.EncodeFrames(frameRun(block, lo, min(lo+10, to), t0))
 		p.msg(wire.SubjectFrames, b, err)
 	}
 }
 
 func frameTime(t0 float64, i int64) float64 { return t0 + float64(i)/60 }
+
+// frameRun is block's frames from…to−1, frame i at frameTime(t0, i).
+func frameRun(block string, from, to int64, t0 float64) wire.Frames {
+	f := wire.Frames{Block: block}
+	for i := from; i < to; i++ {
+		f.Index = append(f.Index, i)
+		f.T = append(f.T, frameTime(t0, i))
+	}
+	return f
+}
+
+// framesBefore is block's frames from *next on whose onset, i·period,
+// comes before t; it moves *next past them (the reference workload's
+// batches).
+func framesBefore(block string, next *int64, period, t float64) wire.Frames {
+	f := wire.Frames{Block: block}
+	for ; float64(*next)*period < t; *next++ {
+		f.Index = append(f.Index, *next)
+		f.T = append(f.T, float64(*next)*period)
+	}
+	return f
+}
 
 func (p *publisher) spikes(units []string, t []float64) {
 	p.t.Helper()
@@ -140,7 +157,7 @@ func (p *publisher) settle(r *Rig) Health {
 		time.Sleep(2 * time.Millisecond)
 	}
 	r.Sync()
-	return r.Counters()
+	return r.Health()
 }
 
 func binary(w, h int, seed uint64) map[string]any {
@@ -152,7 +169,7 @@ func pollHealth(t testing.TB, r *Rig, what string, cond func(Health) bool) Healt
 	t.Helper()
 	deadline := time.Now().Add(20 * time.Second)
 	for {
-		h := r.Counters()
+		h := r.Health()
 		if cond(h) {
 			return h
 		}

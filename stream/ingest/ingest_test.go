@@ -7,9 +7,11 @@ import (
 	"strings"
 	"sync/atomic"
 	"testing"
+	"testing/synctest"
 	"time"
 
 	"livefield/online"
+	"livefield/stream/natstest"
 	"livefield/stream/stimulus"
 	"livefield/stream/wire"
 )
@@ -65,8 +67,8 @@ func spikesOf(s *online.Snapshot) map[string]int64 {
 }
 
 func TestBlockToBins(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.bins"})
 	p := &publisher{t: t, nc: nc, prefix: "test.bins"}
 	sent := feed(t, p, "b1", 600, [2]string{"on", "odd"})
@@ -115,8 +117,8 @@ func TestBlockToBins(t *testing.T) {
 }
 
 func TestLateSpikes(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.late", Grace: 0.25})
 	p := &publisher{t: t, nc: nc, prefix: "test.late"}
 	feed(t, p, "b1", 600, [2]string{"on", "odd"})
@@ -137,8 +139,8 @@ func TestLateSpikes(t *testing.T) {
 }
 
 func TestReset(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.reset"})
 	p := &publisher{t: t, nc: nc, prefix: "test.reset"}
 	feed(t, p, "b1", 300, [2]string{"on", "odd"})
@@ -162,7 +164,7 @@ func TestReset(t *testing.T) {
 			t.Errorf("%s reset: block %s, rejected %v; want running, none", how, h.BlockState, h.Rejected)
 		}
 	}
-	if h := r.Counters(); h.Resets != 2 {
+	if h := r.Health(); h.Resets != 2 {
 		t.Errorf("resets %d, want 2", h.Resets)
 	}
 	// The stream goes on after a reset.
@@ -176,8 +178,8 @@ func TestReset(t *testing.T) {
 }
 
 func TestTwoRigs(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r1 := startRig(t, nc, Options{Prefix: "test.rig1"})
 	r2 := startRig(t, nc, Options{Prefix: "test.rig2"})
 	p1 := &publisher{t: t, nc: nc, prefix: "test.rig1"}
@@ -203,8 +205,8 @@ func TestTwoRigs(t *testing.T) {
 // is counted under its reason and leaves bins, spikes and estimates as
 // they were.
 func TestRejections(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	const maxPayload = 64 << 10
 	r := startRig(t, nc, Options{Prefix: "test.bad", MaxUnits: 32, MaxPayload: maxPayload, StimuliDir: filepath.Join("..", "..", "testdata", "ingest")})
 	p := &publisher{t: t, nc: nc, prefix: "test.bad"}
@@ -246,7 +248,7 @@ func TestRejections(t *testing.T) {
 		{"unknown command", "control", `{"command":"jump"}`, wire.ReasonUnknownCommand},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			before := r.Counters().Rejected[tc.reason]
+			before := r.Health().Rejected[tc.reason]
 			p.raw(tc.subject, []byte(tc.data))
 			h := p.settle(r)
 			if got := h.Rejected[tc.reason] - before; got != 1 {
@@ -261,15 +263,15 @@ func TestRejections(t *testing.T) {
 			}
 		})
 	}
-	h := r.Counters()
+	h := r.Health()
 	if h.RejectedBlock != "b3" || !strings.Contains(h.BlockError, "absent.npy") {
 		t.Errorf("health names rejected block %q: %q; want b3 and the missing file", h.RejectedBlock, h.BlockError)
 	}
 }
 
 func TestMovieFrameRange(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
+	srv := natstest.Start(t, natstest.Options{})
+	nc := srv.Connect(t)
 	r := startRig(t, nc, Options{Prefix: "test.movie", StimuliDir: filepath.Join("..", "..", "testdata", "ingest")})
 	p := &publisher{t: t, nc: nc, prefix: "test.movie"}
 	// testdata/ingest/movie.npy has 30 frames (see make_movie.py and
@@ -288,30 +290,42 @@ func TestMovieFrameRange(t *testing.T) {
 	}
 }
 
-// TestUpdateClock checks that updates follow the injected clock: none
-// until UpdateEvery has passed on it, then one.
+// TestUpdateClock checks that the estimator goroutine updates on the
+// injected clock: none until UpdateEvery has passed on it, however many
+// ticks go by, then one. It runs in a synctest bubble, so the ticks are
+// the fake clock's and synctest.Wait says when the estimator has done
+// all it can: no sleeping on the machine's time.
 func TestUpdateClock(t *testing.T) {
-	srv := startServer(t)
-	nc := connect(t, srv)
-	var now atomic.Int64 // nanoseconds since an arbitrary epoch
-	clock := func() time.Time { return time.Unix(0, now.Load()) }
-	r := startRig(t, nc, Options{Prefix: "test.clock", Now: clock})
-	p := &publisher{t: t, nc: nc, prefix: "test.clock"}
-	feed(t, p, "b1", 120, [2]string{"on", "odd"})
-	if err := nc.Flush(); err != nil {
+	// The mapper's worker pool lives as long as the process and starts at
+	// its first update: start it outside the bubble, which must end with
+	// no goroutine of its own left.
+	warm, err := NewLoop(Options{Logger: quiet()})
+	if err != nil {
 		t.Fatal(err)
 	}
-	wait := func(cond func(Health) bool, what string) Health { t.Helper(); return pollHealth(t, r, what, cond) }
-	h := wait(func(h Health) bool { return h.Processed == p.sent }, "all messages")
-	// The clock has not moved since the block started: the first update
-	// (the block start's) is the only one, and it holds no bins.
-	time.Sleep(3 * tickEvery)
-	if h = r.Counters(); h.Updates != 1 || h.Bins != 0 {
-		t.Fatalf("before the clock moved: %d updates, %d bins; want 1 and 0", h.Updates, h.Bins)
-	}
-	now.Add(int64(DefaultUpdateEvery))
-	h = wait(func(h Health) bool { return h.Updates == 2 }, "the second update")
-	if h.Bins == 0 || h.LastUpdate != "1970-01-01T00:00:01Z" {
-		t.Fatalf("second update: %d bins at %q; want bins at 1970-01-01T00:00:01Z", h.Bins, h.LastUpdate)
-	}
+	feed(t, &publisher{t: t, loop: warm}, "warm", 120, [2]string{"on", "odd"})
+	warm.Finish(time.Now())
+	warm.Close()
+
+	synctest.Test(t, func(t *testing.T) {
+		var now atomic.Int64 // nanoseconds since an arbitrary epoch
+		clock := func() time.Time { return time.Unix(0, now.Load()) }
+		l := asyncLoop(t, Options{Prefix: "test.clock", Now: clock})
+		defer l.Close()
+		p := &publisher{t: t, loop: l}
+		feed(t, p, "b1", 120, [2]string{"on", "odd"})
+		// The clock has not moved since the block started: the first
+		// update (the block start's) is the only one, and it holds no bins.
+		time.Sleep(3 * tickEvery)
+		synctest.Wait()
+		if h := l.Health(); h.Processed != p.sent || h.Updates != 1 || h.Bins != 0 {
+			t.Fatalf("before the clock moved: %d of %d messages, %d updates, %d bins; want all, 1 and 0", h.Processed, p.sent, h.Updates, h.Bins)
+		}
+		now.Add(int64(DefaultUpdateEvery))
+		time.Sleep(tickEvery)
+		synctest.Wait()
+		if h := l.Health(); h.Updates != 2 || h.Bins == 0 || h.LastUpdate != "1970-01-01T00:00:01Z" {
+			t.Fatalf("second update: %d updates, %d bins at %q; want 2, bins at 1970-01-01T00:00:01Z", h.Updates, h.Bins, h.LastUpdate)
+		}
+	})
 }

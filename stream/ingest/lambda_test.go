@@ -75,7 +75,7 @@ func TestEvidenceLambdaCarriesOver(t *testing.T) {
 		t.Fatal(err)
 	}
 	l.WaitEvidence()
-	h := l.Counters()
+	h := l.Health()
 	lambda := float64(h.EvidenceLambda)
 	if !(lambda > 0) || math.IsInf(lambda, 0) || h.EvidenceBlock != "B1" || h.EvidenceError != "" {
 		t.Fatalf("evidence after B1: λ %v from %q, error %q", lambda, h.EvidenceBlock, h.EvidenceError)

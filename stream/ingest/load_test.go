@@ -12,6 +12,7 @@ import (
 	"testing"
 	"time"
 
+	"livefield/stream/natstest"
 	"livefield/stream/wire"
 )
 
@@ -41,10 +42,10 @@ func TestLoad(t *testing.T) {
 			t.Fatalf("LIVEFIELD_LOAD_SPEED=%q", s)
 		}
 	}
-	js := startJS(t)
+	js := natstest.Start(t, natstest.Options{JetStream: true})
 	const prefix = "load.ref"
-	r := startRig(t, js.dial(t), Options{Prefix: prefix, Durable: true})
-	pub := js.dial(t)
+	r := startRig(t, js.Connect(t), Options{Prefix: prefix, Durable: true})
+	pub := js.Connect(t)
 
 	start, _ := wire.EncodeBlock(wire.Block{Kind: wire.KindStart, Block: "load", T: 0, Lags: refLags, FramePeriod: refPeriod,
 		Stimulus: json.RawMessage(fmt.Sprintf(`{"type":"binary","width":%d,"height":%d,"seed":3}`, refSide, refSide))})
@@ -90,7 +91,7 @@ func TestLoad(t *testing.T) {
 				liveLate = liveHeap() // in the last minute, the block still running
 			}
 			runtime.ReadMemStats(&ms)
-			h := r.Counters()
+			h := r.Health()
 			mu.Lock()
 			samples = append(samples, sample{wall: time.Since(t0w).Seconds(), pubT: pubT, binT: float64(h.BinTime), heap: ms.HeapInuse,
 				queue: h.Queue, backlog: h.Backlog, update: h.UpdateSeconds})
@@ -106,13 +107,7 @@ func TestLoad(t *testing.T) {
 	for now := 0.0; now < seconds; {
 		now = min(time.Since(t0w).Seconds()*speed, seconds)
 		for nextFrames <= now {
-			var f wire.Frames
-			f.Block = "load"
-			for ; float64(frame)*refPeriod < nextFrames; frame++ {
-				f.Index = append(f.Index, frame)
-				f.T = append(f.T, float64(frame)*refPeriod)
-			}
-			data, _ := wire.EncodeFrames(f)
+			data, _ := wire.EncodeFrames(framesBefore("load", &frame, refPeriod, nextFrames))
 			if err := pub.Publish(prefix+".frames", data); err != nil {
 				t.Fatal(err)
 			}
@@ -142,7 +137,7 @@ func TestLoad(t *testing.T) {
 		t.Fatal(err)
 	}
 	deadline := time.Now().Add(time.Duration(seconds/speed*float64(time.Second)) + time.Minute)
-	for h := r.Counters(); h.BlockState != "ended"; h = r.Counters() {
+	for h := r.Health(); h.BlockState != "ended"; h = r.Health() {
 		if time.Now().After(deadline) {
 			t.Fatalf("block not ended a minute after the publisher finished: %+v", h)
 		}
@@ -151,7 +146,7 @@ func TestLoad(t *testing.T) {
 	doneWall := time.Since(t0w).Seconds()
 	close(stop)
 	wg.Wait()
-	h := r.Counters()
+	h := r.Health()
 
 	minute := func(from, to float64) (heapMed uint64, queueMax int, backlogMax uint64, trailMax, updMax float64) {
 		var heaps []uint64

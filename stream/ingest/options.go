@@ -8,11 +8,11 @@ import (
 	"time"
 
 	"livefield/online"
+	"livefield/stream/binning"
 )
 
 // Defaults of Options.
 const (
-	DefaultGrace       = 0.25    // seconds a bin stays open for late spikes
 	DefaultMaxUnits    = 4096    // distinct unit ids per block
 	DefaultMaxPayload  = 1 << 20 // bytes of one message
 	DefaultUpdateEvery = time.Second
@@ -46,7 +46,8 @@ type Options struct {
 	Prefix string
 	// StimuliDir is where movie files named by a stimulus spec are looked up.
 	StimuliDir string
-	// Grace is the seconds a bin stays open for late spikes (DefaultGrace).
+	// Grace is the seconds a bin stays open for late spikes
+	// (binning.DefaultGrace).
 	Grace float64
 	// Lambda is the ridge penalty of every block's estimates; 0 keeps the
 	// estimator's default (online.DefaultLambda times the pixel variance).
@@ -97,7 +98,9 @@ type Options struct {
 	// OnUpdate, when set, is called on the estimator's goroutine (the
 	// feeding goroutine of a NewLoop) with the block
 	// id, every snapshot published and the clock it was made at. It must
-	// not call back into the ingest.
+	// not call back into the ingest, and should not block: it holds up the
+	// estimator (display.Updates.Notify, which pushes the snapshot to the
+	// page, never does).
 	OnUpdate func(block string, s *online.Snapshot, at time.Time)
 	// OnBlockEnd, when set, is called likewise with each block's final
 	// snapshot.
@@ -106,7 +109,7 @@ type Options struct {
 
 func (o *Options) fill() error {
 	if o.Grace == 0 {
-		o.Grace = DefaultGrace
+		o.Grace = binning.DefaultGrace
 	}
 	if !(o.Grace > 0) || math.IsInf(o.Grace, 0) {
 		return fmt.Errorf("ingest: Options.Grace %v is not a positive number of seconds", o.Grace)

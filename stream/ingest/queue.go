@@ -90,10 +90,3 @@ func (q *eventQueue) take(events []event, counts []online.Count) ([]event, []onl
 	q.events, q.counts = events[:0], counts[:0]
 	return ev, c
 }
-
-// len is the number of events waiting.
-func (q *eventQueue) len() int {
-	q.mu.Lock()
-	defer q.mu.Unlock()
-	return len(q.events)
-}

@@ -32,7 +32,7 @@ func TestCriterionOfOneThenBlock(t *testing.T) {
 	if err := l.Feed("block", []byte(`{"kind":"start","block":"b1","t":0,"lags":2,"stimulus":{"type":"binary","width":4,"height":4,"seed":1}}`), at); err != nil {
 		t.Fatalf("block start after a refused criterion: %v", err)
 	}
-	h := l.Counters()
+	h := l.Health()
 	if h.BlockState != "running" || h.Rejected[ReasonBadConfig] != 0 {
 		t.Fatalf("block %q %s, rejected %v; want b1 running", h.Block, h.BlockState, h.Rejected)
 	}
@@ -79,7 +79,7 @@ func TestNonFiniteMoviePixel(t *testing.T) {
 	}
 	feed("block", `{"kind":"end","block":"m","t":2}`)
 	l.Finish(at)
-	c := l.Counters()
+	c := l.Health()
 	if c.Rejected[ReasonBadBin] != 1 {
 		t.Fatalf("rejected %v, want one %s", c.Rejected, ReasonBadBin)
 	}

@@ -3,13 +3,17 @@
 // port (and the same JetStream store), so that clients reconnect to it as
 // they would to a real server coming back.
 //
-// A Server belongs to one test; it is shut down and its store removed when
-// the test ends. Its methods may be called from any goroutine.
+// A Server made by Start belongs to one test; it is shut down and its store
+// removed when the test ends. New makes one for an Example, which has no
+// test: its owner calls Close. Its methods may be called from any
+// goroutine.
 package natstest
 
 import (
+	"errors"
 	"fmt"
 	"net"
+	"os"
 	"sync"
 	"testing"
 	"time"
@@ -29,9 +33,10 @@ type Options struct {
 
 // Server is an embedded NATS server for one test.
 type Server struct {
-	t     testing.TB
+	t     testing.TB // nil for a Server made by New
 	opt   Options
 	store string
+	temp  bool // store is a directory of New's, removed by Close
 
 	mu   sync.Mutex
 	port int // server.RANDOM_PORT until the first start
@@ -45,13 +50,40 @@ func Start(t testing.TB, opt Options) *Server {
 	if opt.JetStream {
 		s.store = t.TempDir()
 	}
-	s.start()
+	if err := s.start(); err != nil {
+		t.Fatal(err)
+	}
 	t.Cleanup(s.Stop)
 	return s
 }
 
-func (s *Server) start() {
-	s.t.Helper()
+// New starts a server outside a test (for an Example); Close stops it and
+// removes its store.
+func New(opt Options) (*Server, error) {
+	s := &Server{opt: opt, port: server.RANDOM_PORT}
+	if opt.JetStream {
+		dir, err := os.MkdirTemp("", "natstest-")
+		if err != nil {
+			return nil, fmt.Errorf("natstest: %w", err)
+		}
+		s.store, s.temp = dir, true
+	}
+	if err := s.start(); err != nil {
+		s.Close()
+		return nil, err
+	}
+	return s, nil
+}
+
+// Close stops the server and removes the store of a Server made by New.
+func (s *Server) Close() {
+	s.Stop()
+	if s.temp {
+		_ = os.RemoveAll(s.store)
+	}
+}
+
+func (s *Server) start() error {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	srv, err := server.NewServer(&server.Options{
@@ -59,20 +91,24 @@ func (s *Server) start() {
 		JetStream: s.opt.JetStream, StoreDir: s.store,
 	})
 	if err != nil {
-		s.t.Fatalf("natstest: %v", err)
+		return fmt.Errorf("natstest: %w", err)
 	}
 	go srv.Start()
 	if !srv.ReadyForConnections(readyTimeout) {
 		srv.Shutdown()
-		s.t.Fatalf("natstest: server not ready after %v", readyTimeout)
+		return fmt.Errorf("natstest: server not ready after %v", readyTimeout)
 	}
-	s.srv = srv
+	if s.opt.JetStream && !srv.JetStreamEnabled() {
+		srv.Shutdown()
+		return errors.New("natstest: server started without JetStream")
+	}
 	addr, ok := srv.Addr().(*net.TCPAddr)
 	if !ok {
 		srv.Shutdown()
-		s.t.Fatalf("natstest: server listens on %v, not TCP", srv.Addr())
+		return fmt.Errorf("natstest: server listens on %v, not TCP", srv.Addr())
 	}
-	s.port = addr.Port
+	s.srv, s.port = srv, addr.Port
+	return nil
 }
 
 // URL is the server's client URL; it stays the same across restarts.
@@ -116,10 +152,18 @@ func (s *Server) Stop() {
 	}
 }
 
-// Restart stops the server and starts a new one on the same port and
-// JetStream store.
+// Restart stops the server (unless Stop already did) and starts a new one
+// on the same port and JetStream store. A failure ends the test (panics
+// for a Server made by New).
 func (s *Server) Restart() {
-	s.t.Helper()
+	if s.t != nil {
+		s.t.Helper()
+	}
 	s.Stop()
-	s.start()
+	if err := s.start(); err != nil {
+		if s.t == nil {
+			panic(err)
+		}
+		s.t.Fatal(err)
+	}
 }

@@ -2,6 +2,7 @@ package natstest_test
 
 import (
 	"context"
+	"os"
 	"testing"
 	"time"
 
@@ -52,5 +53,28 @@ func TestRestart(t *testing.T) {
 	}
 	if info.State.Msgs != 2 {
 		t.Errorf("the stream holds %d messages after the restart, want 2", info.State.Msgs)
+	}
+}
+
+// TestNew: a server made outside a test serves clients until Close, which
+// removes its JetStream store.
+func TestNew(t *testing.T) {
+	s, err := natstest.New(natstest.Options{JetStream: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	nc, err := nats.Connect(s.URL())
+	if err != nil {
+		s.Close()
+		t.Fatal(err)
+	}
+	defer nc.Close()
+	store := s.NATS().JetStreamConfig().StoreDir
+	s.Close()
+	if s.NATS() != nil {
+		t.Fatal("server still running after Close")
+	}
+	if _, err := os.Stat(store); !os.IsNotExist(err) {
+		t.Fatalf("store %s not removed: %v", store, err)
 	}
 }
