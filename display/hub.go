@@ -61,7 +61,7 @@ type Hub struct {
 	wake       chan struct{} // capacity 1: a new snapshot is waiting in next
 	next       atomic.Pointer[online.Snapshot]
 	inView     atomic.Pointer[[]string] // units whose details some browser shows
-	done       chan struct{} // closed when Run returns
+	done       chan struct{}            // closed when Run returns
 
 	mu    sync.Mutex // guards stats
 	stats HubStats
