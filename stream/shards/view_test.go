@@ -68,16 +68,16 @@ func TestViewMergesShards(t *testing.T) {
 		// median peak lag of the mapper's population, which differs between
 		// a shard and the whole rig; from significance on it is the unit's own.
 		significant := r.Status == online.Emerging || r.Status == online.Reliable
-		if u.Spikes != r.Spikes || u.Status != r.Status || (significant && !close(float64(u.Reliability), float64(r.Reliability), 1e-9)) ||
-			!close(float64(u.Significance), float64(r.Significance), 1e-9) {
+		if u.Spikes != r.Spikes || u.Status != r.Status || (significant && !near(float64(u.Reliability), float64(r.Reliability), 1e-9)) ||
+			!near(float64(u.Significance), float64(r.Significance), 1e-9) {
 			t.Errorf("unit %s: merged %d spikes %s R=%v, unsharded %d %s R=%v", u.ID, u.Spikes, u.Status, u.Reliability, r.Spikes, r.Status, r.Reliability)
 		}
 	}
 	// The block summary over all units equals the unsharded worker's.
 	got, want := m.Summary, ref.Summary
 	if got.Units != want.Units || got.Significant != want.Significant || got.Reliable != want.Reliable || got.Ready != want.Ready ||
-		!close(float64(got.ETA), float64(want.ETA), 1e-9) || !close(float64(got.Aperture), float64(want.Aperture), 1e-9) ||
-		!close(float64(got.ApertureDeg), float64(want.ApertureDeg), 1e-9) || !close(float64(got.CentreX), float64(want.CentreX), 1e-9) {
+		!near(float64(got.ETA), float64(want.ETA), 1e-9) || !near(float64(got.Aperture), float64(want.Aperture), 1e-9) ||
+		!near(float64(got.ApertureDeg), float64(want.ApertureDeg), 1e-9) || !near(float64(got.CentreX), float64(want.CentreX), 1e-9) {
 		t.Errorf("merged summary %+v\nunsharded %+v", got, want)
 	}
 	if m.Block != ref.Block || m.Bins != ref.Bins {
@@ -94,7 +94,7 @@ func TestViewMergesShards(t *testing.T) {
 		t.Fatalf("detail of %s: %v", id, ok)
 	}
 	for i := range d.Ridge {
-		if !close(float64(d.Ridge[i]), float64(rd.Ridge[i]), 1e-9) {
+		if !near(float64(d.Ridge[i]), float64(rd.Ridge[i]), 1e-9) {
 			t.Fatalf("ridge[%d] of %s: merged %v, unsharded %v", i, id, d.Ridge[i], rd.Ridge[i])
 		}
 	}
@@ -220,7 +220,7 @@ func TestLargeRepliesInParts(t *testing.T) {
 	}
 }
 
-func close(a, b, rel float64) bool {
+func near(a, b, rel float64) bool {
 	if math.IsNaN(a) || math.IsNaN(b) {
 		return math.IsNaN(a) && math.IsNaN(b)
 	}
