@@ -95,7 +95,7 @@ func TestMergedPageInBrowser(t *testing.T) {
 	s0, s1 := settle(t, w0.rig, uint64(len(recs))), settle(t, w1.rig, uint64(len(recs)))
 	total := len(s0.Units) + len(s1.Units)
 
-	front := NewFront(srv.Connect(t), FrontOptions{View: ViewOptions{Poll: 250 * time.Millisecond, DiscoverWait: 100 * time.Millisecond}})
+	front := NewFront(srv.Connect(t), FrontOptions{View: ViewOptions{Poll: 250 * time.Millisecond, DiscoverWait: 100 * time.Millisecond, Timeout: 10 * time.Second}})
 	fctx, cancel := context.WithCancel(context.Background())
 	done := make(chan struct{})
 	go func() { front.Run(fctx); close(done) }()

@@ -194,7 +194,7 @@ func TestCluster(t *testing.T) {
 		t.Fatalf("the workers changed the stream to %d replicas", r)
 	}
 
-	v := NewView(connectTo(t, nodes[1], nodes[2]), prefix, ViewOptions{Poll: 200 * time.Millisecond})
+	v := NewView(connectTo(t, nodes[1], nodes[2]), prefix, ViewOptions{Poll: 200 * time.Millisecond, Timeout: 10 * time.Second})
 	ctx, cancel := context.WithCancel(context.Background())
 	defer cancel()
 	go v.Run(ctx)
@@ -270,7 +270,16 @@ func TestCluster(t *testing.T) {
 	// A single worker fed the same messages directly.
 	ref := single(t, prefix, recs)
 	v.Refresh(ctx)
-	v.Fetch(ctx, nil, true)
+	eventually(t, 60*time.Second, "the merged view has every unit's estimate", func() bool {
+		v.Fetch(ctx, nil, true)
+		s := v.Snapshot()
+		for _, u := range ref.Units {
+			if _, ok := s.Detail(u.ID); !ok {
+				return false
+			}
+		}
+		return true
+	})
 	m := v.Snapshot()
 	if seenMissing == 0 {
 		t.Error("the merged view never showed shard 1/2 missing while its worker was down")

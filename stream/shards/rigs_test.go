@@ -105,7 +105,7 @@ func TestTwoRigsOneCluster(t *testing.T) {
 
 	t.Logf("checked after %v", time.Since(t0).Round(time.Millisecond))
 	// The front lists both rigs and serves each rig's own page.
-	front := NewFront(connectTo(t, nodes[1], nodes[2]), FrontOptions{View: ViewOptions{Poll: 200 * time.Millisecond}})
+	front := NewFront(connectTo(t, nodes[1], nodes[2]), FrontOptions{View: ViewOptions{Poll: 200 * time.Millisecond, Timeout: 10 * time.Second}})
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan struct{})
 	go func() { front.Run(ctx); close(done) }()

@@ -21,7 +21,7 @@ import (
 // Defaults of ViewOptions.
 const (
 	DefaultPoll         = time.Second
-	DefaultTimeout      = time.Second
+	DefaultTimeout      = 2 * time.Second
 	DefaultDiscoverWait = 200 * time.Millisecond
 	// detailKeep is how long a unit's detail stays fetched after it was
 	// last wanted.

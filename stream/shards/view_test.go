@@ -36,7 +36,7 @@ func TestViewMergesShards(t *testing.T) {
 	n := uint64(len(recs))
 	s0, s1, ref := settle(t, w0.rig, n), settle(t, w1.rig, n), settle(t, whole, n)
 
-	v := NewView(srv.Connect(t), "livefield."+rig, ViewOptions{})
+	v := NewView(srv.Connect(t), "livefield."+rig, ViewOptions{Timeout: 10 * time.Second})
 	ctx := context.Background()
 	v.Refresh(ctx)
 	m := v.Snapshot()
@@ -199,7 +199,7 @@ func TestLargeRepliesInParts(t *testing.T) {
 	defer svc.Stop()
 	want, _ := json.Marshal(snap)
 	subj := ShardSubject("livefield.big", ingest.Shard{})
-	got, ref, _, err := fetch(context.Background(), nc, subj+".snapshot", partRequest{}, time.Second)
+	got, ref, _, err := fetch(context.Background(), nc, subj+".snapshot", partRequest{}, 20*time.Second)
 	if err != nil || string(got) != string(want) {
 		t.Fatalf("snapshot of %d bytes: got %d bytes, %v", len(want), len(got), err)
 	}
@@ -207,15 +207,15 @@ func TestLargeRepliesInParts(t *testing.T) {
 		t.Fatalf("the test snapshot is only %d bytes", len(want))
 	}
 	// Unchanged: no body.
-	if _, _, unchanged, err := fetch(context.Background(), nc, subj+".snapshot", partRequest{Known: ref}, time.Second); err != nil || !unchanged {
+	if _, _, unchanged, err := fetch(context.Background(), nc, subj+".snapshot", partRequest{Known: ref}, 20*time.Second); err != nil || !unchanged {
 		t.Errorf("asking with the latest ref: unchanged %v, %v", unchanged, err)
 	}
 	wantD, _ := json.Marshal(details[3])
-	gotD, _, _, err := fetch(context.Background(), nc, subj+".unit", partRequest{ID: details[3].ID}, time.Second)
+	gotD, _, _, err := fetch(context.Background(), nc, subj+".unit", partRequest{ID: details[3].ID}, 20*time.Second)
 	if err != nil || string(gotD) != string(wantD) {
 		t.Fatalf("detail of %d bytes: got %d, %v", len(wantD), len(gotD), err)
 	}
-	if _, _, _, err := fetch(context.Background(), nc, subj+".unit", partRequest{ID: "nobody"}, time.Second); err == nil || !strings.Contains(err.Error(), "404") {
+	if _, _, _, err := fetch(context.Background(), nc, subj+".unit", partRequest{ID: "nobody"}, 20*time.Second); err == nil || !strings.Contains(err.Error(), "404") {
 		t.Errorf("unknown unit: %v", err)
 	}
 }
