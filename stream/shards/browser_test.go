@@ -152,4 +152,22 @@ func TestMergedPageInBrowser(t *testing.T) {
 	if !strings.Contains(text, "READY waits for every shard") {
 		t.Errorf("rig strip %q", text)
 	}
+
+	// A second rig announces itself: / becomes the rig selector, and its
+	// link opens that rig's own page.
+	other, err := Announce(srv.Connect(t), fakeWorker{s0}, Info{Rig: "web2", Prefix: "livefield.web2", Shard: ingest.Shard{}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer other.Stop()
+	eventually(t, 10*time.Second, "the front finds the second rig", func() bool { return len(front.Rigs()) == 2 })
+	if err := chromedp.Do(ctx, chromedp.Navigate(ts.URL+"/")); err != nil {
+		t.Fatal(err)
+	}
+	waitJS(t, ctx, "the rig selector lists both rigs", `document.querySelectorAll('#rigs tr.rig').length === 2`)
+	screenshot(t, ctx, "rig-selector.png")
+	if err := chromedp.Do(ctx, chromedp.Click(chromedp.CSS(`#rigs a[href^="rigs/web2/"]`))); err != nil {
+		t.Fatal(err)
+	}
+	waitJS(t, ctx, "rig web2's page with its own units", fmt.Sprintf(`location.pathname === '/rigs/web2/' && document.querySelectorAll('#tiles .tile').length === %d`, len(s0.Units)))
 }
