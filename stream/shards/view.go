@@ -273,9 +273,10 @@ func (v *View) fetchDetails(ctx context.Context, ids []string, all bool) {
 			if s.snap != nil {
 				for _, u := range s.snap.Units {
 					if v.details[u.ID] == nil {
-						v.details[u.ID] = &detailEntry{}
+						// Wanted for this export only: kept (and refreshed)
+						// for two rounds rather than detailKeep.
+						v.details[u.ID] = &detailEntry{wantedAt: now.Add(2*v.opt.Poll - detailKeep)}
 					}
-					v.details[u.ID].wantedAt = now
 				}
 			}
 		}
