@@ -60,7 +60,8 @@ type Hub struct {
 	views      chan *client
 	wake       chan struct{} // capacity 1: a new snapshot is waiting in next
 	next       atomic.Pointer[online.Snapshot]
-	done       chan struct{} // closed when Run returns
+	inView     atomic.Pointer[[]string] // units whose details some browser shows
+	done       chan struct{}            // closed when Run returns
 
 	mu    sync.Mutex // guards stats
 	stats HubStats
@@ -102,6 +103,33 @@ func (h *Hub) Publish(s *online.Snapshot) {
 	case h.wake <- struct{}{}:
 	default:
 	}
+}
+
+// InView returns the ids of the units that the connected browsers have in
+// view (whose full estimates they receive), without repeats. A source that
+// gathers details from elsewhere (the merged view of a rig's shards) fetches
+// those. Safe from any goroutine.
+func (h *Hub) InView() []string {
+	if p := h.inView.Load(); p != nil {
+		return *p
+	}
+	return nil
+}
+
+// noteViews records the union of the clients' views for InView.
+func (h *Hub) noteViews(clients map[*client]bool) {
+	seen := map[string]bool{}
+	ids := []string{}
+	for c := range clients {
+		view, _ := c.wants()
+		for _, id := range view {
+			if !seen[id] {
+				seen[id] = true
+				ids = append(ids, id)
+			}
+		}
+	}
+	h.inView.Store(&ids)
 }
 
 // Stats returns the counters.
@@ -160,15 +188,18 @@ func (h *Hub) Run(ctx context.Context) {
 		case c := <-h.register:
 			clients[c] = true
 			h.count(func(s *HubStats) { s.Clients = len(clients) })
+			h.noteViews(clients)
 			send(c)
 		case c := <-h.unregister:
 			if clients[c] {
 				delete(clients, c)
 				c.stop()
 				h.count(func(s *HubStats) { s.Clients = len(clients) })
+				h.noteViews(clients)
 			}
 		case c := <-h.views:
 			if clients[c] {
+				h.noteViews(clients)
 				send(c)
 			}
 		case <-h.wake:

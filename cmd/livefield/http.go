@@ -102,3 +102,20 @@ func serveHTTP(ctx context.Context, ln net.Listener, src display.Source[ingest.H
 	<-errc
 	return err
 }
+
+// serveHandler serves h on ln until ctx is done, then shuts down gracefully.
+func serveHandler(ctx context.Context, ln net.Listener, h http.Handler) error {
+	srv := display.NewHTTPServer("", h)
+	errc := make(chan error, 1)
+	go func() { errc <- srv.Serve(ln) }()
+	select {
+	case err := <-errc:
+		return fmt.Errorf("http: %w", err)
+	case <-ctx.Done():
+	}
+	sctx, stop := context.WithTimeout(context.Background(), shutdownTimeout)
+	defer stop()
+	err := srv.Shutdown(sctx)
+	<-errc
+	return err
+}

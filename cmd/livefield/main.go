@@ -70,7 +70,7 @@ var commands = []command{
 	{
 		name:    "serve",
 		summary: "map the live stream of one rig and serve the estimates over HTTP",
-		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] " + natsAuthUsage + " [--grace D] [--max-units N] [--lambda L|evidence] [--api-token T] [--shard i/n] [--no-jetstream]",
+		usage:   "--nats URL --rig NAME [--http ADDR] [--stimuli DIR] " + natsAuthUsage + " [--grace D] [--max-units N] [--lambda L|evidence] [--api-token T] [--shard i/n] [--replicas N] [--no-announce] [--no-jetstream]",
 		example: "livefield serve --nats nats://127.0.0.1:4222 --rig rig1 --stimuli ./stimuli --http 127.0.0.1:8080",
 		run:     runServe,
 	},
@@ -80,6 +80,13 @@ var commands = []command{
 		usage:   "--nats URL --rig NAME [--speed X] [--duration D] [--seed S] [--units N] [--block ID] [--rate HZ] [--gain G] " + natsAuthUsage,
 		example: "livefield simulate --nats nats://127.0.0.1:4222 --rig rig1 --speed 1 --duration 2m --seed 7",
 		run:     runSimulate,
+	},
+	{
+		name:    "view",
+		summary: "serve one page per rig from all the shard workers that announce themselves on NATS, with a rig selector",
+		usage:   "--nats URL [--rig NAME] [--http ADDR] [--api-token T] " + natsAuthUsage,
+		example: "livefield view --nats nats://127.0.0.1:4222 --http 127.0.0.1:8090",
+		run:     runView,
 	},
 }
 

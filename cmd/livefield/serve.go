@@ -13,6 +13,7 @@ import (
 	"livefield/display"
 	"livefield/stream/binning"
 	"livefield/stream/ingest"
+	"livefield/stream/shards"
 )
 
 func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stderr io.Writer) error {
@@ -26,6 +27,8 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 	maxUnits := fs.Int("max-units", ingest.DefaultMaxUnits, "cap on distinct unit ids per block")
 	apiToken := fs.String("api-token", "", "when set, required by the HTTP commands (POST /api/…) and exports, header "+display.TokenHeader)
 	shardFlag := fs.String("shard", "0/1", "map only the units of shard i of n (FNV-1a-32 of the unit id mod n); every worker reads all frames")
+	replicas := fs.Int("replicas", 0, "JetStream replicas of the rig's stream when this worker creates it (3 on a three-server cluster); 0 keeps an existing stream's, 1 for a new one")
+	noAnnounce := fs.Bool("no-announce", false, "do not announce this worker on NATS (the service \"livefield\" that `livefield view` merges)")
 	noJS := fs.Bool("no-jetstream", false, "read core NATS even when the server has JetStream (messages sent during a disconnect are then lost)")
 	if err := parse(fs, args); err != nil {
 		return err
@@ -41,6 +44,9 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 	}
 	if *grace <= 0 {
 		return fmt.Errorf("--grace %v: must be positive", *grace)
+	}
+	if *replicas < 0 || *replicas > 5 {
+		return fmt.Errorf("--replicas %d: JetStream allows 1 to 5 (0 keeps the stream's)", *replicas)
 	}
 	if *maxUnits <= 0 {
 		return fmt.Errorf("--max-units %d: must be positive", *maxUnits)
@@ -81,6 +87,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 		Shard:      shard,
 		Durable:    durable,
 		OnUpdate:   updates.Notify,
+		Replicas:   *replicas,
 	})
 	if err != nil {
 		return err
@@ -94,6 +101,14 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 			why = "--no-jetstream"
 		}
 		log.Warn("livefield: not durable ("+why+"): "+ingest.CoreWarning, "prefix", prefix)
+	}
+	if !*noAnnounce {
+		svc, err := shards.Announce(nc, r, shards.Info{Rig: *rig, Prefix: prefix, Shard: shard, HTTP: ln.Addr().String()})
+		if err != nil {
+			return err
+		}
+		defer func() { _ = svc.Stop() }()
+		fmt.Fprintf(stdout, "livefield: announced as service %q instance %s (rig %s, shard %s)\n", shards.ServiceName, svc.ID(), *rig, shard)
 	}
 	fmt.Fprintf(stdout, "livefield: mapping %s.* (shard %s) from %s\nlivefield: open http://%s/\n", prefix, shard, redact(nf.url), ln.Addr())
 	return serveHTTP(ctx, ln, r, updates, *apiToken, stdout)

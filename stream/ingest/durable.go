@@ -151,7 +151,12 @@ func (r *Rig) startDurable() error {
 	}
 	ctx, cancel := context.WithTimeout(r.ctx, apiTimeout)
 	defer cancel()
-	st, err := js.CreateOrUpdateStream(ctx, StreamConfig(r.opt.Stream, r.opt.Prefix))
+	cfg := StreamConfig(r.opt.Stream, r.opt.Prefix)
+	cfg.Replicas = max(r.opt.Replicas, 1)
+	if old, err := js.Stream(ctx, r.opt.Stream); err == nil && r.opt.Replicas == 0 {
+		cfg.Replicas = old.CachedInfo().Config.Replicas // never scale a replicated stream down by default
+	}
+	st, err := js.CreateOrUpdateStream(ctx, cfg)
 	if noJetStream(err) {
 		return errors.New("ingest: the NATS server has no JetStream; run on core NATS instead (messages sent during a disconnect are then lost)")
 	}

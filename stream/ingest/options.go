@@ -90,6 +90,10 @@ type Options struct {
 	// Stream and Consumer name the JetStream stream and durable consumer
 	// (StreamName(Prefix) and ConsumerName(Prefix, Shard) when empty).
 	Stream, Consumer string
+	// Replicas is the stream's replica count when Start creates or updates
+	// it (three on a three-server cluster); 0 keeps the count of an existing
+	// stream, and 1 for a new one.
+	Replicas int
 
 	// PendingMsgs and PendingBytes are the core-NATS subscription's
 	// pending limits (DefaultPendingMsgs, DefaultPendingBytes).
