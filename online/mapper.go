@@ -165,6 +165,7 @@ type Mapper struct {
 	trends  []*Trend
 	fits    []shapeFit
 	snap    *Snapshot
+	cal     *calibration // calibrated statistics (calibration.go)
 }
 
 // trendPoints is how many recent updates the reliability trend fits.
@@ -202,6 +203,7 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	m.stcResults = map[int]*STCResult{}
 	m.popPeak = m.defaultPeak()
 	m.snap = m.emptySnapshot()
+	m.cal = newCalibration(&cfg, m.pixels)
 	return m, nil
 }
 
@@ -225,6 +227,7 @@ func (m *Mapper) Unit(id string) int {
 	m.trends = append(m.trends, NewTrend(trendPoints))
 	m.fits = append(m.fits, shapeFit{})
 	m.sta.Grow(len(m.ids))
+	m.cal.addUnit(m.used)
 	return i
 }
 
@@ -263,15 +266,18 @@ var ErrBin = errors.New("online: bin refused")
 // steady state.
 func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	if len(frame) != m.pixels {
+		m.RestartLags()
 		return fmt.Errorf("%w: frame of %d pixels, want %d", ErrBin, len(frame), m.pixels)
 	}
 	for i, v := range frame {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
+			m.RestartLags()
 			return fmt.Errorf("%w: frame pixel %d is %v", ErrBin, i, v)
 		}
 	}
 	for _, c := range counts {
 		if c.Unit < 0 || c.Unit >= len(m.ids) || !(c.N >= 0) || math.IsInf(c.N, 0) {
+			m.RestartLags()
 			return fmt.Errorf("%w: count %v for unit index %d of %d", ErrBin, c.N, c.Unit, len(m.ids))
 		}
 	}
@@ -281,6 +287,7 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	m.head = (m.head + 1) % len(m.ring)
 	copy(m.ring[m.head], frame)
 	_ = m.gram.AddFrame(frame) // cannot fail: the frame was checked above
+	m.cal.addFrame(frame)
 	m.added++
 	if m.added < int64(m.cfg.Lags) {
 		return nil // not yet a full history: the bin is not used
@@ -297,6 +304,7 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	}
 	m.growColumns()
 	m.sta.AddBin(m.x, halfA, counts)
+	m.cal.addCounts(m.used-1, counts)
 	halves := !m.cfg.White
 	if halfA && halves {
 		m.yrow[0] = 1
@@ -341,6 +349,7 @@ func (m *Mapper) Reset() {
 	m.ridge.Reset()
 	m.sta.Reset()
 	m.gram.Reset()
+	m.cal.reset()
 	m.stc = map[int]*STC{}
 	m.stcResults = map[int]*STCResult{}
 	m.stcLags = nil

@@ -12,6 +12,7 @@ type shared struct {
 	wh     []float64 // ridge weights of the half indicator
 	pdiag  []float64 // diagonal of the weights block of P
 	t1, t2 float64   // hat-matrix traces
+	lag    *lagShared // stimulus lag correlation, for the correlated-stimulus test
 }
 
 // scratch is one worker's buffers for per-unit statistics.
@@ -45,6 +46,7 @@ func (m *Mapper) Update() *Snapshot {
 		}
 		m.ridge.PosteriorDiagTo(sh.pdiag)
 		sh.t1, sh.t2 = m.ridge.HatTraces()
+		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda)
 	}
 	m.sta.CacheMeans()
 	n := len(m.ids)
@@ -114,7 +116,7 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	m.sta.CrossTo(s.cross, u)
 
 	// Noise variance and per-coefficient z from the ridge posterior σ²P.
-	dof := float64(m.used) - 1 - sh.t1
+	dof := ResidualDOF(m.used, sh.t1, sh.t2)
 	sigma2, rss := math.NaN(), math.NaN()
 	if dof > 0 {
 		rss = math.Max(m.ridge.Objective(m.colY(u))-cfg.Lambda*dot(s.w, s.w), 0)
@@ -133,7 +135,8 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	if cfg.White {
 		sig, err = s.white.Unit(nil, m.sta, u, cfg.PixelVariance)
 	} else {
-		sig, err = PosteriorTest(s.w, s.cross, rss, m.used, sh.t1, sh.t2)
+		corr := m.cal.correction(sh.lag, cfg.Lags, u, m.used, m.spikes[u])
+		sig, err = PosteriorTestCorrected(s.w, s.cross, rss, m.used, sh.t1, sh.t2, corr)
 	}
 	p := 1.0
 	if err == nil {

@@ -1,0 +1,102 @@
+package online
+
+import "math"
+
+// calibration is the Mapper's state for the calibrated statistics: the
+// counts' and the stimulus's autocorrelation for the correlated-stimulus
+// test, each unit's sequential looks, the bin each unit first appeared in,
+// and whether the lag history must restart.
+type calibration struct {
+	counts *countAutocov
+	frames *frameAutocorr // nil for a white stimulus
+	looks  []lookState
+	first  []int64 // per unit, used bins before it was registered
+	// restart: the next frame starts a new lag history (after a pause or a
+	// refused bin).
+	restart bool
+}
+
+func newCalibration(cfg *Config, pixels int) *calibration {
+	c := &calibration{counts: newCountAutocov(autocorrLags)}
+	if !cfg.White {
+		c.frames = newFrameAutocorr(pixels, autocorrLags+cfg.Lags-1)
+	}
+	return c
+}
+
+// addUnit registers one more unit, present from used bin `used` on.
+func (c *calibration) addUnit(used int64) {
+	c.looks = append(c.looks, lookState{})
+	c.first = append(c.first, used)
+	c.counts.grow(len(c.looks))
+}
+
+// addFrame records a frame that was accepted.
+func (c *calibration) addFrame(frame []float64) {
+	if c.frames != nil {
+		c.frames.add(frame, c.restart)
+	}
+	c.restart = false
+}
+
+// addCounts records the counts of used bin b.
+func (c *calibration) addCounts(b int64, counts []Count) {
+	for _, n := range counts {
+		if n.N != 0 {
+			c.counts.add(n.Unit, b, n.N)
+		}
+	}
+}
+
+func (c *calibration) reset() {
+	c.counts.reset()
+	if c.frames != nil {
+		c.frames.reset()
+	}
+	for i := range c.looks {
+		c.looks[i] = lookState{}
+		c.first[i] = 0
+	}
+	c.restart = false
+}
+
+// lagShared is what every unit's correlation correction reads in one
+// Update: the stimulus's temporal autocorrelation and the lag directions.
+type lagShared struct {
+	rho, tau, vecs, h []float64
+}
+
+func (c *calibration) shared(lags int, n int64, lambda float64) *lagShared {
+	if c.frames == nil || n == 0 {
+		return nil
+	}
+	ls := &lagShared{rho: make([]float64, autocorrLags+lags)}
+	c.frames.rhoTo(ls.rho)
+	ls.tau, ls.vecs, ls.h = c.frames.lagModel(ls.rho, lags, n, lambda)
+	return ls
+}
+
+// correction is unit u's SpikeCorrelation over n used bins with sy spikes.
+func (c *calibration) correction(ls *lagShared, lags, u int, n int64, sy float64) SpikeCorrelation {
+	if ls == nil {
+		return SpikeCorrelation{1, 1}
+	}
+	a := make([]float64, autocorrLags+1)
+	c.counts.autocovTo(a, u, n, sy)
+	return spikeCorrelation(a, ls.rho, lags, ls.h, ls.tau, ls.vecs)
+}
+
+// presentSeconds is how long unit u has been present in the block.
+func (c *calibration) presentSeconds(u int, used int64, period float64) float64 {
+	return math.Max(float64(used-c.first[u]), 0) * period
+}
+
+// RestartLags starts a new lag history: the next Lags−1 bins fill it and are
+// not used, so no bin is regressed on frames from before a break in time.
+// Call it after a pause in the stimulus (the ingest does after more than
+// 10 s without frames); AddBin calls it itself after refusing a bin. The
+// estimates so far are kept.
+func (m *Mapper) RestartLags() {
+	m.added = 0
+	m.cal.restart = true
+}
