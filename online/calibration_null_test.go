@@ -92,7 +92,6 @@ func calibTrainIndex(id string) int {
 
 func itoa(i int) string { return strconv.Itoa(i) }
 
-
 // TestNullCalibrationEarly: early in a block on a movie at a dimension near
 // the number of bins (8×8 pixels, 4 lags, D = 256, at 5 s and 10 s: 300 and
 // 600 bins), where the residual degrees of freedom n − 1 − 2t1 + t2 and the

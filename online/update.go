@@ -9,9 +9,9 @@ import (
 
 // shared holds what every unit's statistics read during one Update.
 type shared struct {
-	wh     []float64 // ridge weights of the half indicator
-	pdiag  []float64 // diagonal of the weights block of P
-	t1, t2 float64   // hat-matrix traces
+	wh     []float64  // ridge weights of the half indicator
+	pdiag  []float64  // diagonal of the weights block of P
+	t1, t2 float64    // hat-matrix traces
 	lag    *lagShared // stimulus lag correlation, for the correlated-stimulus test
 }
 
