@@ -76,14 +76,37 @@ func (c *calibration) shared(lags int, n int64, lambda float64) *lagShared {
 	return ls
 }
 
-// correction is unit u's SpikeCorrelation over n used bins with sy spikes.
-func (c *calibration) correction(ls *lagShared, lags, u int, n int64, sy float64) SpikeCorrelation {
-	if ls == nil {
-		return SpikeCorrelation{1, 1}
-	}
+// correction is unit u's SpikeCorrelation over n used bins with sy spikes,
+// and its spikes per unit of count variance, sy/A(0) (1 for Poisson counts).
+func (c *calibration) correction(ls *lagShared, lags, u int, n int64, sy float64) (SpikeCorrelation, float64) {
 	a := make([]float64, autocorrLags+1)
 	c.counts.autocovTo(a, u, n, sy)
-	return spikeCorrelation(a, ls.rho, lags, ls.h, ls.tau, ls.vecs)
+	perSpike := 1.0
+	if a[0] > 0 && sy > 0 {
+		perSpike = math.Min(sy/a[0], 1/(1-math.Min(sy/float64(n), 0.5)))
+	}
+	if ls == nil {
+		return SpikeCorrelation{1, 1}, perSpike
+	}
+	return spikeCorrelation(a, ls.rho, lags, ls.h, ls.tau, ls.vecs), perSpike
+}
+
+// noFieldEvery is how many updates pass between two refreshes of a unit's
+// detection spike count (units take turns); it changes slowly.
+const noFieldEvery = 16
+
+// noFieldSpikes is the spike count from which unit u may be called "no
+// field" (DetectionSpikes for the smallest field), refreshed every
+// noFieldEvery updates; +Inf for a significant unit.
+func (c *calibration) noFieldSpikes(u int, updates int64, cfg *Config, dim int, corr SpikeCorrelation, perSpike float64, significant bool) float64 {
+	if significant {
+		return math.Inf(1)
+	}
+	l := &c.looks[u]
+	if l.noField == 0 || (updates+int64(u))%noFieldEvery == 0 {
+		l.noField = DetectionSpikes(cfg.Alpha, cfg.SmallestField, dim, corr, perSpike)
+	}
+	return l.noField
 }
 
 // presentSeconds is how long unit u has been present in the block.

@@ -53,3 +53,13 @@ func TestFTailMonotone(t *testing.T) {
 		last = nl
 	}
 }
+
+// TestNoncentralChiSquareScipy: NoncentralChiSquareTail against
+// scipy.stats.ncx2.sf (testdata/golden/calib_golden.py), to 1e-8 absolute.
+func TestNoncentralChiSquareScipy(t *testing.T) {
+	for _, c := range loadCalibGolden(t).NCX2 {
+		if got := NoncentralChiSquareTail(c.X, c.DF, c.NC); math.Abs(got-c.SF) > 1e-8 {
+			t.Errorf("NoncentralChiSquareTail(%g, %g, %g) = %.12g, scipy %.12g", c.X, c.DF, c.NC, got, c.SF)
+		}
+	}
+}

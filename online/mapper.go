@@ -22,12 +22,15 @@ type Config struct {
 	White bool
 	// PixelVariance is the known per-pixel variance of a white stimulus.
 	PixelVariance float64
-	Target        float64   // target reliability (default 0.9)
-	Fraction      float64   // fraction of significant units for the block criterion (default 0.8)
-	Aperture      float64   // fraction of reliable fields the suggested aperture covers (default 0.9)
-	ChunkSeconds  float64   // length of the alternating split-half chunks (default 5 s)
-	Alpha         float64   // significance level (default 0.001)
-	MinSpikes     int64     // spikes before a unit can be called "no field" (default 300)
+	Target        float64 // target reliability (default 0.9)
+	Fraction      float64 // fraction of significant units for the block criterion (default 0.8)
+	Aperture      float64 // fraction of reliable fields the suggested aperture covers (default 0.9)
+	ChunkSeconds  float64 // length of the alternating split-half chunks (default 5 s)
+	Alpha         float64 // significance level (default 0.001)
+	MinSpikes     int64   // spikes before a unit can be called "no field" (default 300)
+	// SmallestField is the variance of the linear drive of the smallest field
+	// the "no field" rule must be able to see (default DefaultSmallestField).
+	SmallestField float64
 	STCMaxUnits   int       // at most this many units get STC (default 16)
 	STCLags       int       // lags in STC's reduced space (default: up to 3, keeping pixels·lags ≤ 320)
 	Geometry      *Geometry // optional, for degrees of visual angle
@@ -81,6 +84,7 @@ func (c Config) withDefaults() (Config, error) {
 	def(&c.Aperture, 0.9)
 	def(&c.ChunkSeconds, 5)
 	def(&c.Alpha, 0.001)
+	def(&c.SmallestField, DefaultSmallestField)
 	if c.MinSpikes == 0 {
 		c.MinSpikes = 300
 	}

@@ -56,18 +56,26 @@ type UnitSummary struct {
 	PValue       Float `json:"p_value"`
 	// ETA is the projected seconds until Reliability reaches the target;
 	// null while it is too early to project, 0 once reached.
-	ETA       Float  `json:"eta_s"`
-	Rate      Float  `json:"rate_hz"`
-	PeakLag   int    `json:"peak_lag"`
-	LatencyMS Float  `json:"latency_ms"`
-	CentreX   Float  `json:"centre_x"`
-	CentreY   Float  `json:"centre_y"`
-	SigmaX    Float  `json:"sigma_x"`
-	SigmaY    Float  `json:"sigma_y"`
-	Polarity  int    `json:"polarity"`
-	Map       Floats `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
-	HasSTC    bool   `json:"has_stc"`
-	Flagged   bool   `json:"flagged"`
+	ETA Float `json:"eta_s"`
+	// SignificantAtSpikes is the spike count at the look that found the
+	// field significant (α spent over the block's looks); 0 before.
+	SignificantAtSpikes int64 `json:"significant_at_spikes"`
+	// NoFieldSpikes is the spike count from which a unit without a
+	// significant field is called "no field": where the smallest field
+	// (Config.SmallestField) would have been detected with 90 % probability.
+	// Null for significant units.
+	NoFieldSpikes Float  `json:"no_field_spikes"`
+	Rate          Float  `json:"rate_hz"`
+	PeakLag       int    `json:"peak_lag"`
+	LatencyMS     Float  `json:"latency_ms"`
+	CentreX       Float  `json:"centre_x"`
+	CentreY       Float  `json:"centre_y"`
+	SigmaX        Float  `json:"sigma_x"`
+	SigmaY        Float  `json:"sigma_y"`
+	Polarity      int    `json:"polarity"`
+	Map           Floats `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
+	HasSTC        bool   `json:"has_stc"`
+	Flagged       bool   `json:"flagged"`
 }
 
 // UnitDetail is everything known about one unit.

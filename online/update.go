@@ -132,10 +132,11 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	// Significance: the white-noise STA null, or the ridge posterior.
 	var sig Significance
 	var err error
+	corr, perSpike := m.cal.correction(sh.lag, cfg.Lags, u, m.used, m.spikes[u])
 	if cfg.White {
 		sig, err = s.white.Unit(nil, m.sta, u, cfg.PixelVariance)
+		corr = SpikeCorrelation{Mean: 1, Var: 1} // the white test whitens exactly
 	} else {
-		corr := m.cal.correction(sh.lag, cfg.Lags, u, m.used, m.spikes[u])
 		sig, err = PosteriorTestCorrected(s.w, s.cross, rss, m.used, sh.t1, sh.t2, corr)
 	}
 	p := 1.0
@@ -146,7 +147,12 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 		d.Significance = 0
 	}
 	d.PValue = Float(p)
-	significant := p < cfg.Alpha
+	// Significance is decided at looks spending α over the block (sequential.go).
+	look := &m.cal.looks[u]
+	significant := look.update(m.spikes[u], p, cfg.Alpha)
+	d.SignificantAtSpikes = look.at
+	noField := m.cal.noFieldSpikes(u, m.updates, cfg, m.dim, corr, perSpike, significant)
+	d.NoFieldSpikes = Float(noField)
 
 	// Split halves: for a white stimulus the STAs of the two halves, which
 	// are independent and each proportional to the filter; otherwise the
@@ -185,8 +191,8 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	d.Polarity = d.Features.Polarity
 	d.Map = d.Features.Map
 
-	reached := significant && R >= cfg.Target
-	d.Status = Classify(int64(m.spikes[u]), cfg.MinSpikes, significant, reached)
+	reached := significant && persistentlyAbove(m.history[u], float64(d.Spikes), R, cfg.Target)
+	d.Status = Classify(int64(m.spikes[u]), max(cfg.MinSpikes, int64(math.Min(noField, math.MaxInt64/2))), significant, reached)
 	trend := m.trends[u]
 	if last, _, ok := trend.Latest(); !math.IsNaN(R) && (!ok || m.spikes[u] > last) {
 		trend.Add(m.spikes[u], R)
