@@ -81,14 +81,16 @@ type UnitSummary struct {
 // UnitDetail is everything known about one unit.
 type UnitDetail struct {
 	UnitSummary
-	Shape       [3]int     `json:"shape"` // lags, height, width
-	FramePeriod Float      `json:"frame_period_s"`
-	STA         Floats     `json:"sta"`   // flattened row-major (lag, row, column)
-	Ridge       Floats     `json:"ridge"` // the exact ridge weights, same layout
-	Intercept   Float      `json:"intercept"`
-	Z           Floats     `json:"z"` // ridge weight / posterior standard deviation
-	Features    Features   `json:"features"`
-	STC         *STCResult `json:"stc,omitempty"`
+	Shape       [3]int `json:"shape"` // lags, height, width
+	FramePeriod Float  `json:"frame_period_s"`
+	STA         Floats `json:"sta"`   // flattened row-major (lag, row, column)
+	Ridge       Floats `json:"ridge"` // the exact ridge weights, same layout
+	Intercept   Float  `json:"intercept"`
+	// Z is each ridge weight over its sampling standard deviation under the
+	// null (mean z² ≈ 1 without a field; see zscore.go).
+	Z        Floats     `json:"z"`
+	Features Features   `json:"features"`
+	STC      *STCResult `json:"stc,omitempty"`
 	// History of reliability over the block, one point per update.
 	History []HistoryPoint `json:"history"`
 }

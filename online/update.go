@@ -10,7 +10,7 @@ import (
 // shared holds what every unit's statistics read during one Update.
 type shared struct {
 	wh     []float64  // ridge weights of the half indicator
-	pdiag  []float64  // diagonal of the weights block of P
+	pdiag  []float64  // sampling variance of each weight per unit σ² (zscore.go)
 	t1, t2 float64    // hat-matrix traces
 	lag    *lagShared // stimulus lag correlation, for the correlated-stimulus test
 }
@@ -44,7 +44,7 @@ func (m *Mapper) Update() *Snapshot {
 		if !m.cfg.White {
 			m.ridge.WeightsTo(sh.wh, 0)
 		}
-		m.ridge.PosteriorDiagTo(sh.pdiag)
+		m.ridge.samplingDiagTo(sh.pdiag)
 		sh.t1, sh.t2 = m.ridge.HatTraces()
 		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda)
 	}
@@ -115,24 +115,24 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	m.sta.STATo(s.sta, u)
 	m.sta.CrossTo(s.cross, u)
 
-	// Noise variance and per-coefficient z from the ridge posterior σ²P.
+	// Noise variance; per-coefficient z from the sampling variance (zscore.go).
 	dof := ResidualDOF(m.used, sh.t1, sh.t2)
 	sigma2, rss := math.NaN(), math.NaN()
 	if dof > 0 {
 		rss = math.Max(m.ridge.Objective(m.colY(u))-cfg.Lambda*dot(s.w, s.w), 0)
 		sigma2 = rss / dof
 	}
-	for i := range s.z {
-		s.z[i] = s.w[i] / math.Sqrt(sigma2*sh.pdiag[i])
-		if math.IsNaN(s.z[i]) || math.IsInf(s.z[i], 0) {
-			s.z[i] = 0
-		}
-	}
 
 	// Significance: the white-noise STA null, or the ridge posterior.
 	var sig Significance
 	var err error
 	corr, perSpike := m.cal.correction(sh.lag, cfg.Lags, u, m.used, m.spikes[u])
+	for i := range s.z {
+		s.z[i] = s.w[i] / math.Sqrt(sigma2*corr.Mean*sh.pdiag[i])
+		if math.IsNaN(s.z[i]) || math.IsInf(s.z[i], 0) {
+			s.z[i] = 0
+		}
+	}
 	if cfg.White {
 		sig, err = s.white.Unit(nil, m.sta, u, cfg.PixelVariance)
 		corr = SpikeCorrelation{Mean: 1, Var: 1} // the white test whitens exactly
