@@ -56,8 +56,8 @@ type Count struct {
 var ErrConfig = errors.New("online: bad config")
 
 func (c Config) withDefaults() (Config, error) {
-	if c.Width <= 0 || c.Height <= 0 || c.Width*c.Height > 1<<16 {
-		return c, fmt.Errorf("%w: frame %d×%d (need 1…65536 pixels)", ErrConfig, c.Width, c.Height)
+	if c.Width <= 0 || c.Height <= 0 || c.Width*c.Height > MaxPixels {
+		return c, checkSizes(c.Width, c.Height, max(c.Lags, 1))
 	}
 	def := func(v *float64, d float64) {
 		if *v == 0 {
@@ -67,16 +67,12 @@ func (c Config) withDefaults() (Config, error) {
 	if c.Lags == 0 {
 		c.Lags = 12
 	}
-	if c.Lags < 1 || c.Lags > 64 {
-		return c, fmt.Errorf("%w: lags %d (need 1…64)", ErrConfig, c.Lags)
+	if err := checkSizes(c.Width, c.Height, c.Lags); err != nil {
+		return c, err
 	}
 	def(&c.FramePeriod, 1.0/60)
 	if c.Lambda == 0 {
-		v := c.PixelVariance
-		if v <= 0 {
-			v = 1
-		}
-		c.Lambda = DefaultLambda * v
+		c.Lambda = DefaultLambda * lambdaScale(c.PixelVariance)
 	}
 	def(&c.Forget, 1)
 	def(&c.Target, 0.9)
@@ -102,6 +98,8 @@ func (c Config) withDefaults() (Config, error) {
 		return c, fmt.Errorf("%w: frame period %g s", ErrConfig, c.FramePeriod)
 	case !(c.Lambda > 0) || math.IsInf(c.Lambda, 0):
 		return c, fmt.Errorf("%w: lambda %g", ErrConfig, c.Lambda)
+	case c.Lambda < MinLambda*lambdaScale(c.PixelVariance):
+		return c, fmt.Errorf("%w: lambda %g is below the floor %g (%g × the pixel variance)", ErrConfig, c.Lambda, MinLambda*lambdaScale(c.PixelVariance), MinLambda)
 	case !(c.Forget > 0 && c.Forget <= 1):
 		return c, fmt.Errorf("%w: forgetting factor %g (need 0 < ρ ≤ 1)", ErrConfig, c.Forget)
 	case !(c.Target > 0 && c.Target < 1):

@@ -95,7 +95,7 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	d.Flagged = m.flagged[u]
 	nan := Float(math.NaN())
 	d.Reliability, d.Significance, d.PValue, d.ETA, d.Intercept = nan, nan, nan, nan, nan
-	seconds := float64(m.used) * cfg.FramePeriod
+	seconds := m.cal.presentSeconds(u, m.used, cfg.FramePeriod) // since the unit appeared
 	d.Rate = nan
 	if seconds > 0 {
 		d.Rate = Float(m.spikes[u] / seconds)
