@@ -10,7 +10,8 @@ type calibration struct {
 	counts *countAutocov
 	frames *frameAutocorr // nil for a white stimulus
 	looks  []lookState
-	first  []int64 // per unit, used bins before it was registered
+	first  []int64      // per unit, used bins before it was registered
+	sumSq  [][2]float64 // per unit, Σy² in half A and in half B
 	// restart: the next frame starts a new lag history (after a pause or a
 	// refused bin).
 	restart bool
@@ -28,6 +29,7 @@ func newCalibration(cfg *Config, pixels int) *calibration {
 func (c *calibration) addUnit(used int64) {
 	c.looks = append(c.looks, lookState{})
 	c.first = append(c.first, used)
+	c.sumSq = append(c.sumSq, [2]float64{})
 	c.counts.grow(len(c.looks))
 }
 
@@ -39,11 +41,16 @@ func (c *calibration) addFrame(frame []float64) {
 	c.restart = false
 }
 
-// addCounts records the counts of used bin b.
-func (c *calibration) addCounts(b int64, counts []Count) {
+// addCounts records the counts of used bin b, in split half A or B.
+func (c *calibration) addCounts(b int64, halfA bool, counts []Count) {
+	h := 1
+	if halfA {
+		h = 0
+	}
 	for _, n := range counts {
 		if n.N != 0 {
 			c.counts.add(n.Unit, b, n.N)
+			c.sumSq[n.Unit][h] += n.N * n.N
 		}
 	}
 }
@@ -56,6 +63,7 @@ func (c *calibration) reset() {
 	for i := range c.looks {
 		c.looks[i] = lookState{}
 		c.first[i] = 0
+		c.sumSq[i] = [2]float64{}
 	}
 	c.restart = false
 }

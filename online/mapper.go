@@ -306,7 +306,7 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	}
 	m.growColumns()
 	m.sta.AddBin(m.x, halfA, counts)
-	m.cal.addCounts(m.used-1, counts)
+	m.cal.addCounts(m.used-1, halfA, counts)
 	halves := !m.cfg.White
 	if halfA && halves {
 		m.yrow[0] = 1

@@ -51,6 +51,10 @@ type UnitSummary struct {
 	Status Status `json:"status"`
 	// Reliability is the Spearman–Brown corrected split-half correlation.
 	Reliability Float `json:"reliability"`
+	// PredictiveR is the cross-validated correlation between each half's
+	// spike counts and the prediction of the field estimated from the other
+	// half (mean of both directions; about 0 without a field). See predict.go.
+	PredictiveR Float `json:"predictive_r"`
 	// Significance is −log10 of the p-value of the field against the null.
 	Significance Float `json:"significance"`
 	PValue       Float `json:"p_value"`

@@ -166,6 +166,9 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	lo, hi := m.reliabilityWindow(s.w, significant)
 	_, R := SplitHalf(s.ha[lo:hi], s.hb[lo:hi])
 	d.Reliability = Float(R)
+	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.sta, s.cross))
+	m.sta.STATo(s.sta, u) // the scratch is reused below
+	m.sta.CrossTo(s.cross, u)
 
 	fit := &m.fits[u]
 	fitNow := significant && (!fit.ok || (m.updates+int64(u))%fitEvery == 0)
