@@ -52,22 +52,28 @@ func (c *countAutocov) reset() {
 }
 
 // add records count n of unit u in used bin b (bins counted from 0; only
-// non-zero counts need be given, each unit at most once per bin).
-func (c *countAutocov) add(u int, b int64, n float64) {
+// non-zero counts need be given; a unit listed twice in a bin has its
+// counts added). It returns the unit's count in the bin before this one
+// was added.
+func (c *countAutocov) add(u int, b int64, n float64) (before float64) {
 	K := int64(c.k)
 	s, ring, stamp := c.sums[u], c.ring[u], c.stamp[u]
-	s[0] += n * n
+	i := b % (K + 1)
+	if stamp[i] == b {
+		before = ring[i]
+	}
+	s[0] += n * (2*before + n)
 	for d := int64(1); d <= K && d <= b; d++ {
 		j := (b - d) % (K + 1)
 		if stamp[j] == b-d {
 			s[d] += n * ring[j]
 		}
 	}
-	i := b % (K + 1)
-	ring[i], stamp[i] = n, b
+	ring[i], stamp[i] = before+n, b
 	if b < K {
-		c.head[u][b] = n
+		c.head[u][b] = before + n
 	}
+	return before
 }
 
 // autocovTo writes A(0…K) of unit u over m used bins with spike total sy.

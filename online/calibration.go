@@ -49,8 +49,8 @@ func (c *calibration) addCounts(b int64, halfA bool, counts []Count) {
 	}
 	for _, n := range counts {
 		if n.N != 0 {
-			c.counts.add(n.Unit, b, n.N)
-			c.sumSq[n.Unit][h] += n.N * n.N
+			before := c.counts.add(n.Unit, b, n.N)
+			c.sumSq[n.Unit][h] += n.N * (2*before + n.N)
 		}
 	}
 }

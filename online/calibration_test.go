@@ -94,3 +94,39 @@ func binomialLower(n int, alpha float64) int {
 	}
 	return 0
 }
+
+// TestCountAutocovExact: the centred count autocovariance from the running
+// sums equals the direct sum Σ_k (y_k − ȳ)(y_{k+d} − ȳ) over a train with
+// a unit listed twice in some bins (definition; no source needed).
+func TestCountAutocovExact(t *testing.T) {
+	rng := rand.New(rand.NewPCG(91, 92))
+	const bins, K = 500, 6
+	c := newCountAutocov(K)
+	c.grow(1)
+	y := make([]float64, bins)
+	for b := range y {
+		for range 2 {
+			if rng.Float64() < 0.3 {
+				n := float64(1 + rng.IntN(3))
+				c.add(0, int64(b), n)
+				y[b] += n
+			}
+		}
+	}
+	var sy float64
+	for _, v := range y {
+		sy += v
+	}
+	mean := sy / bins
+	got := make([]float64, K+1)
+	c.autocovTo(got, 0, bins, sy)
+	for d := 0; d <= K; d++ {
+		var want float64
+		for k := 0; k+d < bins; k++ {
+			want += (y[k] - mean) * (y[k+d] - mean)
+		}
+		if diff := got[d] - want; diff > 1e-9*bins || diff < -1e-9*bins {
+			t.Errorf("A(%d) = %g, direct %g", d, got[d], want)
+		}
+	}
+}
