@@ -12,6 +12,7 @@ type calibration struct {
 	looks  []lookState
 	first  []int64      // per unit, used bins before it was registered
 	sumSq  [][2]float64 // per unit, Σy² in half A and in half B
+	drift  []driftState
 	// restart: the next frame starts a new lag history (after a pause or a
 	// refused bin).
 	restart bool
@@ -30,6 +31,7 @@ func (c *calibration) addUnit(used int64) {
 	c.looks = append(c.looks, lookState{})
 	c.first = append(c.first, used)
 	c.sumSq = append(c.sumSq, [2]float64{})
+	c.drift = append(c.drift, driftState{})
 	c.counts.grow(len(c.looks))
 }
 
@@ -64,6 +66,7 @@ func (c *calibration) reset() {
 		c.looks[i] = lookState{}
 		c.first[i] = 0
 		c.sumSq[i] = [2]float64{}
+		c.drift[i] = driftState{}
 	}
 	c.restart = false
 }

@@ -68,18 +68,26 @@ type UnitSummary struct {
 	// significant field is called "no field": where the smallest field
 	// (Config.SmallestField) would have been detected with 90 % probability.
 	// Null for significant units.
-	NoFieldSpikes Float  `json:"no_field_spikes"`
-	Rate          Float  `json:"rate_hz"`
-	PeakLag       int    `json:"peak_lag"`
-	LatencyMS     Float  `json:"latency_ms"`
-	CentreX       Float  `json:"centre_x"`
-	CentreY       Float  `json:"centre_y"`
-	SigmaX        Float  `json:"sigma_x"`
-	SigmaY        Float  `json:"sigma_y"`
-	Polarity      int    `json:"polarity"`
-	Map           Floats `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
-	HasSTC        bool   `json:"has_stc"`
-	Flagged       bool   `json:"flagged"`
+	NoFieldSpikes Float `json:"no_field_spikes"`
+	// Drift is set once the unit's field differs between the first and the
+	// second half of its spikes (see drift.go; white-noise stimuli only);
+	// DriftP is the p-value of the last comparison, DriftFrom and DriftTo
+	// the centres (x, y in pixels) of the two halves' fields when flagged.
+	Drift     bool     `json:"drift"`
+	DriftP    Float    `json:"drift_p"`
+	DriftFrom [2]Float `json:"drift_from"`
+	DriftTo   [2]Float `json:"drift_to"`
+	Rate      Float    `json:"rate_hz"`
+	PeakLag   int      `json:"peak_lag"`
+	LatencyMS Float    `json:"latency_ms"`
+	CentreX   Float    `json:"centre_x"`
+	CentreY   Float    `json:"centre_y"`
+	SigmaX    Float    `json:"sigma_x"`
+	SigmaY    Float    `json:"sigma_y"`
+	Polarity  int      `json:"polarity"`
+	Map       Floats   `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
+	HasSTC    bool     `json:"has_stc"`
+	Flagged   bool     `json:"flagged"`
 }
 
 // UnitDetail is everything known about one unit.
@@ -109,11 +117,14 @@ type HistoryPoint struct {
 // BlockSummary tells the experimenter whether the block can stop and where
 // the next stimulus should go.
 type BlockSummary struct {
-	Units       int   `json:"units"`
-	Significant int   `json:"significant"`
-	Reliable    int   `json:"reliable"`
-	Target      Float `json:"target"`   // target reliability
-	Fraction    Float `json:"fraction"` // fraction of significant units that must be reliable
+	Units       int `json:"units"`
+	Significant int `json:"significant"`
+	Reliable    int `json:"reliable"`
+	// Drifting counts the significant units whose field moved within the
+	// block (UnitSummary.Drift).
+	Drifting int   `json:"drifting"`
+	Target   Float `json:"target"`   // target reliability
+	Fraction Float `json:"fraction"` // fraction of significant units that must be reliable
 	// ETA is the projected seconds until Fraction of the significant units
 	// reach the target (null when too early, 0 when reached).
 	ETA   Float `json:"eta_s"`

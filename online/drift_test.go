@@ -1,0 +1,179 @@
+package online
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"livefield/online/internal/lnp"
+)
+
+// TestDrift: on white noise (8×8 pixels, 4 lags), LNP units whose Gaussian
+// field (σ = 1 pixel, at lags 1–2) moves steadily by one field width (2σ)
+// over a 10-minute block, and still units with the same fields. At α = 0.05
+// the still units ever flagged must stay within the binomial 99.9 % upper
+// bound for α (the look schedule's promise), and at least 80 % of the
+// moving units must be flagged, with the reported centres moving in the
+// direction of the drift.
+func TestDrift(t *testing.T) {
+	const W, H, L, units = 8, 8, 4, 40
+	P := W * H
+	cfg := Config{Width: W, Height: H, Lags: L, White: true, PixelVariance: 0.25, Alpha: 0.05}
+	m, err := NewMapper(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(101, 102))
+	stim := &lnp.White{C: 0.5, Rng: rng}
+	type cell struct {
+		x0, y0, dx float64
+		u          *lnp.Unit
+	}
+	var cells []cell
+	for i := 0; i < 2*units; i++ {
+		c := cell{x0: 2.5 + 2*rng.Float64(), y0: 2.5 + 3*rng.Float64()}
+		name := "still"
+		if i < units {
+			c.dx, name = 2, "moving"
+		}
+		c.u = &lnp.Unit{Filter: make([]float64, P*L), Base: -2, Rng: rand.New(rand.NewPCG(103, uint64(i)))}
+		cells = append(cells, c)
+		m.Unit(fmt.Sprintf("%s-%d", name, i))
+	}
+	const bins = 10 * 60 * 60
+	setFilter := func(c *cell, frac float64) {
+		cx := c.x0 + c.dx*(frac-0.5)
+		for p := 0; p < P; p++ {
+			dx, dy := float64(p%W)-cx, float64(p/W)-c.y0
+			g := 0.9 * math.Exp(-(dx*dx+dy*dy)/2)
+			c.u.Filter[P+p] = g
+			c.u.Filter[2*P+p] = 0.5 * g
+		}
+	}
+	hist := lnp.NewLagged(P, L)
+	frame := make([]float64, P)
+	x := make([]float64, P*L)
+	var counts []Count
+	everStill := map[string]bool{}
+	for k := 0; k < bins; k++ {
+		if k%600 == 0 {
+			for i := range cells {
+				setFilter(&cells[i], float64(k)/bins)
+			}
+		}
+		stim.Next(frame)
+		hist.Push(frame)
+		counts = counts[:0]
+		if hist.Full() {
+			hist.To(x)
+			for u, c := range cells {
+				if n := c.u.Next(x); n > 0 {
+					counts = append(counts, Count{Unit: u, N: n})
+				}
+			}
+		}
+		if err := m.AddBin(frame, counts); err != nil {
+			t.Fatal(err)
+		}
+		if k%60 == 59 {
+			s := m.Update()
+			for _, u := range s.Units[units:] {
+				if u.Drift {
+					everStill[u.ID] = true
+				}
+			}
+		}
+	}
+	s := m.Snapshot()
+	moved, rightWay := 0, 0
+	for _, u := range s.Units[:units] {
+		if u.Drift {
+			moved++
+			if float64(u.DriftTo[0]-u.DriftFrom[0]) > 0 {
+				rightWay++
+			}
+		}
+	}
+	hi := binomialUpper(units, cfg.Alpha)
+	t.Logf("moving units flagged: %d of %d (%d moving right); still units ever flagged: %d of %d (bound %d); block summary drifting = %d",
+		moved, units, rightWay, len(everStill), units, hi, s.Summary.Drifting)
+	if float64(moved) < 0.8*units {
+		t.Errorf("%d of %d moving units flagged, want ≥ 80 %%", moved, units)
+	}
+	if float64(rightWay) < 0.8*float64(moved) {
+		t.Errorf("%d of %d flagged units moved the right way", rightWay, moved)
+	}
+	if len(everStill) > hi {
+		t.Errorf("%d of %d still units ever flagged, want ≤ %d", len(everStill), units, hi)
+	}
+	if s.Summary.Drifting < moved {
+		t.Errorf("block summary counts %d drifting units, %d moving units are flagged", s.Summary.Drifting, moved)
+	}
+}
+
+// TestDriftNullLooks: the drift comparison's p-values at each look, for
+// units whose spikes do not depend on the stimulus at all (Poisson and
+// 3-bin bursts; the comparison forced on), are uniform: the share below
+// 0.05 and 0.01 lies within the binomial 99.9 % bounds (looks of one unit
+// are independent under this null: disjoint segments).
+func TestDriftNullLooks(t *testing.T) {
+	const W, H, L, units = 8, 8, 4, 200
+	P := W * H
+	m, err := NewMapper(Config{Width: W, Height: H, Lags: L, White: true, PixelVariance: 0.25})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stim := &lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(111, 112))}
+	var trains []lnp.Train
+	for i := 0; i < units; i++ {
+		m.Unit(fmt.Sprintf("u%d", i))
+		r := rand.New(rand.NewPCG(113, uint64(i)))
+		if i%2 == 0 {
+			trains = append(trains, &lnp.PoissonTrain{Mu: 0.1, Rng: r})
+		} else {
+			trains = append(trains, &lnp.BurstTrain{Onset: 0.1 / 3, Span: 3, Mu: 1, Rng: r})
+		}
+	}
+	frame := make([]float64, P)
+	var counts []Count
+	var ps []float64
+	s := m.newScratch()
+	for k := 0; k < 20000; k++ {
+		stim.Next(frame)
+		counts = counts[:0]
+		for u, tr := range trains {
+			if n := tr.Next(); n > 0 {
+				counts = append(counts, Count{Unit: u, N: n})
+			}
+		}
+		if err := m.AddBin(frame, counts); err != nil {
+			t.Fatal(err)
+		}
+		if k%60 != 59 {
+			continue
+		}
+		m.sta.CacheMeans()
+		for u := 0; u < units; u++ {
+			d := &UnitDetail{}
+			before := m.cal.drift[u].look
+			m.checkDrift(d, u, true, P, 4*P, s)
+			if m.cal.drift[u].look > before && before > 0 {
+				ps = append(ps, float64(d.DriftP))
+			}
+		}
+	}
+	for _, alpha := range []float64{0.05, 0.01} {
+		h := 0
+		for _, p := range ps {
+			if p < alpha {
+				h++
+			}
+		}
+		lo, hi := binomialLower(len(ps), alpha), binomialUpper(len(ps), alpha)
+		t.Logf("α = %g: %d of %d looks with p < α (bound %d…%d)", alpha, h, len(ps), lo, hi)
+		if h < lo || h > hi {
+			t.Errorf("α = %g: %d of %d looks with p < α, want %d…%d", alpha, h, len(ps), lo, hi)
+		}
+	}
+}
