@@ -5,6 +5,8 @@ import (
 	"math"
 	"os"
 	"testing"
+
+	"gonum.org/v1/gonum/stat/distuv"
 )
 
 type calibGolden struct {
@@ -60,6 +62,28 @@ func TestNoncentralChiSquareScipy(t *testing.T) {
 	for _, c := range loadCalibGolden(t).NCX2 {
 		if got := NoncentralChiSquareTail(c.X, c.DF, c.NC); math.Abs(got-c.SF) > 1e-8 {
 			t.Errorf("NoncentralChiSquareTail(%g, %g, %g) = %.12g, scipy %.12g", c.X, c.DF, c.NC, got, c.SF)
+		}
+	}
+}
+
+// TestFieldPowerPatnaik: the power rule's Patnaik (1949) approximation of
+// the non-central chi-square is within 0.01 of the exact Poisson mixture
+// (NoncentralChiSquareTail, itself checked against scipy) where the rule
+// decides: powers between 0.5 and 0.99, dimensions 16 to 3072.
+func TestFieldPowerPatnaik(t *testing.T) {
+	for _, nu := range []float64{16, 144, 1000, 3072} {
+		for j := 1; j <= 14; j++ {
+			for _, N := range []float64{100, 300, 1000, 3000, 10000, 30000} {
+				approx := fieldPower(0.001, j, nu, 1, 1, 0.04, N)
+				if approx < 0.5 || approx > 0.99 {
+					continue
+				}
+				crit := distuv.ChiSquared{K: nu}.Quantile(1 - LookLevel(0.001, j))
+				exact := NoncentralChiSquareTail(crit, nu, N*0.04)
+				if math.Abs(approx-exact) > 0.01 {
+					t.Errorf("ν = %g, look %d, N = %g: Patnaik %.4f, exact %.4f", nu, j, N, approx, exact)
+				}
+			}
 		}
 	}
 }

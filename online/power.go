@@ -71,10 +71,17 @@ func NoncentralChiSquareTail(x, nu, delta float64) float64 {
 
 // fieldPower is the probability that look j detects a field of drive
 // variance e when the unit has N spikes, for a test whose null is
-// g·χ²_ν and whose non-centrality per spike is perSpike·e/g.
+// g·χ²_ν and whose non-centrality per spike is perSpike·e/g. The
+// non-central tail is Patnaik's (1949) two-moment approximation,
+// χ²_ν(δ) ≈ r·χ²_f with r = (ν + 2δ)/(ν + δ) and f = (ν + δ)²/(ν + 2δ),
+// which is within 0.01 of the exact power over the range the rule uses
+// (TestFieldPowerPatnaik) at a fraction of the cost of the Poisson mixture.
 func fieldPower(alpha float64, j int, nu, g, perSpike, e, N float64) float64 {
 	crit := distuv.ChiSquared{K: nu}.Quantile(1 - LookLevel(alpha, j))
-	return NoncentralChiSquareTail(crit, nu, N*perSpike*e/g)
+	delta := N * perSpike * e / g
+	r := (nu + 2*delta) / (nu + delta)
+	f := (nu + delta) * (nu + delta) / (nu + 2*delta)
+	return distuv.ChiSquared{K: f}.Survival(crit / r)
 }
 
 // maxLooks bounds the search for the detecting look (2^40 spikes).
