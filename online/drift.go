@@ -24,15 +24,17 @@ import "math"
 // the share of still units ever flagged stays at most α. A flagged unit
 // stays flagged, and reports the centres of the two segments' fields.
 //
-// On a correlated movie the STA difference is not whitened by this test;
-// there the drift check is not made (Drift stays false, DriftP null).
+// On a correlated stimulus the difference is whitened by the ridge's M over
+// all D coefficients and its null moments follow the posterior test's
+// (movieDriftP).
 
 // driftState is one unit's drift check: the sums at its last look.
 type driftState struct {
 	look    int
 	sxy     []float64 // Σ y x (raw) at the last look
-	lagSums []float64 // count lag products S_0…S_{W−1} at the last look
+	lagSums []float64 // count lag products S_0…S_K at the last look
 	spikes  float64
+	sx      []float64 // Σ x over the used bins at the last look (correlated stimuli)
 	bins    int64
 	// Result, kept once flagged.
 	flagged  bool
@@ -42,12 +44,12 @@ type driftState struct {
 
 // checkDrift runs unit u's drift check when a look is due and fills the
 // drift fields of d. lo, hi is the reliability window (coefficients).
-func (m *Mapper) checkDrift(d *UnitDetail, u int, significant bool, lo, hi int, s *scratch) {
+func (m *Mapper) checkDrift(d *UnitDetail, u int, significant bool, lo, hi int, sh *shared, s *scratch) {
 	nan := Float(math.NaN())
 	d.DriftP = nan
 	d.DriftFrom = [2]Float{nan, nan}
 	d.DriftTo = [2]Float{nan, nan}
-	if !m.cfg.White {
+	if !m.cfg.White && (sh == nil || sh.lag == nil || !(sh.t1 > 0)) {
 		return
 	}
 	st := &m.cal.drift[u]
@@ -65,42 +67,44 @@ func (m *Mapper) checkDrift(d *UnitDetail, u int, significant bool, lo, hi int, 
 	if j <= st.look {
 		return
 	}
-	W := (hi - lo) / m.pixels
 	sxy := s.cross // scratch: raw Σ y x now
 	a, b := m.sta.block(u, staA), m.sta.block(u, staB)
 	for i := range sxy {
 		sxy[i] = a[i] + b[i]
 	}
 	lagSums := m.cal.counts.sums[u]
-	tested := significant && st.sxy != nil && st.spikes > 0 && spikes-st.spikes > 0
-	if tested {
+	if significant && st.sxy != nil && st.spikes > 0 && spikes-st.spikes > 0 {
 		ne, nl := st.spikes, spikes-st.spikes
+		// Lag weights of the difference: w(d) = S_e(d)/N_e² + S_l(d)/N_l².
+		w := make([]float64, len(lagSums))
+		for dd := range w {
+			w[dd] = st.lagSums[dd]/(ne*ne) + (lagSums[dd]-st.lagSums[dd])/(nl*nl)
+		}
 		diff := s.wa // scratch
-		clear(diff)
-		win := diff[:hi-lo]
-		for i := range win {
-			win[i] = st.sxy[lo+i]/ne - (sxy[lo+i]-st.sxy[lo+i])/nl
+		for i := range diff {
+			diff[i] = st.sxy[i]/ne - (sxy[i]-st.sxy[i])/nl
 		}
-		ac := make([]float64, W)
-		for dd := 0; dd < W && dd < len(st.lagSums); dd++ {
-			ac[dd] = st.lagSums[dd]/(ne*ne) + (lagSums[dd]-st.lagSums[dd])/(nl*nl)
+		var p float64
+		ok := false
+		if m.cfg.White {
+			W := (hi - lo) / m.pixels
+			wt := NewWhiteTest(m.pixels, W)
+			if res, err := wt.TestTo(nil, diff[lo:hi], w[:W], m.cfg.PixelVariance); err == nil {
+				p, ok = res.P, true
+			}
+		} else {
+			p, ok = m.movieDriftP(diff, u, st, sh)
 		}
-		wt := NewWhiteTest(m.pixels, W)
-		if res, err := wt.TestTo(nil, win, ac, m.cfg.PixelVariance); err == nil {
-			st.p = res.P
-			d.DriftP = Float(res.P)
-			if res.P < LookLevel(m.cfg.Alpha, j) {
+		if ok {
+			st.p = p
+			d.DriftP = Float(p)
+			if p < LookLevel(m.cfg.Alpha, j) {
 				st.flagged = true
-				// Centres of the two segments' fields at the window's peak lag.
-				est := s.ha // scratch
-				for i := range est {
-					est[i] = st.sxy[i] / ne
+				st.from = m.segmentCentre(st.sxy, ne, s)
+				for i := range diff {
+					diff[i] = sxy[i] - st.sxy[i]
 				}
-				st.from = m.segmentCentre(est, s)
-				for i := range est {
-					est[i] = (sxy[i] - st.sxy[i]) / nl
-				}
-				st.to = m.segmentCentre(est, s)
+				st.to = m.segmentCentre(diff, nl, s)
 				d.Drift = true
 				d.DriftFrom = [2]Float{Float(st.from[0]), Float(st.from[1])}
 				d.DriftTo = [2]Float{Float(st.to[0]), Float(st.to[1])}
@@ -113,17 +117,78 @@ func (m *Mapper) checkDrift(d *UnitDetail, u int, significant bool, lo, hi int, 
 		st.sxy = make([]float64, m.dim)
 	}
 	copy(st.sxy, sxy)
-	st.lagSums = append(st.lagSums[:0], lagSums[:min(len(lagSums), m.cfg.Lags)]...)
-	st.spikes, st.bins = spikes, m.used
+	st.lagSums = append(st.lagSums[:0], lagSums...)
+	st.spikes = spikes
+	if !m.cfg.White {
+		if st.sx == nil {
+			st.sx = make([]float64, m.dim)
+		}
+		m.sta.sumXTo(st.sx)
+		st.bins = m.used
+	}
 }
 
-// segmentCentre is the Gaussian-fit centre of a segment's STA, given its
-// raw spike-triggered mean est (the mean stimulus is removed here).
-func (m *Mapper) segmentCentre(est []float64, s *scratch) [2]float64 {
-	mean := make([]float64, len(est))
-	m.sta.meanTo(mean, 0, 1)
+// sumXTo writes Σ x over all bins (both halves) into dst.
+func (s *STA) sumXTo(dst []float64) {
+	for i := range dst {
+		dst[i] = s.sumX[0][i] + s.sumX[1][i]
+	}
+}
+
+// movieDriftP is the drift p-value on a correlated stimulus. Each
+// segment's STA is centred on its own mean stimulus, so a slowly varying
+// movie does not pass for a moving field: diff = (Σ_e y x/N_e − x̄_e) −
+// (Σ_l y x/N_l − x̄_l) (diff holds the uncentred part on entry). Whitened by
+// the ridge's M = (X̃ᵀX̃ + λI)⁻¹, Q = n·diffᵀM·diff/w(0) with
+// w(d) = A_e(d)/N_e² + A_l(d)/N_l² from the segments' centred count
+// autocovariances. Conditional on the spike trains its null mean and
+// variance are those of the posterior test's numerator, t1 and 2t2, times
+// the correction of the lag weights w (spikeCorrelation), and it is
+// compared with the matching scaled chi-square (Satterthwaite 1946); the
+// count variance is known here, so no F reference is needed.
+func (m *Mapper) movieDriftP(diff []float64, u int, st *driftState, sh *shared) (float64, bool) {
+	ne, nl := st.spikes, m.spikes[u]-st.spikes
+	be, bl := float64(st.bins), float64(m.used-st.bins)
+	if !(be > 0) || !(bl > 0) {
+		return 0, false
+	}
+	sx := make([]float64, len(diff))
+	m.sta.sumXTo(sx)
+	for i := range diff {
+		diff[i] -= st.sx[i]/be - (sx[i]-st.sx[i])/bl
+	}
+	lagSums := m.cal.counts.sums[u]
+	w := make([]float64, len(lagSums))
+	ye, yl := ne/be, nl/bl
+	for d := range w {
+		ae := st.lagSums[d] - (be-float64(d))*ye*ye
+		al := lagSums[d] - st.lagSums[d] - (bl-float64(d))*yl*yl
+		w[d] = ae/(ne*ne) + al/(nl*nl)
+	}
+	if !(w[0] > 0) {
+		return 0, false
+	}
+	v := make([]float64, len(diff))
+	m.ridge.weightsMulTo(v, diff)
+	q := dot(diff, v) * float64(m.used) / w[0]
+	corr := spikeCorrelation(w, sh.lag.rho, m.cfg.Lags, sh.lag.h, sh.lag.tau, sh.lag.vecs)
+	mean := corr.Mean * sh.t1
+	g := corr.Var * sh.t2 / mean
+	nu := mean * mean / (corr.Var * sh.t2)
+	p, _ := ChiSquareTail(q/g, nu)
+	return p, !math.IsNaN(p)
+}
+
+// segmentCentre is the Gaussian-fit centre of a segment's field from its
+// raw sums Σ y x over n spikes: the fit to its STA (mean stimulus removed).
+// On a correlated stimulus the STA is the field blurred by the stimulus's
+// covariance, which for a stationary, symmetric covariance keeps the centre;
+// whitening it would only add noise.
+func (m *Mapper) segmentCentre(sxy []float64, n float64, s *scratch) [2]float64 {
+	est := make([]float64, len(sxy))
+	m.sta.meanTo(est, 0, 1)
 	for i := range est {
-		est[i] -= mean[i]
+		est[i] = sxy[i]/n - est[i]
 	}
 	var f Features
 	s.features.MomentsOnly = false

@@ -9,7 +9,7 @@ import (
 	"livefield/online/internal/lnp"
 )
 
-// TestDrift: on white noise (8×8 pixels, 4 lags), LNP units whose Gaussian
+// TestDrift: on white noise and on a movie (8×8 pixels, 4 lags), LNP units whose Gaussian
 // field (σ = 1 pixel, at lags 1–2) moves steadily by one field width (2σ)
 // over a 10-minute block, and still units with the same fields. At α = 0.05
 // the still units ever flagged must stay within the binomial 99.9 % upper
@@ -17,15 +17,24 @@ import (
 // moving units must be flagged, with the reported centres moving in the
 // direction of the drift.
 func TestDrift(t *testing.T) {
+	t.Run("white", func(t *testing.T) {
+		driftCheck(t, Config{Width: 8, Height: 8, Lags: 4, White: true, PixelVariance: 0.25, Alpha: 0.05},
+			&lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(101, 102))}, 0.9)
+	})
+	t.Run("movie", func(t *testing.T) {
+		driftCheck(t, Config{Width: 8, Height: 8, Lags: 4, Alpha: 0.05},
+			&lnp.Movie{W: 8, H: 8, A: 0.7, Rng: rand.New(rand.NewPCG(101, 103))}, 0.2)
+	})
+}
+
+func driftCheck(t *testing.T, cfg Config, stim lnp.Stimulus, gain float64) {
 	const W, H, L, units = 8, 8, 4, 40
 	P := W * H
-	cfg := Config{Width: W, Height: H, Lags: L, White: true, PixelVariance: 0.25, Alpha: 0.05}
 	m, err := NewMapper(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
-	rng := rand.New(rand.NewPCG(101, 102))
-	stim := &lnp.White{C: 0.5, Rng: rng}
+	rng := rand.New(rand.NewPCG(101, 104))
 	type cell struct {
 		x0, y0, dx float64
 		u          *lnp.Unit
@@ -46,7 +55,7 @@ func TestDrift(t *testing.T) {
 		cx := c.x0 + c.dx*(frac-0.5)
 		for p := 0; p < P; p++ {
 			dx, dy := float64(p%W)-cx, float64(p/W)-c.y0
-			g := 0.9 * math.Exp(-(dx*dx+dy*dy)/2)
+			g := gain * math.Exp(-(dx*dx+dy*dy)/2)
 			c.u.Filter[P+p] = g
 			c.u.Filter[2*P+p] = 0.5 * g
 		}
@@ -112,19 +121,29 @@ func TestDrift(t *testing.T) {
 	}
 }
 
-// TestDriftNullLooks: the drift comparison's p-values at each look, for
+// TestDriftNullLooks: on white noise and on a movie, the drift comparison's p-values at each look, for
 // units whose spikes do not depend on the stimulus at all (Poisson and
 // 3-bin bursts; the comparison forced on), are uniform: the share below
 // 0.05 and 0.01 lies within the binomial 99.9 % bounds (looks of one unit
 // are independent under this null: disjoint segments).
 func TestDriftNullLooks(t *testing.T) {
+	t.Run("white", func(t *testing.T) {
+		driftNullLooks(t, Config{Width: 8, Height: 8, Lags: 4, White: true, PixelVariance: 0.25},
+			&lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(111, 112))})
+	})
+	t.Run("movie", func(t *testing.T) {
+		driftNullLooks(t, Config{Width: 8, Height: 8, Lags: 4},
+			&lnp.Movie{W: 8, H: 8, A: 0.7, Rng: rand.New(rand.NewPCG(111, 113))})
+	})
+}
+
+func driftNullLooks(t *testing.T, cfg Config, stim lnp.Stimulus) {
 	const W, H, L, units = 8, 8, 4, 200
 	P := W * H
-	m, err := NewMapper(Config{Width: W, Height: H, Lags: L, White: true, PixelVariance: 0.25})
+	m, err := NewMapper(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
-	stim := &lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(111, 112))}
 	var trains []lnp.Train
 	for i := 0; i < units; i++ {
 		m.Unit(fmt.Sprintf("u%d", i))
@@ -154,10 +173,14 @@ func TestDriftNullLooks(t *testing.T) {
 			continue
 		}
 		m.sta.CacheMeans()
+		m.ridge.Flush()
+		sh := &shared{}
+		sh.t1, sh.t2 = m.ridge.HatTraces()
+		sh.lag = m.cal.shared(L, m.used, m.cfg.Lambda)
 		for u := 0; u < units; u++ {
 			d := &UnitDetail{}
 			before := m.cal.drift[u].look
-			m.checkDrift(d, u, true, P, 4*P, s)
+			m.checkDrift(d, u, true, P, 4*P, sh, s)
 			if m.cal.drift[u].look > before && before > 0 {
 				ps = append(ps, float64(d.DriftP))
 			}

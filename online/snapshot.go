@@ -70,7 +70,7 @@ type UnitSummary struct {
 	// Null for significant units.
 	NoFieldSpikes Float `json:"no_field_spikes"`
 	// Drift is set once the unit's field differs between the first and the
-	// second half of its spikes (see drift.go; white-noise stimuli only);
+	// second half of its spikes (see drift.go);
 	// DriftP is the p-value of the last comparison, DriftFrom and DriftTo
 	// the centres (x, y in pixels) of the two halves' fields when flagged.
 	Drift     bool     `json:"drift"`

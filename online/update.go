@@ -168,7 +168,7 @@ func (m *Mapper) unitDetail(u int, sh *shared, s *scratch) *UnitDetail {
 	d.Reliability = Float(R)
 	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.sta, s.cross))
 	m.sta.STATo(s.sta, u) // the scratch is reused below
-	m.checkDrift(d, u, significant, lo, hi, s)
+	m.checkDrift(d, u, significant, lo, hi, sh, s)
 
 	fit := &m.fits[u]
 	fitNow := significant && (!fit.ok || (m.updates+int64(u))%fitEvery == 0)

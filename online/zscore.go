@@ -45,3 +45,27 @@ func (r *Ridge) samplingDiagTo(dst []float64) {
 		}
 	}
 }
+
+// weightsMulTo writes M·v to dst, M the weights block of (Λ + ÃᵀÃ)⁻¹ (see
+// samplingDiagTo), reading the lower triangle of P once: O(D²).
+func (r *Ridge) weightsMulTo(dst, v []float64) {
+	d := r.dim
+	c, pe := r.interceptCorrection()
+	var pv float64
+	for j := 0; j < d; j++ {
+		pv += pe[j] * v[j]
+	}
+	for i := 0; i < d; i++ {
+		dst[i] = c * pe[i] * pv
+	}
+	for i := 0; i < d; i++ {
+		row := r.p[i*r.ld : i*r.ld+i]
+		vi := v[i]
+		var s float64
+		for j, p := range row {
+			s += p * v[j]
+			dst[j] += p * vi
+		}
+		dst[i] += s + r.p[i*r.ld+i]*vi
+	}
+}

@@ -12,7 +12,8 @@ import (
 
 // TestSamplingDiagDense: the sampling variances per σ² equal the diagonal
 // of M − λM², M = (X̃ᵀX̃ + λI)⁻¹ on the centred design, computed densely with
-// gonum (an independent route through the same identity), to 1e-9 relative.
+// gonum (an independent route through the same identity), to 1e-9 relative;
+// and M·v (the drift test's whitening) equals the dense product.
 func TestSamplingDiagDense(t *testing.T) {
 	rng := rand.New(rand.NewPCG(61, 62))
 	const n, d, lambda = 300, 20, 5.0
@@ -52,6 +53,19 @@ func TestSamplingDiagDense(t *testing.T) {
 		t.Fatal(err)
 	}
 	m2.Mul(&m, &m)
+	v := make([]float64, d)
+	for i := range v {
+		v[i] = rng.NormFloat64()
+	}
+	mv := make([]float64, d)
+	r.weightsMulTo(mv, v)
+	var want mat.VecDense
+	want.MulVec(&m, mat.NewVecDense(d, v))
+	for i := range mv {
+		if math.Abs(mv[i]-want.AtVec(i)) > 1e-9*math.Abs(want.AtVec(i))+1e-12 {
+			t.Errorf("M·v[%d] = %g, dense %g", i, mv[i], want.AtVec(i))
+		}
+	}
 	for i := 0; i < d; i++ {
 		want := m.At(i, i) - lambda*m2.At(i, i)
 		if math.Abs(got[i]-want) > 1e-9*want {
