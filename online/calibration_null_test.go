@@ -31,10 +31,10 @@ func TestNullCalibrationWhite(t *testing.T) {
 }
 
 func calibNullCheck(t *testing.T, cfg Config, stim func(*rand.Rand) lnp.Stimulus) {
-	const perType, blocks = 50, 2
+	perType, blocks := 50, 2
 	updates := []int64{5 * 60, 20 * 60, 60 * 60, 600 * 60}
-	if testing.Short() {
-		updates = updates[:3]
+	if !longChecks() {
+		updates, blocks = updates[:3], 1
 	}
 	alphas := []float64{0.05, 0.01, 0.001}
 	// hits[look][train][alpha]

@@ -130,3 +130,8 @@ func TestCountAutocovExact(t *testing.T) {
 		}
 	}
 }
+
+// longChecks is false under -short and under the race detector: the long
+// calibration blocks then run shorter variants (fewer minutes, fewer
+// looks), which still catch a broken correction but with wider bounds.
+func longChecks() bool { return !testing.Short() && !raceEnabled }

@@ -22,6 +22,9 @@ func TestDrift(t *testing.T) {
 			&lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(101, 102))}, 0.9)
 	})
 	t.Run("movie", func(t *testing.T) {
+		if !longChecks() {
+			t.Skip("a 10-minute block: runs without -short and -race")
+		}
 		driftCheck(t, Config{Width: 8, Height: 8, Lags: 4, Alpha: 0.05},
 			&lnp.Movie{W: 8, H: 8, A: 0.7, Rng: rand.New(rand.NewPCG(101, 103))}, 0.2)
 	})
@@ -158,7 +161,11 @@ func driftNullLooks(t *testing.T, cfg Config, stim lnp.Stimulus) {
 	var counts []Count
 	var ps []float64
 	s := m.newScratch()
-	for k := 0; k < 20000; k++ {
+	bins := 20000
+	if !longChecks() {
+		bins = 8000
+	}
+	for k := 0; k < bins; k++ {
 		stim.Next(frame)
 		counts = counts[:0]
 		for u, tr := range trains {

@@ -36,6 +36,9 @@ func TestPowerAndNoField(t *testing.T) {
 			&lnp.Movie{W: 6, H: 6, A: 0.7, Rng: rand.New(rand.NewPCG(52, 1))}},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
+			if tc.name == "movie" && !longChecks() {
+				t.Skip("runs without -short and -race")
+			}
 			rng := rand.New(rand.NewPCG(53, 2))
 			m, err := NewMapper(tc.cfg)
 			if err != nil {

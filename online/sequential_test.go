@@ -25,7 +25,7 @@ func TestEverSignificantWhite(t *testing.T) {
 func calibEverCheck(t *testing.T, cfg Config, stim lnp.Stimulus) {
 	const perType = 40
 	minutes := int64(10)
-	if testing.Short() {
+	if !longChecks() {
 		minutes = 2
 	}
 	var updates []int64
