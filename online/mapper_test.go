@@ -5,6 +5,8 @@ import (
 	"math/rand/v2"
 	"strconv"
 	"testing"
+
+	"livefield/online/internal/lnp"
 )
 
 // lnpCell is a linear–nonlinear–Poisson cell for tests: rate per bin =
@@ -72,17 +74,8 @@ func corr(a, b []float64) float64 {
 	return sab / math.Sqrt(saa*sbb)
 }
 
-// poisson draws a Poisson count (Knuth's product method; small means only).
-func poisson(rng *rand.Rand, mean float64) float64 {
-	l, k, p := math.Exp(-mean), 0.0, 1.0
-	for {
-		p *= rng.Float64()
-		if p <= l {
-			return k
-		}
-		k++
-	}
-}
+// poisson draws a Poisson count with the package's one sampler (internal/lnp).
+func poisson(rng *rand.Rand, mean float64) float64 { return lnp.Poisson(rng, mean) }
 
 // simulation drives a Mapper with a stimulus generator and LNP cells,
 // keeping its own lag history to compute the true drive.

@@ -6,6 +6,8 @@ import (
 	"testing"
 
 	"gonum.org/v1/gonum/mat"
+
+	"livefield/online/internal/lnp"
 )
 
 type nullChi2Golden struct {
@@ -203,17 +205,8 @@ func TestWhiteTestErrors(t *testing.T) {
 // nullTrain generates counts independent of any stimulus.
 type nullTrain func(rng *rand.Rand, y []float64)
 
-func nullPoisson(rng *rand.Rand, mu float64) float64 {
-	// Knuth's product method; mu is small here.
-	l, k, p := math.Exp(-mu), 0.0, 1.0
-	for {
-		p *= rng.Float64()
-		if p <= l {
-			return k
-		}
-		k++
-	}
-}
+// nullPoisson is the package's one Poisson sampler (internal/lnp).
+func nullPoisson(rng *rand.Rand, mu float64) float64 { return lnp.Poisson(rng, mu) }
 
 func nullPoissonTrain(mu float64) nullTrain {
 	return func(rng *rand.Rand, y []float64) {
