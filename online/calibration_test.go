@@ -52,16 +52,7 @@ func calibBlock(t *testing.T, cfg Config, stim lnp.Stimulus, seed uint64, kinds 
 	bins := updates[len(updates)-1] + int64(m.Config().Lags) - 1
 	next := 0
 	for k := int64(0); k < bins; k++ {
-		stim.Next(frame)
-		counts = counts[:0]
-		for u, tr := range trains {
-			if n := tr.Next(); n > 0 {
-				counts = append(counts, Count{Unit: u, N: n})
-			}
-		}
-		if err := m.AddBin(frame, counts); err != nil {
-			t.Fatal(err)
-		}
+		counts = nullBin(t, m, stim, frame, trains, counts)
 		if next < len(updates) && m.Bins() == updates[next] {
 			snaps = append(snaps, m.Update())
 			next++
@@ -135,3 +126,35 @@ func TestCountAutocovExact(t *testing.T) {
 // calibration blocks then run shorter variants (fewer minutes, fewer
 // looks), which still catch a broken correction but with wider bounds.
 func longChecks() bool { return !testing.Short() && !raceEnabled }
+
+// nullBin draws the next frame and a count from each train and adds the bin
+// to m; counts is reused.
+func nullBin(t *testing.T, m *Mapper, stim lnp.Stimulus, frame []float64, trains []lnp.Train, counts []Count) []Count {
+	stim.Next(frame)
+	counts = counts[:0]
+	for u, tr := range trains {
+		if n := tr.Next(); n > 0 {
+			counts = append(counts, Count{Unit: u, N: n})
+		}
+	}
+	if err := m.AddBin(frame, counts); err != nil {
+		t.Fatal(err)
+	}
+	return counts
+}
+
+// calibStimulus is a test stimulus with the mapper configuration that goes
+// with it: binary white noise of contrast 0.5, or the AR(0.7) movie, on
+// 6×6 pixels with 4 lags.
+type calibStimulus struct {
+	name string
+	cfg  Config
+	stim lnp.Stimulus
+}
+
+func calibStimuli(seed uint64) []calibStimulus {
+	return []calibStimulus{
+		{"white", Config{Width: 6, Height: 6, Lags: 4, White: true, PixelVariance: 0.25}, &lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(seed, 1))}},
+		{"movie", Config{Width: 6, Height: 6, Lags: 4}, &lnp.Movie{W: 6, H: 6, A: 0.7, Rng: rand.New(rand.NewPCG(seed, 2))}},
+	}
+}

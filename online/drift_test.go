@@ -166,16 +166,7 @@ func driftNullLooks(t *testing.T, cfg Config, stim lnp.Stimulus) {
 		bins = 8000
 	}
 	for k := 0; k < bins; k++ {
-		stim.Next(frame)
-		counts = counts[:0]
-		for u, tr := range trains {
-			if n := tr.Next(); n > 0 {
-				counts = append(counts, Count{Unit: u, N: n})
-			}
-		}
-		if err := m.AddBin(frame, counts); err != nil {
-			t.Fatal(err)
-		}
+		counts = nullBin(t, m, stim, frame, trains, counts)
 		if k%60 != 59 {
 			continue
 		}

@@ -124,14 +124,7 @@ func TestPredictiveRDirect(t *testing.T) {
 // mean PredictiveR lies within 4 standard errors of 0 (each r has standard
 // deviation near 1/sqrt(n/2), and the mean of two directions a little less).
 func TestPredictiveRNull(t *testing.T) {
-	for _, tc := range []struct {
-		name string
-		cfg  Config
-		stim lnp.Stimulus
-	}{
-		{"white", Config{Width: 6, Height: 6, Lags: 4, White: true, PixelVariance: 0.25}, &lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(84, 1))}},
-		{"movie", Config{Width: 6, Height: 6, Lags: 4}, &lnp.Movie{W: 6, H: 6, A: 0.7, Rng: rand.New(rand.NewPCG(85, 1))}},
-	} {
+	for _, tc := range calibStimuli(84) {
 		t.Run(tc.name, func(t *testing.T) {
 			s := calibBlock(t, tc.cfg, tc.stim, 86, calibTrains[:1], 300, []int64{60 * 60})[0]
 			var rs []float64

@@ -6,8 +6,6 @@ import (
 	"testing"
 
 	"gonum.org/v1/gonum/mat"
-
-	"livefield/online/internal/lnp"
 )
 
 // TestSamplingDiagDense: the sampling variances per σ² equal the diagonal
@@ -81,14 +79,7 @@ func TestSamplingDiagDense(t *testing.T) {
 // has a standard error near 0.01; the tolerance is ±0.06. The posterior
 // standard deviation used before gives 0.3–0.5 and fails.
 func TestZNullMean(t *testing.T) {
-	for _, tc := range []struct {
-		name string
-		cfg  Config
-		stim lnp.Stimulus
-	}{
-		{"white", Config{Width: 6, Height: 6, Lags: 4, White: true, PixelVariance: 0.25}, &lnp.White{C: 0.5, Rng: rand.New(rand.NewPCG(63, 1))}},
-		{"movie", Config{Width: 6, Height: 6, Lags: 4}, &lnp.Movie{W: 6, H: 6, A: 0.7, Rng: rand.New(rand.NewPCG(64, 1))}},
-	} {
+	for _, tc := range calibStimuli(63) {
 		t.Run(tc.name, func(t *testing.T) {
 			snaps := calibBlock(t, tc.cfg, tc.stim, 65, calibTrains[:1], 300, []int64{20 * 60, 60 * 60})
 			for i, s := range snaps {
