@@ -11,7 +11,7 @@ import (
 
 // TestDrift: on white noise and on a movie (8×8 pixels, 4 lags), LNP units whose Gaussian
 // field (σ = 1 pixel, at lags 1–2) moves steadily by one field width (2σ)
-// over a 10-minute block, and still units with the same fields. At α = 0.05
+// over a 10-minute block (under -short and -race: by 3σ over 6 minutes, 20 units of each kind), and still units with the same fields. At α = 0.05
 // the still units ever flagged must stay within the binomial 99.9 % upper
 // bound for α (the look schedule's promise), and at least 80 % of the
 // moving units must be flagged, with the reported centres moving in the
@@ -31,8 +31,12 @@ func TestDrift(t *testing.T) {
 }
 
 func driftCheck(t *testing.T, cfg Config, stim lnp.Stimulus, gain float64) {
-	const W, H, L, units = 8, 8, 4, 40
+	const W, H, L = 8, 8, 4
 	P := W * H
+	units, minutes, shift := 40, 10, 2.0
+	if !longChecks() {
+		units, minutes, shift = 20, 6, 3.0
+	}
 	m, err := NewMapper(cfg)
 	if err != nil {
 		t.Fatal(err)
@@ -47,13 +51,13 @@ func driftCheck(t *testing.T, cfg Config, stim lnp.Stimulus, gain float64) {
 		c := cell{x0: 2.5 + 2*rng.Float64(), y0: 2.5 + 3*rng.Float64()}
 		name := "still"
 		if i < units {
-			c.dx, name = 2, "moving"
+			c.dx, name = shift, "moving"
 		}
 		c.u = &lnp.Unit{Filter: make([]float64, P*L), Base: -2, Rng: rand.New(rand.NewPCG(103, uint64(i)))}
 		cells = append(cells, c)
 		m.Unit(fmt.Sprintf("%s-%d", name, i))
 	}
-	const bins = 10 * 60 * 60
+	bins := minutes * 60 * 60
 	setFilter := func(c *cell, frac float64) {
 		cx := c.x0 + c.dx*(frac-0.5)
 		for p := 0; p < P; p++ {
@@ -71,7 +75,7 @@ func driftCheck(t *testing.T, cfg Config, stim lnp.Stimulus, gain float64) {
 	for k := 0; k < bins; k++ {
 		if k%600 == 0 {
 			for i := range cells {
-				setFilter(&cells[i], float64(k)/bins)
+				setFilter(&cells[i], float64(k)/float64(bins))
 			}
 		}
 		stim.Next(frame)
@@ -110,7 +114,7 @@ func driftCheck(t *testing.T, cfg Config, stim lnp.Stimulus, gain float64) {
 	hi := binomialUpper(units, cfg.Alpha)
 	t.Logf("moving units flagged: %d of %d (%d moving right); still units ever flagged: %d of %d (bound %d); block summary drifting = %d",
 		moved, units, rightWay, len(everStill), units, hi, s.Summary.Drifting)
-	if float64(moved) < 0.8*units {
+	if float64(moved) < 0.8*float64(units) {
 		t.Errorf("%d of %d moving units flagged, want ≥ 80 %%", moved, units)
 	}
 	if float64(rightWay) < 0.8*float64(moved) {
@@ -141,8 +145,12 @@ func TestDriftNullLooks(t *testing.T) {
 }
 
 func driftNullLooks(t *testing.T, cfg Config, stim lnp.Stimulus) {
-	const W, H, L, units = 8, 8, 4, 200
+	const W, H, L = 8, 8, 4
 	P := W * H
+	units := 200
+	if !longChecks() {
+		units = 100
+	}
 	m, err := NewMapper(cfg)
 	if err != nil {
 		t.Fatal(err)

@@ -163,11 +163,16 @@ func powerFilter(rng *rand.Rand, P, L int, e float64, stim lnp.Stimulus) []float
 		k[P+p] = g
 		k[2*P+p] = -0.5 * g
 	}
-	// Var(k·x) from 20000 independent draws of the stimulus history.
+	// Var(k·x) = c²|k|² on white noise; from 20000 draws of the movie's
+	// lagged frames otherwise.
 	var stimCopy lnp.Stimulus
 	switch s := stim.(type) {
 	case *lnp.White:
-		stimCopy = &lnp.White{C: s.C, Rng: rand.New(rand.NewPCG(9, 9))}
+		f := math.Sqrt(e / (s.C * s.C * dot(k, k)))
+		for i := range k {
+			k[i] *= f
+		}
+		return k
 	case *lnp.Movie:
 		stimCopy = &lnp.Movie{W: s.W, H: s.H, A: s.A, Rng: rand.New(rand.NewPCG(9, 9))}
 	}

@@ -17,10 +17,14 @@ import (
 // the held-out counts with the other half's prediction, the half fit solved
 // densely from the stored design), on a movie. The sufficient statistics
 // take the held-out half's Gram matrix as its share of the whole; with
-// interleaved 5 s chunks over 10 minutes that costs at most 0.01.
+// interleaved 5 s chunks over 10 minutes (3 under -short) that costs at most 0.01.
 func TestPredictiveRDirect(t *testing.T) {
-	const W, H, L, bins = 3, 3, 2, 36000
+	const W, H, L = 3, 3, 2
 	P, D := W*H, W*H*L
+	bins := 36000
+	if !longChecks() {
+		bins = 12000
+	}
 	rng := rand.New(rand.NewPCG(81, 82))
 	cfg := Config{Width: W, Height: H, Lags: L}
 	m, err := NewMapper(cfg)
