@@ -108,9 +108,12 @@ type frameAutocorr struct {
 	pixels, maxLag int
 	ring           [][]float64 // last maxLag+1 frames
 	n, since       int64
-	prod           []float64 // Σ_m s_m·s_{m−τ}, per τ
-	pairs          []int64
-	sum            []float64 // per pixel, Σ s_m
+	// cross[τ] = Σ_m s_m s_{m−τ}ᵀ (P×P, row: the later frame's pixel), kept
+	// for frames of at most exactPixels pixels.
+	cross [][]float64
+	prod  []float64 // Σ_m s_m·s_{m−τ}, per τ
+	pairs []int64
+	sum   []float64 // per pixel, Σ s_m
 }
 
 func newFrameAutocorr(pixels, maxLag int) *frameAutocorr {
@@ -120,11 +123,25 @@ func newFrameAutocorr(pixels, maxLag int) *frameAutocorr {
 	for i := range f.ring {
 		f.ring[i] = make([]float64, pixels)
 	}
+	if pixels <= exactPixels {
+		f.cross = make([][]float64, maxLag+1)
+		for i := range f.cross {
+			f.cross[i] = make([]float64, pixels*pixels)
+		}
+	}
 	return f
 }
 
+// exactPixels is the largest frame for which the correlated-stimulus test's
+// null mean is computed from the stimulus's full lag covariances (P² per
+// lag per frame); larger frames use the separable model alone.
+const exactPixels = 144
+
 func (f *frameAutocorr) reset() {
 	f.n, f.since = 0, 0
+	for _, c := range f.cross {
+		clear(c)
+	}
 	clear(f.prod)
 	clear(f.pairs)
 	clear(f.sum)
@@ -142,8 +159,15 @@ func (f *frameAutocorr) add(frame []float64, restart bool) {
 		f.sum[i] += v
 	}
 	for tau := int64(0); tau <= int64(f.maxLag) && tau <= f.since; tau++ {
-		f.prod[tau] += dot(frame, f.ring[(f.n-tau)%L])
+		prev := f.ring[(f.n-tau)%L]
+		f.prod[tau] += dot(frame, prev)
 		f.pairs[tau]++
+		if f.cross != nil {
+			c := f.cross[tau]
+			for p, v := range frame {
+				axpy(c[p*f.pixels:(p+1)*f.pixels], v, prev)
+			}
+		}
 	}
 	f.n++
 	f.since++
@@ -302,4 +326,23 @@ func spikeCorrelation(a, rho []float64, L int, h, tau []float64, vecs []float64)
 		return one
 	}
 	return c
+}
+
+// gammaTo writes γ(τ) = Cov(s_m, s_{m+τ}) (P×P, row-major) for τ ≥ 0;
+// false when the full lag covariances are not kept or not yet known.
+func (f *frameAutocorr) gammaTo(dst []float64, tau int) bool {
+	if f.cross == nil || tau > f.maxLag || f.pairs[tau] == 0 || f.pairs[0] < 2 {
+		return false
+	}
+	P := f.pixels
+	frames := float64(f.pairs[0])
+	inv := 1 / float64(f.pairs[tau])
+	c := f.cross[tau]
+	for p := 0; p < P; p++ {
+		for q := 0; q < P; q++ {
+			// cross[τ][q, p] = Σ s_m[q] s_{m−τ}[p]: frame m−τ's pixel p, τ later pixel q.
+			dst[p*P+q] = c[q*P+p]*inv - (f.sum[p]/frames)*(f.sum[q]/frames)
+		}
+	}
+	return true
 }

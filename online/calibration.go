@@ -75,16 +75,59 @@ func (c *calibration) reset() {
 // Update: the stimulus's temporal autocorrelation and the lag directions.
 type lagShared struct {
 	rho, tau, vecs, h []float64
+	// trace[d+K] = tr(M Γ(d)) for d = −K…K from the full lag covariances
+	// (nil when the frames are too large to keep them).
+	trace []float64
 }
 
-func (c *calibration) shared(lags int, n int64, lambda float64) *lagShared {
+func (c *calibration) shared(lags int, n int64, lambda float64, ridge *Ridge) *lagShared {
 	if c.frames == nil || n == 0 {
 		return nil
 	}
 	ls := &lagShared{rho: make([]float64, autocorrLags+lags)}
 	c.frames.rhoTo(ls.rho)
 	ls.tau, ls.vecs, ls.h = c.frames.lagModel(ls.rho, lags, n, lambda)
+	ls.trace = c.frames.lagTraces(ridge, lags)
 	return ls
+}
+
+// lagTraces returns tr(M Γ(d)) for d = −K…K (index d + K), K = autocorrLags:
+// block (i, j) of Γ(d) = Cov(x_k, x_{k+d}) is γ(d + i − j), so
+// tr(M Γ(d)) = Σ_δ ⟨M̄_δ, γ(d + δ)⟩ with M̄_δ = Σ_{i−j=δ} M_ij and
+// γ(−τ) = γ(τ)ᵀ. Nil when the full lag covariances are not kept.
+func (f *frameAutocorr) lagTraces(ridge *Ridge, L int) []float64 {
+	if f.cross == nil || ridge == nil || ridge.Rows() == 0 {
+		return nil
+	}
+	P, K := f.pixels, autocorrLags
+	gamma := make([][]float64, K+L)
+	for tau := range gamma {
+		gamma[tau] = make([]float64, P*P)
+		if !f.gammaTo(gamma[tau], tau) {
+			return nil
+		}
+	}
+	mbar := ridge.lagBlockSums(P, L)
+	out := make([]float64, 2*K+1)
+	for d := -K; d <= K; d++ {
+		var s float64
+		for delta := -(L - 1); delta <= L-1; delta++ {
+			tau := d + delta
+			m := mbar[delta+L-1]
+			if tau >= 0 {
+				s += dot(m, gamma[tau])
+				continue
+			}
+			g := gamma[-tau]
+			for p := 0; p < P; p++ {
+				for q := 0; q < P; q++ {
+					s += m[p*P+q] * g[q*P+p]
+				}
+			}
+		}
+		out[d+K] = s
+	}
+	return out
 }
 
 // correction is unit u's SpikeCorrelation over n used bins with sy spikes,
@@ -99,7 +142,24 @@ func (c *calibration) correction(ls *lagShared, lags, u int, n int64, sy float64
 	if ls == nil {
 		return SpikeCorrelation{1, 1}, perSpike
 	}
-	return spikeCorrelation(a, ls.rho, lags, ls.h, ls.tau, ls.vecs), perSpike
+	corr := spikeCorrelation(a, ls.rho, lags, ls.h, ls.tau, ls.vecs)
+	if ls.trace != nil {
+		// The mean from the full lag covariances, Σ_d A(d) tr(M Γ(d)) over
+		// A(0) tr(M Γ(0)); the variance keeps the separable model's shape
+		// (its ν), scaled to that mean.
+		K := autocorrLags
+		if c0 := ls.trace[K]; c0 > 0 && a[0] > 0 {
+			m := a[0] * c0
+			for d := 1; d <= K; d++ {
+				m += a[d] * (ls.trace[K+d] + ls.trace[K-d])
+			}
+			if mean := m / (a[0] * c0); mean > 0 {
+				r := mean / corr.Mean
+				corr = SpikeCorrelation{Mean: mean, Var: corr.Var * r * r}
+			}
+		}
+	}
+	return corr, perSpike
 }
 
 // noFieldEvery is how many updates pass between two refreshes of a unit's

@@ -182,7 +182,7 @@ func driftNullLooks(t *testing.T, cfg Config, stim lnp.Stimulus) {
 		m.ridge.Flush()
 		sh := &shared{}
 		sh.t1, sh.t2 = m.ridge.HatTraces()
-		sh.lag = m.cal.shared(L, m.used, m.cfg.Lambda)
+		sh.lag = m.cal.shared(L, m.used, m.cfg.Lambda, m.ridge)
 		for u := 0; u < units; u++ {
 			d := &UnitDetail{}
 			before := m.cal.drift[u].look

@@ -46,7 +46,7 @@ func (m *Mapper) Update() *Snapshot {
 		}
 		m.ridge.samplingDiagTo(sh.pdiag)
 		sh.t1, sh.t2 = m.ridge.HatTraces()
-		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda)
+		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda, m.ridge)
 	}
 	m.sta.CacheMeans()
 	n := len(m.ids)

@@ -69,3 +69,28 @@ func (r *Ridge) weightsMulTo(dst, v []float64) {
 		dst[i] += s + r.p[i*r.ld+i]*vi
 	}
 }
+
+// lagBlockSums returns, for δ = −(L−1)…L−1 (index δ+L−1), the P×P sums
+// Σ_{i−j=δ} M_ij of the lag blocks of M, the weights block of
+// (Λ + ÃᵀÃ)⁻¹ (lag-major: coefficient i·P + p is pixel p at lag i).
+func (r *Ridge) lagBlockSums(P, L int) [][]float64 {
+	out := make([][]float64, 2*L-1)
+	for i := range out {
+		out[i] = make([]float64, P*P)
+	}
+	c, pe := r.interceptCorrection()
+	for a := 0; a < r.dim; a++ {
+		i, p := a/P, a%P
+		row := r.p[a*r.ld : a*r.ld+a+1]
+		ca := c * pe[a]
+		for b, v := range row {
+			v += ca * pe[b]
+			j, q := b/P, b%P
+			out[i-j+L-1][p*P+q] += v
+			if b != a {
+				out[j-i+L-1][q*P+p] += v
+			}
+		}
+	}
+	return out
+}

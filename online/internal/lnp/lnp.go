@@ -241,3 +241,36 @@ func (l *Lagged) To(x []float64) {
 		copy(x[lag*l.pixels:(lag+1)*l.pixels], l.ring[(l.head-lag+l.lags)%l.lags])
 	}
 }
+
+// MixedMovie is a Gaussian movie whose even pixels follow an AR(1) process
+// with coefficient A and whose odd pixels one with coefficient B, all of
+// unit variance and independent of each other: its lag covariance is not
+// the same temporal correlation times one spatial covariance (not
+// separable), unlike Movie's.
+type MixedMovie struct {
+	A, B float64
+	Rng  *rand.Rand
+
+	state []float64
+}
+
+// Next advances the movie by one frame.
+func (m *MixedMovie) Next(frame []float64) {
+	if m.state == nil {
+		m.state = make([]float64, len(frame))
+		for i := range m.state {
+			m.state[i] = m.Rng.NormFloat64()
+		}
+	}
+	for i := range m.state {
+		a := m.B
+		if i%2 == 0 {
+			a = m.A
+		}
+		m.state[i] = a*m.state[i] + math.Sqrt(1-a*a)*m.Rng.NormFloat64()
+	}
+	copy(frame, m.state)
+}
+
+// Variance is 1.
+func (m *MixedMovie) Variance() float64 { return 1 }
