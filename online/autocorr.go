@@ -135,9 +135,9 @@ func newFrameAutocorr(pixels, maxLag int) *frameAutocorr {
 }
 
 // crossStride: the full lag cross-products take every crossStride-th frame
-// as the later frame of their pairs, a quarter of the cost (P²·(K+L) per
+// as the later frame of their pairs, an eighth of the cost (P²·(K+L) per
 // frame taken) for estimates that are only slightly noisier.
-const crossStride = 4
+const crossStride = 8
 
 // exactPixels is the largest frame for which the correlated-stimulus test's
 // null mean is computed from the stimulus's full lag covariances (P² per

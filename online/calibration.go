@@ -16,6 +16,9 @@ type calibration struct {
 	// restart: the next frame starts a new lag history (after a pause or a
 	// refused bin).
 	restart bool
+	// trace caches lagTraces, computed at traceAt used bins.
+	trace   []float64
+	traceAt int64
 }
 
 func newCalibration(cfg *Config, pixels int) *calibration {
@@ -69,6 +72,7 @@ func (c *calibration) reset() {
 		c.drift[i] = driftState{}
 	}
 	c.restart = false
+	c.trace, c.traceAt = nil, 0
 }
 
 // lagShared is what every unit's correlation correction reads in one
@@ -87,7 +91,12 @@ func (c *calibration) shared(lags int, n int64, lambda float64, ridge *Ridge) *l
 	ls := &lagShared{rho: make([]float64, autocorrLags+lags)}
 	c.frames.rhoTo(ls.rho)
 	ls.tau, ls.vecs, ls.h = c.frames.lagModel(ls.rho, lags, n, lambda)
-	ls.trace = c.frames.lagTraces(ridge, lags)
+	// Only the ratios tr(M Γ(d))/tr(M Γ(0)) are used, and they change
+	// slowly as bins accrue: recompute when n has grown by a tenth.
+	if c.trace == nil || float64(n) >= 1.1*float64(c.traceAt) {
+		c.trace, c.traceAt = c.frames.lagTraces(ridge, lags), n
+	}
+	ls.trace = c.trace
 	return ls
 }
 
