@@ -16,9 +16,15 @@
 //     from sufficient statistics (Anchor);
 //   - STA: spike-triggered averages, their split halves and the centred
 //     cross-correlations and spike-count autocovariances;
-//   - WhiteTest and PosteriorTest: significance against the white-noise null
-//     (whitened for the spike train's autocorrelation) or from the ridge
-//     posterior for correlated stimuli; ChiSquareTail;
+//   - WhiteTest and PosteriorTestCorrected: significance against the
+//     white-noise null (whitened for the spike train's autocorrelation) or,
+//     for correlated stimuli, the ridge statistic with its residual degrees
+//     of freedom, an F reference and a correction for the counts'
+//     autocorrelation (autocorr.go); ChiSquareTail, FTail;
+//   - looks that spend α over the block (sequential.go), the power rule
+//     behind "no field" (power.go), the sampling z of the ridge weights
+//     (zscore.go), cross-validated predictive quality (predict.go) and the
+//     drift warning (drift.go);
 //   - SplitHalf, SpearmanBrown, Project and Trend: split-half reliability
 //     and the projected time until it reaches a target;
 //   - STC: spike-triggered covariance in a reduced space with a
@@ -28,6 +34,10 @@
 //   - Classify and Summarize: the unit status and the block summary;
 //   - LagGram, BatchRidge and Evidence: the whole block at once from lag
 //     cross-products, and the empirical-Bayes choice of the ridge penalty.
+//
+// Size limits (MaxPixels, MaxLags, MaxDim) and the smallest penalty
+// (MinLambda) are in limits.go; the tests' simulator of stimuli, null spike
+// trains and LNP units is internal/lnp.
 //
 // Layouts: a lagged stimulus or an estimate of D = pixels·lags values is
 // lag-major, [lag][row][column], lag 0 the frame on screen during the bin.

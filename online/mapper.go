@@ -19,12 +19,15 @@ type Config struct {
 	White bool
 	// PixelVariance is the known per-pixel variance of a white stimulus.
 	PixelVariance float64
-	Target        float64   // target reliability (default 0.9)
-	Fraction      float64   // fraction of significant units for the block criterion (default 0.8)
-	Aperture      float64   // fraction of reliable fields the suggested aperture covers (default 0.9)
-	ChunkSeconds  float64   // length of the alternating split-half chunks (default 5 s)
-	Alpha         float64   // significance level (default 0.001)
-	MinSpikes     int64     // spikes before a unit can be called "no field" (default 300)
+	Target        float64 // target reliability (default 0.9)
+	Fraction      float64 // fraction of significant units for the block criterion (default 0.8)
+	Aperture      float64 // fraction of reliable fields the suggested aperture covers (default 0.9)
+	ChunkSeconds  float64 // length of the alternating split-half chunks (default 5 s)
+	Alpha         float64 // significance level (default 0.001)
+	MinSpikes     int64   // spikes before a unit can be called "no field" (default 300)
+	// SmallestField is the variance of the linear drive of the smallest field
+	// the "no field" rule must be able to see (default DefaultSmallestField).
+	SmallestField float64
 	STCMaxUnits   int       // at most this many units get STC (default 16)
 	STCLags       int       // lags in STC's reduced space (default: up to 3, keeping pixels·lags ≤ 320)
 	Geometry      *Geometry // optional, for degrees of visual angle
@@ -47,8 +50,8 @@ type Count struct {
 var ErrConfig = errors.New("online: bad config")
 
 func (c Config) withDefaults() (Config, error) {
-	if c.Width <= 0 || c.Height <= 0 || c.Width*c.Height > 1<<16 {
-		return c, fmt.Errorf("%w: frame %d×%d (need 1…65536 pixels)", ErrConfig, c.Width, c.Height)
+	if c.Width <= 0 || c.Height <= 0 || c.Width*c.Height > MaxPixels {
+		return c, checkSizes(c.Width, c.Height, max(c.Lags, 1))
 	}
 	def := func(v *float64, d float64) {
 		if *v == 0 {
@@ -58,22 +61,19 @@ func (c Config) withDefaults() (Config, error) {
 	if c.Lags == 0 {
 		c.Lags = 12
 	}
-	if c.Lags < 1 || c.Lags > 64 {
-		return c, fmt.Errorf("%w: lags %d (need 1…64)", ErrConfig, c.Lags)
+	if err := checkSizes(c.Width, c.Height, c.Lags); err != nil {
+		return c, err
 	}
 	def(&c.FramePeriod, 1.0/60)
 	if c.Lambda == 0 {
-		v := c.PixelVariance
-		if v <= 0 {
-			v = 1
-		}
-		c.Lambda = DefaultLambda * v
+		c.Lambda = DefaultLambda * lambdaScale(c.PixelVariance)
 	}
 	def(&c.Target, 0.9)
 	def(&c.Fraction, 0.8)
 	def(&c.Aperture, 0.9)
 	def(&c.ChunkSeconds, 5)
 	def(&c.Alpha, 0.001)
+	def(&c.SmallestField, DefaultSmallestField)
 	if c.MinSpikes == 0 {
 		c.MinSpikes = 300
 	}
@@ -91,6 +91,8 @@ func (c Config) withDefaults() (Config, error) {
 		return c, fmt.Errorf("%w: frame period %g s", ErrConfig, c.FramePeriod)
 	case !(c.Lambda > 0) || math.IsInf(c.Lambda, 0):
 		return c, fmt.Errorf("%w: lambda %g", ErrConfig, c.Lambda)
+	case c.Lambda < MinLambda*lambdaScale(c.PixelVariance):
+		return c, fmt.Errorf("%w: lambda %g is below the floor %g (%g × the pixel variance)", ErrConfig, c.Lambda, MinLambda*lambdaScale(c.PixelVariance), MinLambda)
 	case !(c.Target > 0 && c.Target < 1):
 		return c, fmt.Errorf("%w: target reliability %g (need 0…1)", ErrConfig, c.Target)
 	case !(c.Fraction > 0 && c.Fraction <= 1):
@@ -171,6 +173,7 @@ type Mapper struct {
 	trends  []*Trend
 	fits    []shapeFit
 	snap    *Snapshot
+	cal     *calibration // calibrated statistics (calibration.go)
 }
 
 // trendPoints is how many recent updates the reliability trend fits.
@@ -211,6 +214,7 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	m.log.limit = m.logLimit()
 	m.log.start(nil)
 	m.snap = m.emptySnapshot()
+	m.cal = newCalibration(&cfg, m.pixels)
 	return m, nil
 }
 
@@ -237,6 +241,7 @@ func (m *Mapper) Unit(id string) int {
 	m.trends = append(m.trends, NewTrend(trendPoints))
 	m.fits = append(m.fits, shapeFit{})
 	m.sta.Grow(len(m.ids))
+	m.cal.addUnit(m.used)
 	return i
 }
 
@@ -285,15 +290,18 @@ var ErrBin = errors.New("online: bin refused")
 // update. It does not allocate in steady state.
 func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	if len(frame) != m.pixels {
+		m.RestartLags()
 		return fmt.Errorf("%w: frame of %d pixels, want %d", ErrBin, len(frame), m.pixels)
 	}
 	for i, v := range frame {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
+			m.RestartLags()
 			return fmt.Errorf("%w: frame pixel %d is %v", ErrBin, i, v)
 		}
 	}
 	for _, c := range counts {
 		if c.Unit < 0 || c.Unit >= len(m.ids) || !(c.N >= 0) || math.IsInf(c.N, 0) {
+			m.RestartLags()
 			return fmt.Errorf("%w: count %v for unit index %d of %d", ErrBin, c.N, c.Unit, len(m.ids))
 		}
 	}
@@ -304,6 +312,7 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	copy(m.ring[m.head], frame)
 	_ = m.gram.AddFrame(frame) // cannot fail: the frame was checked above
 	m.log.addFrame(frame)
+	m.cal.addFrame(frame)
 	m.added++
 	if m.added < int64(m.cfg.Lags) {
 		return nil // not yet a full history: the bin is not used
@@ -321,6 +330,7 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	m.growColumns()
 	m.sta.AddBin(m.x, halfA, counts)
 	m.log.addBin(halfA, counts)
+	m.cal.addCounts(m.used-1, halfA, counts)
 	for _, c := range counts {
 		m.spikes[c.Unit] += c.N
 		m.binY[c.Unit] += c.N
@@ -363,6 +373,7 @@ func (m *Mapper) Reset() {
 	m.log.start(nil)
 	m.sta.Reset()
 	m.gram.Reset()
+	m.cal.reset()
 	m.stc = map[int]*STC{}
 	m.stcResults = map[int]*STCResult{}
 	m.stcLags = nil

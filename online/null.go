@@ -5,16 +5,21 @@ import (
 	"fmt"
 	"math"
 
+	"gonum.org/v1/gonum/mathext"
 	"gonum.org/v1/gonum/stat/distuv"
 )
 
 // Significance is the outcome of testing one unit's field against a null
 // hypothesis of no stimulus dependence.
 type Significance struct {
-	Q     float64 // the test statistic
-	DOF   float64 // degrees of freedom of the chi-square null
-	Scale float64 // under the null Q ≈ Scale·χ²_DOF (1 for the white test)
-	P     float64 // p-value; may underflow to 0
+	Q   float64 // the test statistic
+	DOF float64 // degrees of freedom of the chi-square null (the F numerator's)
+	// DenDOF is the F reference's denominator degrees of freedom when the
+	// noise variance is estimated (the posterior test); 0 for a chi-square
+	// reference (the white test, whose variance is known).
+	DenDOF float64
+	Scale  float64 // under the null Q ≈ Scale·χ²_DOF (1 for the white test)
+	P      float64 // p-value; may underflow to 0
 	// NegLog10P is −log10 P, finite (for finite Q) and non-decreasing in Q
 	// even where P underflows.
 	NegLog10P float64
@@ -244,19 +249,36 @@ func (t *WhiteTest) factor(a []float64) bool {
 	return true
 }
 
-// PosteriorTest tests a ridge estimate against the null of no stimulus
-// dependence for any stimulus, white or correlated. w are the ridge weights,
-// cross the centred cross-correlation X̃ᵀy they were solved from
-// ((λI + X̃ᵀX̃) w = X̃ᵀy), rss the residual sum of squares over n bins, and
-// t1 = Σh_i, t2 = Σh_i² the traces of the hat matrix, h_i = g_i/(g_i + λ)
-// for the eigenvalues g_i of X̃ᵀX̃.
-//
-// The statistic is Q = wᵀ(σ²P_ww)⁻¹w = wᵀX̃ᵀy/σ² with σ² = rss/(n − 1 − t1).
-// Under the null y − ȳ = σε, and Q = εᵀHε with H the hat matrix, a weighted
-// sum Σh_i χ²_1 of mean t1 and variance 2t2. It is compared with the scaled
-// chi-square of the same two moments (Satterthwaite 1946): Q ≈ g·χ²_ν with
-// g = t2/t1 and ν = t1²/t2.
+// PosteriorTest is PosteriorTestCorrected for counts without
+// autocorrelation (SpikeCorrelation{1, 1}).
 func PosteriorTest(w, cross []float64, rss float64, n int64, t1, t2 float64) (Significance, error) {
+	return PosteriorTestCorrected(w, cross, rss, n, t1, t2, SpikeCorrelation{Mean: 1, Var: 1})
+}
+
+// PosteriorTestCorrected tests a ridge estimate against the null of no
+// stimulus dependence for any stimulus, white or correlated. w are the ridge
+// weights, cross the centred cross-correlation X̃ᵀy they were solved from
+// ((λI + X̃ᵀX̃) w = X̃ᵀy), rss the residual sum of squares over n bins, and
+// t1 = Σh_i, t2 = Σh_i² the traces of the hat matrix H, h_i = g_i/(g_i + λ)
+// for the eigenvalues g_i of X̃ᵀX̃. corr corrects for the spike counts' own
+// autocorrelation (see spikeCorrelation); {1, 1} for independent counts.
+//
+// Derivation. The statistic is Q = wᵀX̃ᵀy/σ̂² = ỹᵀHỹ/σ̂². With independent
+// null residuals of variance σ², ỹᵀHỹ/σ² = Σh_i χ²_1 has mean t1 and
+// variance 2t2, and E[RSS] = σ²(n − 1 − 2t1 + t2) (the residual maker is
+// I − 1/n − H and tr((I − H)²) = n − 2t1 + t2: Hastie, Tibshirani &
+// Friedman, The Elements of Statistical Learning, §3.4.1 and §7.6), so
+// σ̂² = RSS/(n − 1 − 2t1 + t2) is unbiased. When the counts are
+// autocorrelated the quadratic form's mean and variance become
+// corr.Mean·t1 and corr.Var·2t2 (conditional on the spike train, the
+// stimulus random; see spikeCorrelation). Matching the two moments with a
+// scaled chi-square (Satterthwaite 1946), Q ≈ g·χ²_ν with
+// g = corr.Var·t2/(corr.Mean·t1) and ν = corr.Mean²·t1²/(corr.Var·t2); the
+// numerator is independent of σ̂² to first order, so F = Q/(g·ν) is compared
+// with the F distribution of ν and n − 1 − 2t1 + t2 degrees of freedom
+// rather than with χ²_ν, which overstates significance while n is not much
+// larger than t1 (early in every block, and for long at large D).
+func PosteriorTestCorrected(w, cross []float64, rss float64, n int64, t1, t2 float64, corr SpikeCorrelation) (Significance, error) {
 	res := Significance{P: 1}
 	if len(w) != len(cross) {
 		return res, fmt.Errorf("online: posterior test: %d weights, %d cross-correlations", len(w), len(cross))
@@ -264,7 +286,10 @@ func PosteriorTest(w, cross []float64, rss float64, n int64, t1, t2 float64) (Si
 	if !(t1 > 0) || !(t2 > 0) || t2 > t1*(1+1e-9) || math.IsInf(t1, 0) {
 		return res, fmt.Errorf("online: posterior test: hat traces t1 = %g, t2 = %g, want 0 < t2 ≤ t1", t1, t2)
 	}
-	dof := float64(n) - 1 - t1
+	if !(corr.Mean > 0) || !(corr.Var > 0) || math.IsInf(corr.Mean, 0) || math.IsInf(corr.Var, 0) {
+		return res, fmt.Errorf("online: posterior test: spike correlation %+v, want positive", corr)
+	}
+	dof := ResidualDOF(n, t1, t2)
 	if !(dof > 0) {
 		return res, ErrResidualDOF
 	}
@@ -276,9 +301,41 @@ func PosteriorTest(w, cross []float64, rss float64, n int64, t1, t2 float64) (Si
 	for i, v := range w {
 		q += v * cross[i]
 	}
+	mean := corr.Mean * t1
 	res.Q = q / sigma2
-	res.Scale = t2 / t1
-	res.DOF = t1 * t1 / t2
-	res.P, res.NegLog10P = ChiSquareTail(res.Q/res.Scale, res.DOF)
+	res.Scale = corr.Var * t2 / mean
+	res.DOF = mean * mean / (corr.Var * t2)
+	res.DenDOF = dof
+	res.P, res.NegLog10P = FTail(res.Q/mean, res.DOF, dof)
 	return res, nil
+}
+
+// ResidualDOF is n − 1 − 2t1 + t2, the residual degrees of freedom of a
+// ridge fit with a free intercept over n bins whose hat matrix has traces
+// t1 = tr H and t2 = tr H²: E[RSS] = σ²·ResidualDOF under independent noise
+// (Hastie, Tibshirani & Friedman, ESL §7.6).
+func ResidualDOF(n int64, t1, t2 float64) float64 { return float64(n) - 1 - 2*t1 + t2 }
+
+// FTail returns the upper tail probability P(F_{d1,d2} > f) and −log10 of
+// it, from the regularised incomplete beta function
+// (P = I_{d2/(d2+d1·f)}(d2/2, d1/2), Abramowitz & Stegun 26.6.2). Where the
+// probability falls below 1e-290 −log10 p comes from the chi-square tail of
+// d1·f with d1 degrees of freedom (the limit d2 → ∞), which is lighter, so
+// −log10 p stays non-decreasing in f.
+func FTail(f, d1, d2 float64) (p, negLog10 float64) {
+	if math.IsNaN(f) || !(d1 > 0) || !(d2 > 0) {
+		return math.NaN(), math.NaN()
+	}
+	if f <= 0 {
+		return 1, 0
+	}
+	if math.IsInf(d2, 1) {
+		return ChiSquareTail(d1*f, d1)
+	}
+	p = mathext.RegIncBeta(d2/2, d1/2, d2/(d2+d1*f))
+	if p >= tailFloor {
+		return p, -math.Log10(p)
+	}
+	_, nl := ChiSquareTail(d1*f, d1)
+	return p, math.Max(nl, -math.Log10(tailFloor))
 }

@@ -6,6 +6,8 @@ import (
 	"testing"
 
 	"gonum.org/v1/gonum/mat"
+
+	"livefield/online/internal/lnp"
 )
 
 type nullChi2Golden struct {
@@ -203,17 +205,8 @@ func TestWhiteTestErrors(t *testing.T) {
 // nullTrain generates counts independent of any stimulus.
 type nullTrain func(rng *rand.Rand, y []float64)
 
-func nullPoisson(rng *rand.Rand, mu float64) float64 {
-	// Knuth's product method; mu is small here.
-	l, k, p := math.Exp(-mu), 0.0, 1.0
-	for {
-		p *= rng.Float64()
-		if p <= l {
-			return k
-		}
-		k++
-	}
-}
+// nullPoisson is the package's one Poisson sampler (internal/lnp).
+func nullPoisson(rng *rand.Rand, mu float64) float64 { return lnp.Poisson(rng, mu) }
 
 func nullPoissonTrain(mu float64) nullTrain {
 	return func(rng *rand.Rand, y []float64) {
@@ -515,17 +508,21 @@ func TestPosteriorNullCalibration(t *testing.T) {
 }
 
 // TestPosteriorExactChiSquare: with all h_i = 1 (t1 = t2 = ν) the scaled
-// chi-square is χ²_ν itself.
+// chi-square is χ²_ν itself, and with σ² estimated the reference is
+// F(ν, n − 1 − 2t1 + t2). For ν = 2 the F tail has the closed form
+// P(F_{2,m} > f) = (1 + 2f/m)^(−m/2) (from the F density; common practice,
+// no source).
 func TestPosteriorExactChiSquare(t *testing.T) {
 	w := []float64{1, 2}
 	cross := []float64{3, 4}                          // wᵀc = 11
-	res, err := PosteriorTest(w, cross, 22, 13, 2, 2) // σ² = 22/(13−1−2) = 2.2
+	res, err := PosteriorTest(w, cross, 20, 13, 2, 2) // σ² = 20/(13−1−4+2) = 2
 	if err != nil {
 		t.Fatal(err)
 	}
-	// Q = 5; P(χ²_2 > 5) = exp(−5/2) (the χ²_2 tail is exponential).
-	if res.Q != 5 || res.DOF != 2 || res.Scale != 1 || math.Abs(res.P-math.Exp(-2.5)) > 1e-14 {
-		t.Fatalf("got %+v, want Q 5, DOF 2, Scale 1, P %g", res, math.Exp(-2.5))
+	// Q = 5.5; F = Q/2 = 2.75 on (2, 10) degrees of freedom.
+	want := math.Pow(1+2*2.75/10, -5)
+	if res.Q != 5.5 || res.DOF != 2 || res.DenDOF != 10 || res.Scale != 1 || math.Abs(res.P-want) > 1e-14 {
+		t.Fatalf("got %+v, want Q 5.5, DOF 2, DenDOF 10, Scale 1, P %g", res, want)
 	}
 	for _, tc := range []struct {
 		name   string
@@ -536,6 +533,7 @@ func TestPosteriorExactChiSquare(t *testing.T) {
 	}{
 		{"length", w[:1], 22, 13, 2, 2},
 		{"no dof", w, 22, 3, 2, 2},
+		{"no dof after 2t1", w, 22, 4, 2, 1},
 		{"t2 > t1", w, 22, 13, 2, 3},
 		{"zero t1", w, 22, 13, 0, 0},
 		{"zero rss", w, 0, 13, 2, 2},

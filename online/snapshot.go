@@ -51,36 +51,58 @@ type UnitSummary struct {
 	Status Status `json:"status"`
 	// Reliability is the Spearman–Brown corrected split-half correlation.
 	Reliability Float `json:"reliability"`
+	// PredictiveR is the cross-validated correlation between each half's
+	// spike counts and the prediction of the field estimated from the other
+	// half (mean of both directions; about 0 without a field). See predict.go.
+	PredictiveR Float `json:"predictive_r"`
 	// Significance is −log10 of the p-value of the field against the null.
 	Significance Float `json:"significance"`
 	PValue       Float `json:"p_value"`
 	// ETA is the projected seconds until Reliability reaches the target;
 	// null while it is too early to project, 0 once reached.
-	ETA       Float  `json:"eta_s"`
-	Rate      Float  `json:"rate_hz"`
-	PeakLag   int    `json:"peak_lag"`
-	LatencyMS Float  `json:"latency_ms"`
-	CentreX   Float  `json:"centre_x"`
-	CentreY   Float  `json:"centre_y"`
-	SigmaX    Float  `json:"sigma_x"`
-	SigmaY    Float  `json:"sigma_y"`
-	Polarity  int    `json:"polarity"`
-	Map       Floats `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
-	HasSTC    bool   `json:"has_stc"`
-	Flagged   bool   `json:"flagged"`
+	ETA Float `json:"eta_s"`
+	// SignificantAtSpikes is the spike count at the look that found the
+	// field significant (α spent over the block's looks); 0 before.
+	SignificantAtSpikes int64 `json:"significant_at_spikes"`
+	// NoFieldSpikes is the spike count from which a unit without a
+	// significant field is called "no field": where the smallest field
+	// (Config.SmallestField) would have been detected with 90 % probability.
+	// Null for significant units.
+	NoFieldSpikes Float `json:"no_field_spikes"`
+	// Drift is set once the unit's field differs between the first and the
+	// second half of its spikes (see drift.go);
+	// DriftP is the p-value of the last comparison, DriftFrom and DriftTo
+	// the centres (x, y in pixels) of the two halves' fields when flagged.
+	Drift     bool     `json:"drift"`
+	DriftP    Float    `json:"drift_p"`
+	DriftFrom [2]Float `json:"drift_from"`
+	DriftTo   [2]Float `json:"drift_to"`
+	Rate      Float    `json:"rate_hz"`
+	PeakLag   int      `json:"peak_lag"`
+	LatencyMS Float    `json:"latency_ms"`
+	CentreX   Float    `json:"centre_x"`
+	CentreY   Float    `json:"centre_y"`
+	SigmaX    Float    `json:"sigma_x"`
+	SigmaY    Float    `json:"sigma_y"`
+	Polarity  int      `json:"polarity"`
+	Map       Floats   `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
+	HasSTC    bool     `json:"has_stc"`
+	Flagged   bool     `json:"flagged"`
 }
 
 // UnitDetail is everything known about one unit.
 type UnitDetail struct {
 	UnitSummary
-	Shape       [3]int     `json:"shape"` // lags, height, width
-	FramePeriod Float      `json:"frame_period_s"`
-	STA         Floats     `json:"sta"`   // flattened row-major (lag, row, column)
-	Ridge       Floats     `json:"ridge"` // the exact ridge weights, same layout
-	Intercept   Float      `json:"intercept"`
-	Z           Floats     `json:"z"` // ridge weight / posterior standard deviation
-	Features    Features   `json:"features"`
-	STC         *STCResult `json:"stc,omitempty"`
+	Shape       [3]int `json:"shape"` // lags, height, width
+	FramePeriod Float  `json:"frame_period_s"`
+	STA         Floats `json:"sta"`   // flattened row-major (lag, row, column)
+	Ridge       Floats `json:"ridge"` // the exact ridge weights, same layout
+	Intercept   Float  `json:"intercept"`
+	// Z is each ridge weight over its sampling standard deviation under the
+	// null (mean z² ≈ 1 without a field; see zscore.go).
+	Z        Floats     `json:"z"`
+	Features Features   `json:"features"`
+	STC      *STCResult `json:"stc,omitempty"`
 	// STCState says what became of STC on this unit: "running" (a result
 	// is attached), "collecting: …" (too few spike-triggered samples yet),
 	// "queued for results" (enough; its turn comes), "waiting: …" (asked
@@ -101,11 +123,14 @@ type HistoryPoint struct {
 // BlockSummary tells the experimenter whether the block can stop and where
 // the next stimulus should go.
 type BlockSummary struct {
-	Units       int   `json:"units"`
-	Significant int   `json:"significant"`
-	Reliable    int   `json:"reliable"`
-	Target      Float `json:"target"`   // target reliability
-	Fraction    Float `json:"fraction"` // fraction of significant units that must be reliable
+	Units       int `json:"units"`
+	Significant int `json:"significant"`
+	Reliable    int `json:"reliable"`
+	// Drifting counts the significant units whose field moved within the
+	// block (UnitSummary.Drift).
+	Drifting int   `json:"drifting"`
+	Target   Float `json:"target"`   // target reliability
+	Fraction Float `json:"fraction"` // fraction of significant units that must be reliable
 	// ETA is the projected seconds until Fraction of the significant units
 	// reach the target (null when too early, 0 when reached).
 	ETA   Float `json:"eta_s"`

@@ -73,6 +73,9 @@ func (s *STA) Units() int { return s.units }
 // Bins is the number of bins added since the last Reset.
 func (s *STA) Bins() int64 { return s.n[0] + s.n[1] }
 
+// HalfBins is the number of bins in half A and in half B.
+func (s *STA) HalfBins() (a, b int64) { return s.n[0], s.n[1] }
+
 // Rejected counts the counts that AddBin ignored: a negative unit index or
 // a count that is negative, NaN or infinite.
 func (s *STA) Rejected() int64 { return s.rejected }

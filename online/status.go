@@ -76,6 +76,9 @@ func Summarize(units []UnitSummary, target, fraction, apertureFraction float64, 
 	var xs, ys, hs []float64
 	for i := range units {
 		u := &units[i]
+		if u.Drift && (u.Status == Reliable || u.Status == Emerging) {
+			out.Drifting++
+		}
 		switch u.Status {
 		case Reliable:
 			out.Reliable++

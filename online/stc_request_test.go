@@ -11,8 +11,9 @@ import (
 // waiting (and why) when every place holds a request (issue 12 item 4).
 func TestSTCRequestTakesPrecedence(t *testing.T) {
 	const places = 2
-	cfg := Config{Width: 4, Height: 4, Lags: 3, White: true, PixelVariance: 1, STCLags: 1, MinSpikes: 50, STCMaxUnits: places}
-	// Five units without any field: each turns "no field" after 50 spikes.
+	cfg := Config{Width: 4, Height: 4, Lags: 3, White: true, PixelVariance: 1, STCLags: 1, MinSpikes: 50, STCMaxUnits: places, SmallestField: 1}
+	// Five units without any field: each turns "no field" once a strong field
+	// (SmallestField 1) would have been detected.
 	cells := make([]lnpCell, 5)
 	for i := range cells {
 		cells[i] = lnpCell{filter: make([]float64, 4*4*3), base: 0.5}
@@ -38,40 +39,55 @@ func TestSTCRequestTakesPrecedence(t *testing.T) {
 		return s == "running" || s == "queued for results" || strings.HasPrefix(s, "collecting: ")
 	}
 
-	// The automatic units fill the places.
+	// The automatic units fill the places (which ones depends on when each
+	// turned "no field").
 	st := state()
-	if !hasPlace(st["u0"]) || !hasPlace(st["u1"]) || st["u2"] != "" || st["u4"] != "" {
-		t.Fatalf("automatic STC: states %q, want u0 and u1 with a place, the rest without", st)
+	var auto, free []string
+	for _, id := range []string{"u0", "u1", "u2", "u3", "u4"} {
+		switch {
+		case hasPlace(st[id]):
+			auto = append(auto, id)
+		case st[id] == "":
+			free = append(free, id)
+		default:
+			t.Fatalf("unit %s: state %q", id, st[id])
+		}
 	}
-	// A request takes the place of an automatic unit (the latest, u1).
-	sim.m.FlagSTC("u4", true)
+	if len(auto) != places || len(free) != 5-places {
+		t.Fatalf("automatic STC: states %q, want %d units with a place, the rest without", st, places)
+	}
+	// A request takes the place of an automatic unit (the latest by index).
+	req := free[0]
+	sim.m.FlagSTC(req, true)
 	st = state()
-	if !hasPlace(st["u4"]) {
-		t.Fatalf("requested unit u4: STC state %q, want a place (states %q)", st["u4"], st)
+	if !hasPlace(st[req]) {
+		t.Fatalf("requested unit %s: STC state %q, want a place (states %q)", req, st[req], st)
 	}
-	if st["u1"] != "" || !hasPlace(st["u0"]) {
-		t.Fatalf("after the request: states %q, want u1 dropped and u0 kept", st)
+	kept, dropped := auto[0], auto[1]
+	if st[dropped] != "" || !hasPlace(st[kept]) {
+		t.Fatalf("after the request: states %q, want %s dropped and %s kept", st, dropped, kept)
 	}
 	// Requests fill every place: a third request waits, and says why.
-	sim.m.FlagSTC("u0", true)
-	sim.m.FlagSTC("u3", true)
+	third := free[1]
+	sim.m.FlagSTC(kept, true)
+	sim.m.FlagSTC(third, true)
 	st = state()
-	if want := "waiting: all 2 STC places hold requested units"; st["u3"] != want {
-		t.Fatalf("third request: state %q, want %q", st["u3"], want)
+	if want := "waiting: all 2 STC places hold requested units"; st[third] != want {
+		t.Fatalf("third request: state %q, want %q", st[third], want)
 	}
 	// Its turn comes when a request is withdrawn.
-	sim.m.FlagSTC("u4", false)
+	sim.m.FlagSTC(req, false)
 	st = state()
-	if !hasPlace(st["u3"]) || st["u4"] != "" {
-		t.Fatalf("after withdrawing u4: states %q, want u3 with a place and u4 without", st)
+	if !hasPlace(st[third]) || st[req] != "" {
+		t.Fatalf("after withdrawing %s: states %q, want %s with a place and %s without", req, st, third, req)
 	}
 	// With enough spikes the requested units report results.
 	sim.run(3000)
 	for range 2 * stcEvery * places {
 		st = state()
 	}
-	if st["u0"] != "running" || st["u3"] != "running" {
-		t.Fatalf("after 3000 more bins: states %q, want u0 and u3 running", st)
+	if st[kept] != "running" || st[third] != "running" {
+		t.Fatalf("after 3000 more bins: states %q, want %s and %s running", st, kept, third)
 	}
 }
 

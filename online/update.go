@@ -9,12 +9,13 @@ import (
 	"sync/atomic"
 )
 
-// ridgeCommon holds the ridge quantities that every unit's statistics read
-// during one Update.
+// ridgeCommon holds the ridge and stimulus quantities that every unit's
+// statistics read during one Update.
 type ridgeCommon struct {
-	wh     []float64 // ridge weights of the half indicator
-	pdiag  []float64 // diagonal of the weights block of P
-	t1, t2 float64   // hat-matrix traces
+	wh     []float64  // ridge weights of the half indicator
+	pdiag  []float64  // sampling variance of each weight per unit σ² (zscore.go)
+	t1, t2 float64    // hat-matrix traces
+	lag    *lagShared // stimulus lag correlation, for the correlated-stimulus test
 }
 
 // scratch is one worker's buffers for per-unit statistics.
@@ -52,8 +53,9 @@ func (m *Mapper) Update() *Snapshot {
 		if !m.cfg.White {
 			m.ridge.WeightsTo(sh.wh, 0)
 		}
-		m.ridge.PosteriorDiagTo(sh.pdiag)
+		m.ridge.samplingDiagTo(sh.pdiag)
 		sh.t1, sh.t2 = m.ridge.HatTraces()
+		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda, m.ridge)
 	}
 	m.sta.CacheMeans()
 	n := len(m.ids)
@@ -112,7 +114,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	d.Flagged = m.flagged[u]
 	nan := Float(math.NaN())
 	d.Reliability, d.Significance, d.PValue, d.ETA, d.Intercept = nan, nan, nan, nan, nan
-	seconds := float64(m.used) * cfg.FramePeriod
+	seconds := m.cal.presentSeconds(u, m.used, cfg.FramePeriod) // since the unit appeared
 	d.Rate = nan
 	if seconds > 0 {
 		d.Rate = Float(m.spikes[u] / seconds)
@@ -132,27 +134,29 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	m.sta.CrossTo(s.cross, u)
 	staFromCross(s.sta, s.cross, m.sta.Spikes(u))
 
-	// Noise variance and per-coefficient z from the ridge posterior σ²P.
-	dof := float64(m.used) - 1 - sh.t1
+	// Noise variance; per-coefficient z from the sampling variance (zscore.go).
+	dof := ResidualDOF(m.used, sh.t1, sh.t2)
 	sigma2, rss := math.NaN(), math.NaN()
 	if dof > 0 {
 		rss = math.Max(m.ridge.Objective(m.colY(u))-cfg.Lambda*dot(s.w, s.w), 0)
 		sigma2 = rss / dof
 	}
-	for i := range s.z {
-		s.z[i] = s.w[i] / math.Sqrt(sigma2*sh.pdiag[i])
-		if math.IsNaN(s.z[i]) || math.IsInf(s.z[i], 0) {
-			s.z[i] = 0
-		}
-	}
 
 	// Significance: the white-noise STA null, or the ridge posterior.
 	var sig Significance
 	var err error
+	corr, perSpike := m.cal.correction(sh.lag, cfg.Lags, u, m.used, m.spikes[u])
+	for i := range s.z {
+		s.z[i] = s.w[i] / math.Sqrt(sigma2*corr.Mean*sh.pdiag[i])
+		if math.IsNaN(s.z[i]) || math.IsInf(s.z[i], 0) {
+			s.z[i] = 0
+		}
+	}
 	if cfg.White {
 		sig, err = s.white.Unit(nil, m.sta, u, cfg.PixelVariance)
+		corr = SpikeCorrelation{Mean: 1, Var: 1} // the white test whitens exactly
 	} else {
-		sig, err = PosteriorTest(s.w, s.cross, rss, m.used, sh.t1, sh.t2)
+		sig, err = PosteriorTestCorrected(s.w, s.cross, rss, m.used, sh.t1, sh.t2, corr)
 	}
 	p := 1.0
 	if err == nil {
@@ -162,7 +166,12 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		d.Significance = 0
 	}
 	d.PValue = Float(p)
-	significant := p < cfg.Alpha
+	// Significance is decided at looks spending α over the block (sequential.go).
+	look := &m.cal.looks[u]
+	significant := look.update(m.spikes[u], p, cfg.Alpha)
+	d.SignificantAtSpikes = look.at
+	noField := m.cal.noFieldSpikes(u, m.updates, cfg, m.dim, corr, perSpike, significant)
+	d.NoFieldSpikes = Float(noField)
 
 	// Split halves: for a white stimulus the STAs of the two halves, which
 	// are independent and each proportional to the filter; otherwise the
@@ -176,6 +185,9 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	lo, hi := m.reliabilityWindow(s.w, significant)
 	_, R := SplitHalf(s.ha[lo:hi], s.hb[lo:hi])
 	d.Reliability = Float(R)
+	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.sta, s.cross))
+	m.sta.STATo(s.sta, u) // the scratch is reused below
+	m.checkDrift(d, u, significant, lo, hi, sh, s)
 
 	// The shape (centre, extent, separable profiles) is recomputed on the
 	// unit's turn or when its significance changed, else kept.
@@ -201,8 +213,8 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	d.Polarity = d.Features.Polarity
 	d.Map = d.Features.Map
 
-	reached := significant && R >= cfg.Target
-	d.Status = Classify(int64(m.spikes[u]), cfg.MinSpikes, significant, reached)
+	reached := significant && persistentlyAbove(m.history[u], float64(d.Spikes), R, cfg.Target)
+	d.Status = Classify(int64(m.spikes[u]), max(cfg.MinSpikes, int64(math.Min(noField, math.MaxInt64/2))), significant, reached)
 	trend := m.trends[u]
 	if last, _, ok := trend.Latest(); !math.IsNaN(R) && (!ok || m.spikes[u] > last) {
 		trend.Add(m.spikes[u], R)

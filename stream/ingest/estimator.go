@@ -140,7 +140,7 @@ func (e *estimator) apply(ev *event, counts []online.Count) {
 		}
 	case evGap:
 		if e.mapper != nil {
-			e.mapper.RestartHistory()
+			e.mapper.RestartLags()
 		}
 	case evSync:
 		if e.mapper != nil {
@@ -158,12 +158,13 @@ func (e *estimator) addBin(ev *event, counts []online.Count) {
 		return
 	}
 	err := e.src.FrameTo(e.frame, ev.frame)
-	if err == nil {
+	if err != nil {
+		e.mapper.RestartLags() // AddBin does so itself when it refuses a bin
+	} else {
 		err = e.mapper.AddBin(e.frame, counts)
 	}
 	if err != nil {
 		e.refused++
-		e.mapper.RestartHistory()
 		e.c.reject(ReasonBadBin, fmt.Errorf("ingest: bin of frame %d refused: %w", ev.frame, err))
 		return
 	}
