@@ -18,8 +18,8 @@ import (
 // unit's D sums per spike, which at hundreds of units is bound by memory):
 // AddBin keeps the lagged rows of up to staBatchBins bins of each half and
 // the units' counts in them, and folds them into the sums by one product on
-// the matrix kernel (counts × rows) when the batch is full and before any
-// read of the sums. Per bin it costs a copy of x and D additions for the
+// the matrix kernel (counts × rows, spread over the cores by fastmat.MulAdd)
+// when the batch is full and before any read of the sums. Per bin it costs a copy of x and D additions for the
 // stimulus sums; per batch 2·units·D·bins flops at the kernel's speed. Units
 // are indices 0…Units()−1 and grow when a larger index arrives (a new unit's
 // earlier counts are zero). An STA is not safe for concurrent use, except
@@ -50,7 +50,6 @@ type STA struct {
 	batchRows [2][]float64
 	batchY    [2][]float64
 	batchN    [2]int
-	buf       fastmat.Buf
 }
 
 // staBatchBins is the number of bins of a half folded into the cross sums
@@ -155,7 +154,7 @@ func (s *STA) flushHalf(h int) {
 	}
 	d, c := s.dim, s.batchCap
 	if s.units > 0 && d > 0 {
-		s.buf.MulAdd(s.units, d, n, 1, s.batchY[h], c, s.batchRows[h], d, s.data[h*d:], s.stride)
+		fastmat.MulAdd(s.units, d, n, 1, s.batchY[h], c, s.batchRows[h], d, s.data[h*d:], s.stride)
 	}
 	for u := range s.units {
 		clear(s.batchY[h][u*c : u*c+n])
