@@ -16,14 +16,15 @@ import (
 //
 // The cross sums Σ y x of a unit are not added bin by bin (one pass over the
 // unit's D sums per spike, which at hundreds of units is bound by memory):
-// AddBin keeps the lagged rows of up to staBatchBins bins of each half and
-// the units' counts in them, and folds them into the sums by one product on
-// the matrix kernel (counts × rows, spread over the cores by fastmat.MulAdd)
-// when the batch is full and before any read of the sums. Per bin it costs a copy of x and D additions for the
-// stimulus sums; per batch 2·units·D·bins flops at the kernel's speed. Units
-// are indices 0…Units()−1 and grow when a larger index arrives (a new unit's
-// earlier counts are zero). An STA is not safe for concurrent use, except
-// for reads from several goroutines after CacheMeans.
+// AddBin keeps the lagged rows of up to 256 bins of each half and the units'
+// counts in them, and folds them into the sums by one product on the matrix
+// kernel (counts × rows, spread over the cores by fastmat.MulAdd) when the
+// batch is full and before any read of the sums. Per bin it costs a copy of
+// x and D additions for the stimulus sums; per batch 2·units·D·bins flops at
+// the kernel's speed. Units are indices 0…Units()−1 and grow when a larger
+// index arrives (a new unit's earlier counts are zero). An STA is not safe
+// for concurrent use, except for reads from several goroutines after
+// CacheMeans.
 type STA struct {
 	pixels, lags, dim int
 
@@ -53,9 +54,10 @@ type STA struct {
 }
 
 // staBatchBins is the number of bins of a half folded into the cross sums
-// by one product: enough for the kernel to run near its peak, small enough
-// that the rows (batchCap·D values) stay near the cache.
-const staBatchBins = 128
+// by one product: the kernel's inner block (one packed slab), so that the
+// sums (units·D values, streamed from memory by every fold) are passed once
+// per 256 bins.
+const staBatchBins = 256
 
 // Layout of one unit's block in STA.data.
 const (
