@@ -143,6 +143,7 @@ func (m *Mapper) resolve() error {
 	cross := make([]float64, cols*n)
 	yy := make([]float64, cols)
 	s := m.sta
+	s.Flush() // the cross sums are read below
 	// colTo writes [Σ y x; Σ y] for unit u: both halves, or half A only.
 	colTo := func(dst []float64, u int, onlyA bool) {
 		if u >= s.units {

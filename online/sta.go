@@ -5,6 +5,8 @@ import (
 	"math"
 
 	gfloats "gonum.org/v1/gonum/floats"
+
+	"livefield/online/internal/fastmat"
 )
 
 // STA accumulates, for every unit, the sums behind the spike-triggered
@@ -12,10 +14,17 @@ import (
 // the spike-count autocovariance at lags 0…L−1 that the white-noise null
 // needs (see WhiteTest).
 //
-// Per bin it costs D = pixels·lags for the stimulus sums plus D for each
-// unit with spikes in the bin; units without spikes cost nothing. Units are
-// indices 0…Units()−1 and grow when a larger index arrives (a new unit's
-// earlier counts are zero). An STA is not safe for concurrent use.
+// The cross sums Σ y x of a unit are not added bin by bin (one pass over the
+// unit's D sums per spike, which at hundreds of units is bound by memory):
+// AddBin keeps the lagged rows of up to 256 bins of each half and the units'
+// counts in them, and folds them into the sums by one product on the matrix
+// kernel (counts × rows, spread over the cores by fastmat.MulAdd) when the
+// batch is full and before any read of the sums. Per bin it costs a copy of
+// x and D additions for the stimulus sums; per batch 2·units·D·bins flops at
+// the kernel's speed. Units are indices 0…Units()−1 and grow when a larger
+// index arrives (a new unit's earlier counts are zero). An STA is not safe
+// for concurrent use, except for reads from several goroutines after
+// CacheMeans.
 type STA struct {
 	pixels, lags, dim int
 
@@ -34,7 +43,21 @@ type STA struct {
 	// valid while the bin counts equal meanN.
 	mean  [3][]float64
 	meanN [2]int64
+
+	// The batch of bins not yet in the cross sums, per half: the lagged rows
+	// (batchCap rows of D) and the counts (one row of batchCap per unit,
+	// column j = bin j of the batch).
+	batchCap  int
+	batchRows [2][]float64
+	batchY    [2][]float64
+	batchN    [2]int
 }
+
+// staBatchBins is the number of bins of a half folded into the cross sums
+// by one product: the kernel's inner block (one packed slab), so that the
+// sums (units·D values, streamed from memory by every fold) are passed once
+// per 256 bins.
+const staBatchBins = 256
 
 // Layout of one unit's block in STA.data.
 const (
@@ -52,11 +75,12 @@ func NewSTA(pixels, lags int) *STA {
 	pixels, lags = max(pixels, 0), max(lags, 0)
 	d := pixels * lags
 	return &STA{
-		pixels: pixels,
-		lags:   lags,
-		dim:    d,
-		sumX:   [2][]float64{make([]float64, d), make([]float64, d)},
-		stride: 2*d + 3*lags,
+		pixels:   pixels,
+		lags:     lags,
+		dim:      d,
+		sumX:     [2][]float64{make([]float64, d), make([]float64, d)},
+		stride:   2*d + 3*lags,
+		batchCap: staBatchBins,
 	}
 }
 
@@ -112,6 +136,35 @@ func (s *STA) Grow(units int) {
 	}
 	s.sy = append(s.sy, make([][2]float64, add)...)
 	s.units = units
+	for h, old := range s.batchY { // one row per unit: the old rows stay
+		s.batchY[h] = make([]float64, units*s.batchCap)
+		copy(s.batchY[h], old)
+	}
+}
+
+// Flush folds the batched bins into the cross sums. Reads call it
+// themselves; CacheMeans too, so that reads from several goroutines after it
+// find nothing to fold.
+func (s *STA) Flush() {
+	s.flushHalf(0)
+	s.flushHalf(1)
+}
+
+// flushHalf adds counts × rows of half h's batch to the half's cross sums
+// (unit u's at data[u·stride + h·D], stride apart) and empties the batch.
+func (s *STA) flushHalf(h int) {
+	n := s.batchN[h]
+	if n == 0 {
+		return
+	}
+	d, c := s.dim, s.batchCap
+	if s.units > 0 && d > 0 {
+		fastmat.MulAdd(s.units, d, n, 1, s.batchY[h], c, s.batchRows[h], d, s.data[h*d:], s.stride)
+	}
+	for u := range s.units {
+		clear(s.batchY[h][u*c : u*c+n])
+	}
+	s.batchN[h] = 0
 }
 
 // block returns the section of unit u's storage that starts at part.
@@ -144,6 +197,11 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 	}
 	k := s.n[0] + s.n[1]               // index of this bin
 	gfloats.Add(s.sumX[h][:len(x)], x) // gonum's vector kernels: this is the message path
+	if s.batchRows[h] == nil {
+		s.batchRows[h] = make([]float64, s.batchCap*s.dim)
+	}
+	j := s.batchN[h] // column of this bin in the batch
+	copy(s.batchRows[h][j*s.dim:(j+1)*s.dim], x)
 	L := int64(s.lags)
 	for _, c := range counts {
 		y := c.N
@@ -158,7 +216,7 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 		if u >= s.units {
 			s.Grow(u + 1)
 		}
-		gfloats.AddScaled(s.block(u, staA+h)[:len(x)], y, x)
+		s.batchY[h][u*s.batchCap+j] += y
 		s.sy[u][h] += y
 		if s.lags == 0 {
 			continue
@@ -187,6 +245,9 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 		}
 	}
 	s.n[h]++
+	if s.batchN[h]++; s.batchN[h] == s.batchCap {
+		s.flushHalf(h)
+	}
 }
 
 // meanTo writes the mean stimulus of the given halves into dst.
@@ -207,6 +268,7 @@ func (s *STA) meanTo(dst []float64, halves ...int) bool {
 // reading many units from several goroutines: the reads then share the
 // cache without writing to it.
 func (s *STA) CacheMeans() {
+	s.Flush()
 	for i := range s.mean {
 		if len(s.mean[i]) != s.dim {
 			s.mean[i] = make([]float64, s.dim)
@@ -264,6 +326,7 @@ func (s *STA) STATo(dst []float64, u int) {
 func (s *STA) HalvesTo(a, b []float64, u int) {
 	s.checkDst("HalvesTo", a)
 	s.checkDst("HalvesTo", b)
+	s.Flush()
 	ya, yb := s.HalfSpikes(u)
 	for h, dst := range [2][]float64{a, b} {
 		ny := [2]float64{ya, yb}[h]
@@ -289,6 +352,7 @@ func (s *STA) CrossTo(dst []float64, u int) {
 		clear(dst)
 		return
 	}
+	s.Flush()
 	s.meanTo(dst, 0, 1)
 	a, b := s.block(u, staA), s.block(u, staB)
 	for i := range dst {
@@ -339,6 +403,10 @@ func (s *STA) Reset() {
 		s.stamp[i] = -1
 	}
 	clear(s.sy)
+	for h := range s.batchY {
+		clear(s.batchY[h])
+		s.batchN[h] = 0
+	}
 	s.rejected = 0
 	s.meanN = [2]int64{-1, -1} // the cached means are stale
 }

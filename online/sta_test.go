@@ -58,15 +58,37 @@ func staCloseTo(t *testing.T, what string, got, want []float64, tol float64) {
 
 // TestSTAGolden compares the running sums with numpy's direct computation
 // (testdata/golden/sta_golden.py). Unit 2's counts are fed split in two
-// entries per bin, units in reverse order, to check that counts add.
+// entries per bin, units in reverse order, to check that counts add. The
+// 78 bins fit in one batch of the cross sums; the other cases cut them into
+// batches of 16 and of 1 bin, and fold a partial batch by a read in the
+// middle of the stream.
 func TestSTAGolden(t *testing.T) {
+	for _, tc := range []struct {
+		name   string
+		batch  int
+		readAt int // bin before which CrossTo is called (−1: never)
+	}{
+		{"one batch", staBatchBins, -1},
+		{"batches of 16", 16, -1},
+		{"batches of 16, read at bin 41", 16, 41},
+		{"bin by bin", 1, -1},
+	} {
+		t.Run(tc.name, func(t *testing.T) { staGoldenCase(t, tc.batch, tc.readAt) })
+	}
+}
+
+func staGoldenCase(t *testing.T, batch, readAt int) {
 	var g staGoldenFile
 	staLoadJSON(t, "sta_golden.json", &g)
 	s := NewSTA(g.Pixels, g.Lags)
+	s.batchCap = batch
 	D := g.Pixels * g.Lags
 	x := make([]float64, D)
 	var counts []Count
 	for k := range g.HalfA {
+		if k == readAt {
+			s.CrossTo(make([]float64, D), 0)
+		}
 		staLagged(x, g.Frames, k+g.Lags-1, g.Lags)
 		counts = counts[:0]
 		for u := len(g.Counts) - 1; u >= 0; u-- {

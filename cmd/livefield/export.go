@@ -5,7 +5,9 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"os"
 	"path/filepath"
+	"runtime/pprof"
 	"time"
 
 	"livefield/online"
@@ -17,9 +19,21 @@ func runExport(ctx context.Context, fs *flag.FlagSet, args []string, stdout, std
 	block := fs.String("block", "", "block to export (default: the last one)")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
 	lambdaFlag := fs.String("lambda", "0", "ridge penalty λ; 0 takes the default, 100 × the stimulus pixel variance; \"evidence\" first chooses it by empirical Bayes on the exported block (one more pass)")
+	cpuProfile := fs.String("cpuprofile", "", "write a CPU profile of the export to this `file` (for developers)")
 	file, err := fileArg(fs, args)
 	if err != nil {
 		return err
+	}
+	if *cpuProfile != "" {
+		pf, err := os.Create(*cpuProfile)
+		if err != nil {
+			return err
+		}
+		defer pf.Close()
+		if err := pprof.StartCPUProfile(pf); err != nil {
+			return err
+		}
+		defer pprof.StopCPUProfile()
 	}
 	if *out == "" {
 		return fmt.Errorf("--out is required (e.g. --out %s-export)", filepath.Base(file))

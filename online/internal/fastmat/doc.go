@@ -4,6 +4,9 @@
 // golang.org/x/sys/cpu, edge blocks computed through zero-padded scratch, a
 // pure-Go path for CPUs without those features, plus a small fixed pool of worker goroutines that spreads
 // independent tasks over runtime.GOMAXPROCS cores without allocating.
+// InvertSPD inverts a symmetric positive definite matrix by a blocked
+// Cholesky factorisation, triangular inverse and product, nearly all of it
+// on the kernel (gonum's LAPACK is its reference in the tests).
 //
 // # Goroutines
 //
