@@ -67,7 +67,7 @@ func BenchmarkRidgeFlush(b *testing.B) {
 // (16×16 pixels × 12 lags, D = 3072, 769 columns) from the statistics of
 // 4000 bins of binary noise: the Gram from a LagGram, the blocked Cholesky
 // and inverse (fastmat.InvertSPD), the weights. GFLOPs-lapack is D³ over the
-// time, the rate behind the cost model's lapackFlops (the factorisation and
+// time, the rate behind the cost model's resolveFlops (the factorisation and
 // the inverse dominate).
 func BenchmarkRidgeAnchor(b *testing.B) {
 	const pixels, lags, cols, bins = 256, 12, 769, 4000

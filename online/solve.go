@@ -27,14 +27,16 @@ type SolveInfo struct {
 // The cost model that picks the route. Rates were measured on the reference
 // machine class (2-core x86 with AVX2+FMA, both cores): the fastmat kernel
 // runs the block update's products at 33–36 GFLOP/s (BenchmarkMulAdd and
-// BenchmarkRidgeFlush); the whole re-solve (gonum's Dpotrf + Dpotri, D³
-// flops together, with the Gram and the weights) at about 5 GFLOP/s counted
-// as D³ over its time (BenchmarkRidgeAnchor: 5.8 s at D = 3072). A machine
+// BenchmarkRidgeFlush); the whole re-solve (the blocked Cholesky and
+// inverse on the same kernel, fastmat.InvertSPD, D³ flops together, with
+// the Gram and the weights) at about 14 GFLOP/s counted as D³ over its time
+// (BenchmarkRidgeAnchor: 2.1 s at D = 3072 with the AVX2 kernel, 1.5 s with
+// AVX-512). A machine
 // with other rates picks a route that is slower than it could be, never a
 // wrong result: both routes are exact.
 const (
 	kernelFlops = 33e9
-	lapackFlops = 5e9
+	resolveFlops = 14e9
 )
 
 // woodburySeconds is the predicted time of the block update over b rows at
@@ -48,7 +50,7 @@ func woodburySeconds(d, b int) float64 {
 // for the weights.
 func resolveSeconds(d, cols int) float64 {
 	fd := float64(d)
-	return fd*fd*fd/lapackFlops + 2*fd*fd*float64(cols)/kernelFlops
+	return fd*fd*fd/resolveFlops + 2*fd*fd*float64(cols)/kernelFlops
 }
 
 // maxLogBytes bounds the memory of the bin log (frames and counts).
