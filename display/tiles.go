@@ -79,9 +79,17 @@ type tileUnit struct {
 	Polarity     int           `json:"polarity"`
 	HasSTC       bool          `json:"has_stc,omitempty"`
 	Flagged      bool          `json:"flagged,omitempty"`
-	Map          any           `json:"map,omitempty"` // []int8, or levels when a value is undefined
-	MapShape     *[2]int       `json:"map_shape,omitempty"`
-	MapMax       short         `json:"map_max,omitempty"`
+	PredictiveR  short         `json:"predictive_r"`
+	// NoFieldSpikes is the count from which "no field" may be said (absent
+	// once the unit is significant); Drift, with the centres of the field
+	// early and late in the block, when the field moved.
+	NoFieldSpikes short     `json:"no_field_spikes,omitempty"`
+	Drift         bool      `json:"drift,omitempty"`
+	DriftFrom     *[2]short `json:"drift_from,omitempty"`
+	DriftTo       *[2]short `json:"drift_to,omitempty"`
+	Map           any       `json:"map,omitempty"` // []int8, or levels when a value is undefined
+	MapShape      *[2]int   `json:"map_shape,omitempty"`
+	MapMax        short     `json:"map_max,omitempty"`
 }
 
 // tilesOf converts s for a browser at density d.
@@ -104,6 +112,11 @@ func tilesOf(s *online.Snapshot, d Density) *tileSnapshot {
 			Rate: short(u.Rate), PeakLag: u.PeakLag, LatencyMS: short(u.LatencyMS),
 			CentreX: short(u.CentreX), CentreY: short(u.CentreY), SigmaX: short(u.SigmaX), SigmaY: short(u.SigmaY),
 			Polarity: u.Polarity, HasSTC: u.HasSTC, Flagged: u.Flagged,
+			PredictiveR: short(u.PredictiveR), NoFieldSpikes: short(u.NoFieldSpikes), Drift: u.Drift,
+		}
+		if u.Drift {
+			t.DriftFrom = &[2]short{short(u.DriftFrom[0]), short(u.DriftFrom[1])}
+			t.DriftTo = &[2]short{short(u.DriftTo[0]), short(u.DriftTo[1])}
 		}
 		if d != Compact && len(u.Map) == width*height && width > 0 && height > 0 {
 			m, h, w := u.Map, height, width

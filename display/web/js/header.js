@@ -14,9 +14,10 @@ export function renderHeader(s) {
   let rate = 0, any = false;
   for (const u of s.units || []) if (u.rate_hz !== null && isFinite(u.rate_hz)) { rate += u.rate_hz; any = true; }
   $('rate').textContent = any ? rate.toFixed(rate < 100 ? 1 : 0) : '—';
-  $('reliable').textContent = (b.reliable || 0) + ' of ' + (b.units || 0);
+  $('reliable').textContent = (b.reliable || 0) + ' of ' + (b.units || 0) + (b.drifting ? ' · ' + b.drifting + ' drifting' : '');
   $('reliable').title = (b.significant || 0) + ' units with a significant field; the block needs ' +
-    Math.round(100 * (b.fraction || 0)) + '% of them at reliability ' + num(b.target, 2);
+    Math.round(100 * (b.fraction || 0)) + '% of them at reliability ' + num(b.target, 2) +
+    (b.drifting ? '; ' + b.drifting + ' significant units whose field moved within the block (the electrode may be drifting)' : '');
   $('eta').textContent = b.ready ? 'reached' : eta(b.eta_s);
   $('ready').hidden = !b.ready;
   // Show the criterion in force, unless the experimenter is editing it: an

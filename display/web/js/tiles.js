@@ -136,14 +136,21 @@ export function renderOverview(s, open) {
     t.badge.textContent = st.word;
     t.rel.textContent = (d === 'large' ? 'r ' : '') + num(u.reliability, 2);
     t.rel.title = 'split-half reliability (Spearman–Brown corrected)';
-    t.sub.textContent = (u.spikes || 0) + ' sp' + (u.flagged ? ' · STC' : '');
+    t.sub.textContent = (u.spikes || 0) + ' sp' + (u.flagged ? ' · STC' : '') + (u.drift ? ' · drift' : '');
+    t.sub.classList.toggle('warn', !!u.drift);
     const r = u.reliability !== null && isFinite(u.reliability) ? Math.max(0, Math.min(1, u.reliability)) : 0;
     t.bar.style.width = (100 * r) + '%';
     t.tick.style.left = (100 * (target || 0)) + '%';
     t.el.title = 'unit ' + u.id + ': ' + st.word + ', reliability ' + num(u.reliability, 3) +
       ', −log10 p ' + num(u.significance, 1) + ', ' + (u.spikes || 0) + ' spikes, ' + num(u.rate_hz, 1) +
       ' spikes/s, peak lag ' + u.peak_lag + ' (' + num(u.latency_ms, 0) + ' ms), ETA ' + eta(u.eta_s) +
-      (u.flagged ? ', STC requested' : '');
+      (u.flagged ? ', STC requested' : '') +
+      (typeof u.predictive_r === 'number' ? ', predictive r ' + num(u.predictive_r, 2) : '') +
+      (u.status === 'collecting' && typeof u.no_field_spikes === 'number'
+        ? '; "no field" can be said from ' + Math.round(u.no_field_spikes) + ' spikes, when a weak field would have shown' : '') +
+      (u.drift && u.drift_from && u.drift_to
+        ? '; DRIFT: the field moved from (' + num(u.drift_from[0], 1) + ', ' + num(u.drift_from[1], 1) + ') early in the block to (' +
+          num(u.drift_to[0], 1) + ', ' + num(u.drift_to[1], 1) + ') late' : '');
     const m = tileMap(u);
     if (m) paintMap(t.canvas, m.values, m.width, m.height, maxAbs(m.values));
   });
