@@ -8,7 +8,9 @@ import (
 	"testing"
 	"time"
 
+	"livefield/online"
 	"livefield/stream/npy"
+	"livefield/stream/stimulus"
 	"livefield/stream/wire"
 )
 
@@ -90,3 +92,15 @@ func TestNonFiniteMoviePixel(t *testing.T) {
 
 func itoa(i int) string     { return strconv.Itoa(i) }
 func ftoa(v float64) string { return strconv.FormatFloat(v, 'g', -1, 64) }
+
+// TestOneSetOfSizeLimits: the wire decoder, the stimulus specs and the
+// mapper refuse sizes at the same bounds, so that nothing the wire accepts
+// is refused later as bad-config for its lags or frame size alone.
+func TestOneSetOfSizeLimits(t *testing.T) {
+	if wire.MaxLags != online.MaxLags {
+		t.Errorf("wire.MaxLags %d, online.MaxLags %d", wire.MaxLags, online.MaxLags)
+	}
+	if stimulus.MaxPixels != online.MaxPixels {
+		t.Errorf("stimulus.MaxPixels %d, online.MaxPixels %d", stimulus.MaxPixels, online.MaxPixels)
+	}
+}

@@ -13,7 +13,7 @@
 //
 // ParseSpec decodes such JSON strictly (unknown fields are errors);
 // Validate checks a Spec built in Go. Limits: width and height 1…1024
-// (MaxSide), at most 1<<20 pixels per frame (MaxPixels), contrast finite and
+// (MaxSide), at most 1<<16 pixels per frame (MaxPixels, the mapper's limit), contrast finite and
 // > 0. An omitted contrast (0 in a Spec built in Go) means 1; a contrast
 // given explicitly as 0 in JSON is an error. For sparse noise, size
 // (default 1) must divide width and height, and squares (default 1) is

@@ -14,7 +14,7 @@ import (
 // mistyped specs from asking for huge frames.
 const (
 	MaxSide    = 1024    // width or height in pixels
-	MaxPixels  = 1 << 20 // pixels per frame
+	MaxPixels  = 1 << 16 // pixels per frame: online.MaxPixels (a test in stream/ingest holds them equal)
 	MaxSquares = 1024    // sparse squares per frame
 )
 

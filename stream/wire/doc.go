@@ -53,7 +53,7 @@
 //	unknown-kind      a block kind other than "start" and "end"
 //	unknown-command   a control command this version does not know
 //	bad-stimulus      a start whose stimulus is not a JSON object
-//	bad-lags          lags not an integer in 1…256
+//	bad-lags          lags not an integer in 1…64
 //	bad-frame-period  frame_period not in (0, 10] seconds
 //	bad-geometry      geometry without both lengths positive and finite
 //	bad-criterion     a criterion target or fraction outside (0, 1]

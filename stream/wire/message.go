@@ -16,8 +16,10 @@ const (
 	MaxID = 64
 	// DefaultLags is the number of lags of a block start that omits "lags".
 	DefaultLags = 12
-	// MaxLags is the largest "lags" accepted.
-	MaxLags = 256
+	// MaxLags is the largest "lags" accepted: online.MaxLags, the mapper's
+	// own limit (wire depends on nothing, so the number is repeated here and
+	// a test in stream/ingest holds the two equal).
+	MaxLags = 64
 	// DefaultFramePeriod is the frame period (seconds) of a block start that
 	// omits "frame_period": one frame of a 60 Hz display.
 	DefaultFramePeriod = 1.0 / 60
