@@ -1,0 +1,87 @@
+package online
+
+import (
+	"math"
+	"testing"
+)
+
+// TestSplitHalfNullThroughMapper: for null units the split-half r of the
+// mapper's own halves centres on zero, on white noise (the STA halves) and
+// on a correlated movie (the ridge fits of each half's counts, corrected for
+// the half indicator's own fit): the mean over 240 units lies within four
+// standard errors of zero (central limit theorem; common practice, no
+// source). Without the half-indicator correction (halvesTo's ȳ·w_h terms)
+// the movie's mean r fell to −0.088 (4 standard errors: 0.033) and the
+// test failed.
+func TestSplitHalfNullThroughMapper(t *testing.T) {
+	const w, h, lags, units = 6, 6, 4, 240
+	cases := []struct {
+		name string
+		cfg  Config
+	}{
+		{"white", Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1}},
+		{"movie", Config{Width: w, Height: h, Lags: lags, Lambda: 20}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			cells := make([]lnpCell, units)
+			zero := make([]float64, w*h*lags)
+			for i := range cells {
+				cells[i] = lnpCell{filter: zero, base: 0.1 + 0.3*float64(i%4)/3}
+			}
+			fr := binaryFrame
+			if !c.cfg.White {
+				fr = smoothFrames(w, h)
+			}
+			sim := newSimulation(t, c.cfg, cells, 41, fr)
+			sim.run(60 * 60)
+			snap := sim.m.Update()
+			var rs []float64
+			for _, u := range snap.Units {
+				if R := float64(u.Reliability); !math.IsNaN(R) {
+					rs = append(rs, R/(2-R))
+				}
+			}
+			if len(rs) < units/2 {
+				t.Fatalf("only %d of %d units have a reliability", len(rs), units)
+			}
+			var m, v float64
+			for _, r := range rs {
+				m += r
+			}
+			m /= float64(len(rs))
+			for _, r := range rs {
+				v += (r - m) * (r - m)
+			}
+			se := math.Sqrt(v/float64(len(rs)-1)) / math.Sqrt(float64(len(rs)))
+			if math.Abs(m) > 4*se {
+				t.Errorf("mean null split-half r = %.4f, want 0 ± %.4f (4 standard errors)", m, 4*se)
+			}
+			t.Logf("mean null r %.4f ± %.4f (se) over %d units", m, se, len(rs))
+		})
+	}
+}
+
+// TestReliabilityWindowIgnoresOwnPeakBeforeSignificance: before a unit is
+// significant its split-half window sits on the population's peak lag, not
+// on its own (whose noise would pick the lags where its halves happen to
+// agree, biasing r upward under the null); once significant, on its own.
+func TestReliabilityWindowIgnoresOwnPeakBeforeSignificance(t *testing.T) {
+	m, err := NewMapper(Config{Width: 4, Height: 4, Lags: 8, White: true, PixelVariance: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	m.popPeak = 2
+	w := make([]float64, 16*8)
+	for i := 6 * 16; i < 7*16; i++ {
+		w[i] = 5 // all the energy at lag 6
+	}
+	lo, hi := m.reliabilityWindow(w, false)
+	if lo != 1*16 || hi != 4*16 {
+		t.Errorf("not significant: window [%d, %d), want lags 1…3 around the population's peak lag 2", lo, hi)
+	}
+	lo, hi = m.reliabilityWindow(w, true)
+	if lo != 5*16 || hi != 8*16 {
+		t.Errorf("significant: window [%d, %d), want lags 5…7 around its own peak lag 6", lo, hi)
+	}
+}
