@@ -35,7 +35,7 @@ type SolveInfo struct {
 // with other rates picks a route that is slower than it could be, never a
 // wrong result: both routes are exact.
 const (
-	kernelFlops = 33e9
+	kernelFlops  = 33e9
 	resolveFlops = 14e9
 )
 
