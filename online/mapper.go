@@ -34,7 +34,8 @@ type Config struct {
 	Prior PriorOptions
 	// PriorInline > 0 runs that many units' smooth-local fits inside each
 	// Update instead of on a background worker, so that the estimates are
-	// reproducible (tests, replays); 0 fits in the background.
+	// reproducible (tests, replays); PriorInlineAll fits every significant
+	// unit in every Update (exports); 0 fits in the background.
 	PriorInline int
 	// NoPrior turns the smooth-local estimate off.
 	NoPrior bool
@@ -93,7 +94,7 @@ func (c Config) withDefaults() (Config, error) {
 	if c.Prior.FirstEvaluations == 0 {
 		c.Prior.FirstEvaluations = priorLiveFirst
 	}
-	if _, err := NewPriorFitter(c.Width, c.Height, max(c.Lags, 1), c.Prior); err != nil || c.PriorInline < 0 {
+	if _, err := NewPriorFitter(c.Width, c.Height, max(c.Lags, 1), c.Prior); err != nil || c.PriorInline < PriorInlineAll {
 		return c, fmt.Errorf("%w: prior options %+v, inline %d", ErrConfig, c.Prior, c.PriorInline)
 	}
 	if c.STCMaxUnits == 0 {

@@ -33,6 +33,10 @@ const (
 	priorLiveFirst       = 20
 )
 
+// PriorInlineAll as Config.PriorInline fits every significant unit inside
+// every Update.
+const PriorInlineAll = -1
+
 // The names of the estimates a unit's status can come from
 // (UnitSummary.Estimate).
 const (
@@ -302,11 +306,14 @@ func (m *Mapper) livePrior(details []*UnitDetail) {
 	}
 	if !ps.closed {
 		if job := m.priorJob(details); job != nil {
-			if m.cfg.PriorInline > 0 {
+			if n := m.cfg.PriorInline; n != 0 {
 				if ps.inline == nil {
 					ps.inline = newPriorRunner(m.cfg)
 				}
-				for range m.cfg.PriorInline {
+				if n < 0 {
+					n = len(job.units)
+				}
+				for range n {
 					i := ps.inline.pick(job)
 					if i < 0 {
 						break
