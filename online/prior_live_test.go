@@ -183,24 +183,46 @@ func TestMapperPriorBackground(t *testing.T) {
 }
 
 // TestMapperPriorExplore logs r against time for each estimate through the
-// mapper. Set LIVEFIELD_PRIOR_LIVE=1.
+// mapper at the demo's settings. Set LIVEFIELD_PRIOR_LIVE=1.
 func TestMapperPriorExplore(t *testing.T) {
 	if os.Getenv("LIVEFIELD_PRIOR_LIVE") == "" {
 		t.Skip("set LIVEFIELD_PRIOR_LIVE=1")
 	}
 	c := newCortexRun(t, synth.Scenario{Seed: 1, Units: 48, MeanRate: 16, Gain: 1.5}, Config{PriorInline: 8})
-	for s := 10; s <= 240; s += 10 {
+	type first struct{ s, r float64 }
+	turned := map[string]*[2]first{}
+	for s := 1; s <= 300; s++ {
 		start := time.Now()
-		snap := c.seconds(10)
+		snap := c.seconds(1)
 		var rp, rr []float64
 		for _, u := range snap.Units {
 			d, _ := snap.Detail(u.ID)
-			if !c.linear(u.ID) || d.Prior == nil {
+			if !c.linear(u.ID) {
+				continue
+			}
+			f := turned[u.ID]
+			if f == nil {
+				f = &[2]first{}
+				turned[u.ID] = f
+			}
+			sig := d.Status == Emerging || d.Status == Reliable
+			if sig && d.Reliability >= 0.9 && f[0].s == 0 {
+				f[0] = first{float64(s), c.r(u.ID, d.Ridge)}
+			}
+			if sig && d.PriorReliability >= 0.9 && f[1].s == 0 {
+				f[1] = first{float64(s), c.r(u.ID, d.Prior)}
+			}
+			if d.Prior == nil {
 				continue
 			}
 			rp = append(rp, c.r(u.ID, d.Prior))
 			rr = append(rr, c.r(u.ID, d.Ridge))
 		}
-		t.Logf("%3d s: %d with prior, median r prior %.3f ridge %.3f; significant %d reliable %d ready %v (%.1f s)", s, len(rp), medianOf(rp), medianOf(rr), snap.Summary.Significant, snap.Summary.Reliable, snap.Summary.Ready, time.Since(start).Seconds())
+		if s%10 == 0 {
+			t.Logf("%3d s: %d with prior, median r prior %.3f ridge %.3f; significant %d reliable %d ready %v (%.2f s)", s, len(rp), medianOf(rp), medianOf(rr), snap.Summary.Significant, snap.Summary.Reliable, snap.Summary.Ready, time.Since(start).Seconds())
+		}
+	}
+	for id, f := range turned {
+		t.Logf("unit %s (%s): ridge reliable at %.0f s with r %.3f; prior at %.0f s with r %.3f", id, c.truth[id].Kind, f[0].s, f[0].r, f[1].s, f[1].r)
 	}
 }
