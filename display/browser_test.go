@@ -366,7 +366,7 @@ func TestBrowserPage(t *testing.T) {
 		// The lag strip draws the prior: at the peak lag its strongest
 		// pixel sits on the field (no estimate would leave it flat).
 		v, err := chromedp.Run(ctx, chromedp.Evaluate[[]float64](`(() => {
-  const c = document.querySelectorAll('#d-lags canvas')[` + strconv.Itoa(d.Features.PeakLag) + `];
+  const c = document.querySelectorAll('#d-lags canvas')[`+strconv.Itoa(d.Features.PeakLag)+`];
   const d = c.getContext('2d').getImageData(0, 0, c.width, c.height).data;
   const mid = [246, 244, 238];
   let best = -1, at = 0;
