@@ -191,6 +191,9 @@ type Mapper struct {
 	trends  []*Trend
 	fits    []shapeFit
 	prior   priorState // the smooth-local estimate (prior_live.go)
+	// priorEveryUnit (tests) fits the prior to every unit, not only the
+	// significant ones.
+	priorEveryUnit bool
 	snap    *Snapshot
 }
 

@@ -23,7 +23,8 @@ import (
 // the whole block's scaled by each half's share of the bins (GramView.Share):
 // close for white noise, whose Gram matrix is near N·c²I, an approximation
 // for other stationary stimuli. The Spearman–Brown corrected correlation of
-// the two halves' estimates is the prior's reliability.
+// the two halves' estimates, times the share of the filter's energy inside
+// the window (windowShare), is the prior's reliability.
 
 // Live defaults of the fitter (Config.Prior): fewer evaluations per refit
 // than the library's defaults, so that each unit is refitted every few
@@ -76,7 +77,8 @@ type priorResult struct {
 	logEv       float64
 	bins        int
 	spikes      float64
-	reliability float64 // Spearman–Brown corrected split half; NaN without it
+	reliability float64 // Spearman–Brown corrected split half times the window's share; NaN without it
+	split       float64 // the Spearman–Brown corrected split half alone
 }
 
 // priorRunner fits the units of jobs round-robin with warm starts. It is
@@ -152,7 +154,7 @@ func (r *priorRunner) fit(job *priorJob, i int) (priorResult, bool) {
 		return priorResult{}, false
 	}
 	res := priorResult{epoch: job.epoch, seq: job.seq, weights: FloatsOf(fit.Weights), hyper: fit.Hyper,
-		logEv: fit.LogEvidence, bins: fit.Bins, spikes: in.spikes, reliability: math.NaN()}
+		logEv: fit.LogEvidence, bins: fit.Bins, spikes: in.spikes, reliability: math.NaN(), split: math.NaN()}
 	var halves [2][]float64
 	for h, half := range [2][]float64{in.halfA, in.halfB} {
 		spikes := [2]float64{in.spikesA, in.spikesB}[h]
@@ -170,8 +172,37 @@ func (r *priorRunner) fit(job *priorJob, i int) (priorResult, bool) {
 		}
 		halves[h] = f.Weights
 	}
-	_, res.reliability = SplitHalf(halves[0], halves[1])
+	_, R := SplitHalf(halves[0], halves[1])
+	res.split = R
+	res.reliability = R * windowShare(in.halfA, in.halfB, fit.Window.Indices(r.width, r.height))
 	return res, true
+}
+
+// windowShare estimates the share of the filter's energy inside the
+// window, ‖w_win‖²/‖w‖², from the two independent split-half STAs a and b:
+// for white noise each is the filter times a constant plus independent
+// noise, so E[a_i b_i] ∝ w_i² and Σ_win a_i b_i / Σ a_i b_i estimates the
+// share (clamped to [0, 1]; 0 when the halves show no common signal).
+//
+// The split-half reliability of the prior estimate is the squared
+// correlation of the estimate with its own expectation (classical test
+// theory), and that expectation is the filter cut to the window: its
+// correlation with the whole filter is √share. The reliability the status
+// uses is therefore R·share, whose square root is the correlation with the
+// true filter. For a correlated stimulus the STA is the filter smeared by
+// the stimulus correlations and the share is a rougher guide.
+func windowShare(a, b []float64, idx []int) float64 {
+	var in, all float64
+	for i, v := range a {
+		all += v * b[i]
+	}
+	for _, i := range idx {
+		in += a[i] * b[i]
+	}
+	if !(all > 0) {
+		return 0
+	}
+	return min(max(in/all, 0), 1)
 }
 
 // priorWorker runs a priorRunner on its own goroutine over the latest job.
@@ -392,7 +423,7 @@ func (m *Mapper) applyPrior(u int, d *UnitDetail, res priorResult) {
 func (m *Mapper) priorJob(details []*UnitDetail) *priorJob {
 	var units []int
 	for u, d := range details {
-		if d.Status == Emerging || d.Status == Reliable {
+		if d.Status == Emerging || d.Status == Reliable || m.priorEveryUnit {
 			units = append(units, u)
 		}
 	}
