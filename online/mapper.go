@@ -194,7 +194,7 @@ type Mapper struct {
 	// priorEveryUnit (tests) fits the prior to every unit, not only the
 	// significant ones.
 	priorEveryUnit bool
-	snap    *Snapshot
+	snap           *Snapshot
 }
 
 // trendPoints is how many recent updates the reliability trend fits.
