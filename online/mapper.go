@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 )
 
 // Config describes the estimation for one mapping block.
@@ -37,6 +38,9 @@ type Config struct {
 	// reproducible (tests, replays); PriorInlineAll fits every significant
 	// unit in every Update (exports); 0 fits in the background.
 	PriorInline int
+	// PriorWorkers is the number of goroutines of the background prior
+	// fits, each with its share of the units (default: GOMAXPROCS).
+	PriorWorkers int
 	// NoPrior turns the smooth-local estimate off.
 	NoPrior bool
 }
@@ -90,6 +94,9 @@ func (c Config) withDefaults() (Config, error) {
 	}
 	if c.Prior.Evaluations == 0 {
 		c.Prior.Evaluations = priorLiveEvaluations
+	}
+	if c.PriorWorkers <= 0 {
+		c.PriorWorkers = runtime.GOMAXPROCS(0)
 	}
 	if c.Prior.FirstEvaluations == 0 {
 		c.Prior.FirstEvaluations = priorLiveFirst

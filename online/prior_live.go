@@ -92,12 +92,13 @@ type priorRunner struct {
 	lastTurn            map[int]int64   // unit → turn of its last fit
 	turn                int64
 	cross, seed         []float64
+	part, parts         int // fits the units u with u mod parts = part
 }
 
 func newPriorRunner(cfg Config) *priorRunner {
 	d := cfg.Width * cfg.Height * cfg.Lags
 	r := &priorRunner{width: cfg.Width, height: cfg.Height, lags: cfg.Lags, opt: cfg.Prior,
-		cross: make([]float64, d), seed: make([]float64, d)}
+		cross: make([]float64, d), seed: make([]float64, d), parts: 1}
 	r.reset(0)
 	return r
 }
@@ -122,6 +123,9 @@ func (r *priorRunner) pick(job *priorJob) int {
 	}
 	best, bestTurn, bestEmerging := -1, int64(0), false
 	for i, in := range job.units {
+		if in.unit%r.parts != r.part {
+			continue
+		}
 		if s, ok := r.fittedOn[in.unit]; ok && s >= job.seq {
 			continue
 		}
@@ -205,21 +209,27 @@ func windowShare(a, b []float64, idx []int) float64 {
 	return min(max(in/all, 0), 1)
 }
 
-// priorWorker runs a priorRunner on its own goroutine over the latest job.
+// priorWorker runs priorRunners, each on its own goroutine and with its
+// share of the units, over the latest job.
 type priorWorker struct {
-	runner  *priorRunner
 	mu      sync.Mutex
 	job     *priorJob           // the latest job (latest wins)
 	results map[int]priorResult // the latest fit per unit
-	wake    chan struct{}
+	wake    []chan struct{}     // per goroutine
 	stop    chan struct{}
-	done    chan struct{}
+	wg      sync.WaitGroup
 }
 
 func startPriorWorker(cfg Config) *priorWorker {
-	w := &priorWorker{runner: newPriorRunner(cfg), results: map[int]priorResult{},
-		wake: make(chan struct{}, 1), stop: make(chan struct{}), done: make(chan struct{})}
-	go w.loop()
+	n := cfg.PriorWorkers
+	w := &priorWorker{results: map[int]priorResult{}, stop: make(chan struct{})}
+	for k := range n {
+		r := newPriorRunner(cfg)
+		r.part, r.parts = k, n
+		wake := make(chan struct{}, 1)
+		w.wake = append(w.wake, wake)
+		w.wg.Go(func() { w.loop(r, wake) })
+	}
 	return w
 }
 
@@ -228,9 +238,11 @@ func (w *priorWorker) offer(job *priorJob) {
 	w.mu.Lock()
 	w.job = job
 	w.mu.Unlock()
-	select {
-	case w.wake <- struct{}{}:
-	default:
+	for _, wake := range w.wake {
+		select {
+		case wake <- struct{}{}:
+		default:
+		}
 	}
 }
 
@@ -245,8 +257,7 @@ func (w *priorWorker) collect(dst map[int]priorResult) {
 	}
 }
 
-func (w *priorWorker) loop() {
-	defer close(w.done)
+func (w *priorWorker) loop(runner *priorRunner, wake chan struct{}) {
 	for {
 		select {
 		case <-w.stop:
@@ -258,19 +269,19 @@ func (w *priorWorker) loop() {
 		w.mu.Unlock()
 		i := -1
 		if job != nil {
-			i = w.runner.pick(job)
+			i = runner.pick(job)
 		}
 		if i < 0 {
 			select {
 			case <-w.stop:
 				return
-			case <-w.wake:
+			case <-wake:
 			}
 			continue
 		}
-		if res, ok := w.runner.fit(job, i); ok {
+		if res, ok := runner.fit(job, i); ok {
 			w.mu.Lock()
-			if job.epoch == w.runner.epoch {
+			if job.epoch == runner.epoch {
 				w.results[job.units[i].unit] = res
 			}
 			w.mu.Unlock()
@@ -278,10 +289,11 @@ func (w *priorWorker) loop() {
 	}
 }
 
-// close stops the worker and waits for it (at most one unit's fit).
+// close stops the worker and waits for it (at most one unit's fit per
+// goroutine).
 func (w *priorWorker) close() {
 	close(w.stop)
-	<-w.done
+	w.wg.Wait()
 }
 
 // priorState is the mapper's side of the live prior.
