@@ -23,8 +23,8 @@ import (
 // the whole block's scaled by each half's share of the bins (GramView.Share):
 // close for white noise, whose Gram matrix is near N·c²I, an approximation
 // for other stationary stimuli. The Spearman–Brown corrected correlation of
-// the two halves' estimates, times the share of the prior's expected
-// energy inside the window (envelopeShare), is the prior's reliability.
+// the two halves' estimates, times the share of the filter's energy inside
+// the window (windowShare), is the prior's reliability.
 
 // Live defaults of the fitter (Config.Prior): fewer evaluations per refit
 // than the library's defaults, so that each unit is refitted every few
@@ -178,41 +178,54 @@ func (r *priorRunner) fit(job *priorJob, i int) (priorResult, bool) {
 	}
 	_, R := SplitHalf(halves[0], halves[1])
 	res.split = R
-	res.reliability = R * envelopeShare(fit.Hyper, fit.Window, r.width, r.height, r.lags)
+	res.reliability = R * windowShare(in.halfA, in.halfB, fit.Window, r.width, r.height, r.lags)
 	return res, true
 }
 
-// envelopeShare is the share of the prior's expected filter energy,
-// E‖w‖² = Σ_i C_ii = s·Σ_i E_ii over the whole frame and lags (the fitted
-// envelope continued beyond the window), that lies inside the window.
+// shareMargin is how far, in pixels and lags, windowShare looks beyond the
+// window for the filter's energy: fields are local (the prior's premise),
+// and the coefficients farther away add only noise to the estimate.
+const shareMargin = 3
+
+// windowShare estimates the share of the filter's energy inside the
+// window, ‖w_win‖²/‖w‖², from the two independent split-half STAs a and b:
+// for white noise each is the filter times a constant plus independent
+// noise, so E[a_i b_i] ∝ w_i², and Σ_win a_i b_i / Σ_box a_i b_i estimates
+// the share, the box being the window grown by shareMargin on every side
+// (clipped to the frame and lags). Clamped to [0, 1]; 0 when the halves
+// show no common signal.
 //
 // The split-half reliability of the prior estimate is the squared
 // correlation of the estimate with its own expectation (classical test
 // theory), and that expectation is the filter cut to the window, whose
 // correlation with the whole filter is √share. The reliability the status
 // uses is therefore R·share, whose square root is the correlation with the
-// true filter. (An estimate of the share from the products of the two
-// independent split-half STAs, E[a_i b_i] ∝ w_i², is unbiased for white
-// noise but so noisy over the D − d coefficients outside the window that
-// it held units back for minutes; the envelope's share is smooth.)
-func envelopeShare(h SmoothLocal, w PriorWindow, width, height, lags int) float64 {
-	axis := func(n, lo, cnt int, c, wd float64) (in, all float64) {
-		for i := range n {
-			e := math.Exp(-0.5 * sqNorm(float64(i), c, wd))
-			all += e
-			if i >= lo && i < lo+cnt {
-				in += e
-			}
-		}
-		return in, all
+// true filter. (The envelope's own share of the prior's expected energy
+// inside the window was tried instead: smooth, but its symmetric Gaussian
+// in time puts energy before the window's first lag that fields do not
+// have, and it held units back; the whole frame as the box made the
+// estimate too noisy.) For a correlated stimulus the STA is the filter
+// smeared by the stimulus correlations and the share is a rougher guide.
+func windowShare(a, b []float64, w PriorWindow, width, height, lags int) float64 {
+	grow := func(lo, n, total int) (int, int) {
+		l := max(lo-shareMargin, 0)
+		return l, min(lo+n+shareMargin, total) - l
 	}
-	xi, xa := axis(width, w.X0, w.NX, h.Centre[0], h.Width[0])
-	yi, ya := axis(height, w.Y0, w.NY, h.Centre[1], h.Width[1])
-	ti, ta := axis(lags, w.T0, w.NT, h.Centre[2], h.Width[2])
-	if !(xa > 0 && ya > 0 && ta > 0) {
+	var box PriorWindow
+	box.X0, box.NX = grow(w.X0, w.NX, width)
+	box.Y0, box.NY = grow(w.Y0, w.NY, height)
+	box.T0, box.NT = grow(w.T0, w.NT, lags)
+	var in, all float64
+	for _, i := range box.Indices(width, height) {
+		all += a[i] * b[i]
+	}
+	for _, i := range w.Indices(width, height) {
+		in += a[i] * b[i]
+	}
+	if !(all > 0) {
 		return 0
 	}
-	return xi / xa * yi / ya * ti / ta
+	return min(max(in/all, 0), 1)
 }
 
 // priorWorker runs priorRunners, each on its own goroutine and with its
