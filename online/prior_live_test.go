@@ -202,7 +202,11 @@ func TestMapperPriorDemoReady(t *testing.T) {
 	for _, run := range []struct {
 		name string
 		cfg  Config
-	}{{"prior", Config{PriorInline: 8}}, {"ridge", Config{NoPrior: true}}} {
+	}{{"prior", Config{PriorInline: 8}}, {"ridge", Config{NoPrior: true}},
+		// A window of 9×9 pixels × 8 lags holds at least 90 % of every
+		// demo field's energy (7×7 × 6: 15 of 35 fields); each fit costs
+		// about ten times more.
+		{"prior9", Config{PriorInline: 4, Prior: PriorOptions{WindowPixels: 9, WindowLags: 8}}}} {
 		t.Run(run.name, func(t *testing.T) {
 			c := newCortexRun(t, synth.Scenario{Seed: 1, Units: 48, MeanRate: 16, Gain: 1.5}, run.cfg)
 			start := time.Now()
