@@ -11,6 +11,7 @@ import (
 	"net/http/httptest"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"sync"
 	"testing"
@@ -331,6 +332,65 @@ func TestBrowserPage(t *testing.T) {
 		}
 	})
 
+	t.Run("prior toggle shows the smooth-local estimate", func(t *testing.T) {
+		d, _ := first.Detail("12")
+		if d.Prior == nil {
+			t.Fatal("the fixture's unit 12 has no smooth-local estimate")
+		}
+		if err := chromedp.Do(ctx,
+			chromedp.Click(chromedp.CSS(`.tile[data-id="12"]`)),
+			chromedp.WaitVisible(chromedp.ID("d-body")),
+			chromedp.Click(chromedp.CSS(`button.kind[data-kind="prior"]`)),
+		); err != nil {
+			t.Fatal(err)
+		}
+		defer func() {
+			if err := chromedp.Do(ctx, chromedp.Click(chromedp.CSS(`button.kind[data-kind="ridge"]`)),
+				chromedp.Click(chromedp.ID("d-close")), chromedp.WaitNotVisible(chromedp.ID("detail"))); err != nil {
+				t.Error(err)
+			}
+		}()
+		eventually(t, ctx, "the prior caption", `document.getElementById('d-mapcap').textContent.startsWith('Prior at the peak lag')`)
+		if !strings.Contains(mustURL(t, ctx), "kind=prior") {
+			t.Errorf("the URL does not keep the prior toggle: %s", mustURL(t, ctx))
+		}
+		facts := text(t, ctx, "#d-facts")
+		if !strings.Contains(facts, "status from the") || !strings.Contains(facts, "prior reliability") {
+			t.Errorf("detail facts %q do not name the estimate of the status and the prior's reliability", facts)
+		}
+		// The lag strip draws the prior: at the peak lag its strongest
+		// pixel sits on the field (no estimate would leave it flat).
+		v, err := chromedp.Run(ctx, chromedp.Evaluate[[]float64](`(() => {
+  const c = document.querySelectorAll('#d-lags canvas')[`+strconv.Itoa(d.Features.PeakLag)+`];
+  const d = c.getContext('2d').getImageData(0, 0, c.width, c.height).data;
+  const mid = [246, 244, 238];
+  let best = -1, at = 0;
+  for (let p = 0; p < c.width * c.height; p++) {
+    const e = Math.abs(d[4*p] - mid[0]) + Math.abs(d[4*p+1] - mid[1]) + Math.abs(d[4*p+2] - mid[2]);
+    if (e > best) { best = e; at = p; }
+  }
+  const far = 4 * (c.width - 1); // the top-right pixel, far outside the prior's window
+  return [at % c.width / c.width, Math.floor(at / c.width) / c.height, best,
+    Math.abs(d[far] - mid[0]) + Math.abs(d[far+1] - mid[1]) + Math.abs(d[far+2] - mid[2])];
+})()`))
+		if err != nil {
+			t.Fatal(err)
+		}
+		c := strongCell
+		col, row := int(v[0]*simWidth), int(v[1]*simHeight)
+		if v[2] < 30 || !near(col, row, c.x, c.y) {
+			t.Errorf("prior map's strongest pixel at (%d, %d) (contrast %v), field of unit 12 centred at (%v, %v)", col, row, v[2], c.x, c.y)
+		}
+		// Outside its window the prior is zero: the scale's middle colour
+		// exactly, where the ridge and the STA show noise.
+		if v[3] != 0 {
+			t.Errorf("the top-right pixel of the prior's map is %v away from the scale's middle: not the prior", v[3])
+		}
+		if shot, err := chromedp.Run(ctx, chromedp.CaptureScreenshot()); err == nil {
+			screenshotTo(t, "detail-prior.png", shot)
+		}
+	})
+
 	t.Run("criterion", func(t *testing.T) {
 		if err := chromedp.Do(ctx,
 			chromedp.SetValue(chromedp.ID("target"), "0.85"),
@@ -441,4 +501,14 @@ func TestBrowserPractice(t *testing.T) {
 	if got := text(t, ctx, "#p-units tbody"); !strings.Contains(got, "7") || !strings.Contains(got, "0.65") {
 		t.Errorf("unit table %q lacks unit 7 and its STA correlation", got)
 	}
+}
+
+// mustURL is the page's current address.
+func mustURL(t *testing.T, ctx context.Context) string {
+	t.Helper()
+	u, err := chromedp.Run(ctx, chromedp.Evaluate[string](`location.href`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	return u
 }

@@ -47,7 +47,7 @@ type sim struct {
 }
 
 func newSim(t testing.TB, seed uint64) *sim {
-	m, err := online.NewMapper(online.Config{Width: simWidth, Height: simHeight, Lags: simLags, White: true, PixelVariance: 1})
+	m, err := online.NewMapper(online.Config{Width: simWidth, Height: simHeight, Lags: simLags, White: true, PixelVariance: 1, PriorInline: online.PriorInlineAll})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,6 +1,7 @@
 package online
 
 import (
+	"errors"
 	"fmt"
 )
 
@@ -17,6 +18,23 @@ type GramView struct {
 	cross             []float64   // P×D: cross[p*D + τ*P + q] = Q_τ(n)[p, q]
 	first, last       [][]float64 // first and last min(frames, lags) frames, in order
 	mean              []float64   // mean lagged stimulus over the used bins
+	// A share (Share): every entry times scale, and Bins reports bins.
+	scale float64
+	bins  int
+}
+
+// Share returns a view of the same statistics standing for a subset of
+// bins of its bins: every entry of the Gram matrix is scaled by
+// bins/Bins(), and Bins reports bins. For a stationary stimulus whose
+// subset is spread over the block (the alternating split-half chunks), this
+// approximates the subset's own centred Gram matrix, closely for white
+// noise, whose Gram matrix is near its expectation N·c²I; it is an
+// approximation, not the subset's exact Gram matrix.
+func (v *GramView) Share(bins int) *GramView {
+	s := *v
+	s.scale = float64(bins) / float64(v.allBins())
+	s.bins = bins
+	return &s
 }
 
 // View copies the LagGram's statistics into a GramView. It must be called by
@@ -25,6 +43,10 @@ type GramView struct {
 func (g *LagGram) View() (*GramView, error) {
 	if g.n < g.lags {
 		return nil, ErrFewFrames
+	}
+	if g.pastBins > 0 {
+		// The view reads the lag cross-products of one segment only.
+		return nil, errors.New("online: LagGram.View: the lag history was restarted; a view covers one segment")
 	}
 	P, L, d := g.pixels, g.lags, g.dim
 	v := &GramView{pixels: P, lags: L, dim: d, frames: g.n}
@@ -55,7 +77,15 @@ func (v *GramView) Lags() int { return v.lags }
 func (v *GramView) Dim() int { return v.dim }
 
 // Bins is the number of used bins behind the view.
-func (v *GramView) Bins() int { return v.frames - v.lags + 1 }
+func (v *GramView) Bins() int {
+	if v.scale != 0 {
+		return v.bins
+	}
+	return v.allBins()
+}
+
+// allBins is the number of used bins behind the statistics.
+func (v *GramView) allBins() int { return v.frames - v.lags + 1 }
 
 // Mean returns the mean lagged stimulus over the used bins (length Dim). The
 // slice belongs to the view and must not be modified.
@@ -90,7 +120,10 @@ func (v *GramView) Entry(a, b int, centred bool) float64 {
 		s -= v.frame(m)[p] * v.frame(m - tau)[q]
 	}
 	if centred {
-		s -= float64(v.Bins()) * v.mean[a] * v.mean[b]
+		s -= float64(v.allBins()) * v.mean[a] * v.mean[b]
+	}
+	if v.scale != 0 {
+		s *= v.scale
 	}
 	return s
 }

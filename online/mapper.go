@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 )
 
 // Config describes the estimation for one mapping block.
@@ -31,6 +32,20 @@ type Config struct {
 	STCMaxUnits   int       // at most this many units get STC (default 16)
 	STCLags       int       // lags in STC's reduced space (default: up to 3, keeping pixels·lags ≤ 320)
 	Geometry      *Geometry // optional, for degrees of visual angle
+	// Prior sizes the smooth-local fits (zero fields: the window of
+	// PriorOptions, 20 evaluations for a unit's first fit and 6 for each
+	// refit).
+	Prior PriorOptions
+	// PriorInline > 0 runs that many units' smooth-local fits inside each
+	// Update instead of on a background worker, so that the estimates are
+	// reproducible (tests, replays); PriorInlineAll fits every significant
+	// unit in every Update (exports); 0 fits in the background.
+	PriorInline int
+	// PriorWorkers is the number of goroutines of the background prior
+	// fits, each with its share of the units (default: GOMAXPROCS).
+	PriorWorkers int
+	// NoPrior turns the smooth-local estimate off.
+	NoPrior bool
 }
 
 // stcMaxDim bounds the default STC space, pixels·lags.
@@ -76,6 +91,18 @@ func (c Config) withDefaults() (Config, error) {
 	def(&c.SmallestField, DefaultSmallestField)
 	if c.MinSpikes == 0 {
 		c.MinSpikes = 300
+	}
+	if c.Prior.Evaluations == 0 {
+		c.Prior.Evaluations = priorLiveEvaluations
+	}
+	if c.PriorWorkers <= 0 {
+		c.PriorWorkers = runtime.GOMAXPROCS(0)
+	}
+	if c.Prior.FirstEvaluations == 0 {
+		c.Prior.FirstEvaluations = priorLiveFirst
+	}
+	if _, err := NewPriorFitter(c.Width, c.Height, max(c.Lags, 1), c.Prior); err != nil || c.PriorInline < PriorInlineAll {
+		return c, fmt.Errorf("%w: prior options %+v, inline %d", ErrConfig, c.Prior, c.PriorInline)
 	}
 	if c.STCMaxUnits == 0 {
 		c.STCMaxUnits = 16
@@ -172,8 +199,12 @@ type Mapper struct {
 	popPeak int // median peak lag of the significant units at the last update
 	trends  []*Trend
 	fits    []shapeFit
-	snap    *Snapshot
 	cal     *calibration // calibrated statistics (calibration.go)
+	prior   priorState   // the smooth-local estimate (prior_live.go)
+	// priorEveryUnit (tests) fits the prior to every unit, not only the
+	// significant ones.
+	priorEveryUnit bool
+	snap           *Snapshot
 }
 
 // trendPoints is how many recent updates the reliability trend fits.
@@ -378,6 +409,7 @@ func (m *Mapper) Reset() {
 	m.stcResults = map[int]*STCResult{}
 	m.stcLags = nil
 	m.popPeak = m.defaultPeak()
+	m.resetPrior()
 	m.snap = m.emptySnapshot()
 }
 

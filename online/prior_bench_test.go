@@ -77,3 +77,40 @@ func BenchmarkGramView(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkPriorLiveUnit is one unit's turn on the live worker at the
+// reference frame (16×16 pixels, 12 lags) after two minutes of the
+// synthetic rig, with the live defaults (Config.Prior: 6 evaluations per
+// refit after the first): three warm refits, the whole block and each half
+// (the halves here both use the unit's STA; the cost is the same). Its
+// time times the number of significant units is how long the worker takes
+// to refresh them all on one core.
+func BenchmarkPriorLiveUnit(b *testing.B) {
+	blk := newSimBlock(b, 7)
+	blk.run(2 * 3600)
+	view, err := blk.lg.View()
+	if err != nil {
+		b.Fatal(err)
+	}
+	u := blk.linearUnits()[0]
+	st := blk.stats(view, u)
+	cfg, err := Config{Width: blk.width, Height: blk.height, Lags: blk.lags, White: true, PixelVariance: 1}.withDefaults()
+	if err != nil {
+		b.Fatal(err)
+	}
+	spikes := blk.spikes(u)
+	in := priorInput{unit: u, spikes: spikes, sta: FloatsOf(st.Seed), ridge: FloatsOf(st.Seed), yy: st.YY,
+		halfA: st.Seed, halfB: st.Seed, spikesA: spikes / 2, spikesB: spikes / 2, yyA: st.YY / 2, yyB: st.YY / 2}
+	job := &priorJob{view: view, usedA: view.Bins() / 2, usedB: view.Bins() / 2, units: []priorInput{in}}
+	r := newPriorRunner(cfg)
+	if _, ok := r.fit(job, 0); !ok {
+		b.Fatal("first fit failed")
+	}
+	b.ReportAllocs()
+	for b.Loop() {
+		job.seq++
+		if _, ok := r.fit(job, 0); !ok {
+			b.Fatal("refit failed")
+		}
+	}
+}

@@ -88,6 +88,11 @@ type UnitSummary struct {
 	Map       Floats   `json:"map"` // spatial map at the peak lag (ridge estimate), height×width
 	HasSTC    bool     `json:"has_stc"`
 	Flagged   bool     `json:"flagged"`
+	// Estimate names the estimate the status, and for an emerging unit
+	// the ETA, come from: "ridge" or "prior" (the smooth-local estimate,
+	// when its split-half reliability is the higher); empty for units
+	// that are not significant.
+	Estimate string `json:"estimate,omitempty"`
 }
 
 // UnitDetail is everything known about one unit.
@@ -100,9 +105,23 @@ type UnitDetail struct {
 	Intercept   Float  `json:"intercept"`
 	// Z is each ridge weight over its sampling standard deviation under the
 	// null (mean z² ≈ 1 without a field; see zscore.go).
-	Z        Floats     `json:"z"`
-	Features Features   `json:"features"`
-	STC      *STCResult `json:"stc,omitempty"`
+	Z Floats `json:"z"`
+	// Prior is the smooth-local estimate (posterior mean under the
+	// evidence-optimised smoothness-and-locality prior), same layout as
+	// Ridge, zero outside its window; null until the unit's first fit.
+	Prior      Floats       `json:"prior"`
+	PriorHyper *SmoothLocal `json:"prior_hyper"` // its hyperparameters; null without a fit
+	// PriorLogEvidence is the log evidence at PriorHyper, PriorBins the
+	// used bins behind the fit (it trails the ridge by a few seconds).
+	PriorLogEvidence Float `json:"prior_log_evidence"`
+	PriorBins        int64 `json:"prior_bins"`
+	// PriorReliability is the Spearman–Brown corrected split-half
+	// correlation of the prior estimate, each half fitted on its own data;
+	// PriorETA its projected seconds to the target (null when too early).
+	PriorReliability Float      `json:"prior_reliability"`
+	PriorETA         Float      `json:"prior_eta_s"`
+	Features         Features   `json:"features"`
+	STC              *STCResult `json:"stc,omitempty"`
 	// STCState says what became of STC on this unit: "running" (a result
 	// is attached), "collecting: …" (too few spike-triggered samples yet),
 	// "queued for results" (enough; its turn comes), "waiting: …" (asked

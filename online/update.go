@@ -84,6 +84,7 @@ func (m *Mapper) Update() *Snapshot {
 	}
 	m.updateSTC(details)
 	m.popPeak = medianPeak(details, m.popPeak)
+	m.livePrior(details)
 
 	snap := m.emptySnapshot()
 	snap.T = Float(float64(m.used) * m.cfg.FramePeriod)

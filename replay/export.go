@@ -41,6 +41,14 @@ type UnitFile struct {
 	Features    online.Features `json:"features"`
 	Ridge       string          `json:"ridge_file"` // relative to the export directory
 	STA         string          `json:"sta_file"`
+	// Prior is the smooth-local estimate's file, empty when the unit has
+	// none; PriorHyper, PriorLogEvidence, PriorBins and PriorReliability
+	// describe it (online.UnitDetail).
+	Prior            string              `json:"prior_file,omitempty"`
+	PriorHyper       *online.SmoothLocal `json:"prior_hyper"`
+	PriorLogEvidence online.Float        `json:"prior_log_evidence"`
+	PriorBins        int64               `json:"prior_bins"`
+	PriorReliability online.Float        `json:"prior_reliability"`
 }
 
 // Exported lists what Export wrote.
@@ -61,6 +69,7 @@ type Exported struct {
 //	contact.png           every unit's map at its peak lag (display.RenderOverview)
 //	units/<name>.npy      ridge weights, float64, shape (lags, height, width)
 //	units/<name>.sta.npy  spike-triggered average, same shape
+//	units/<name>.prior.npy  smooth-local estimate, same shape (units that have one)
 //	units/<name>.json     UnitFile
 //
 // where <name> is the unit id with every byte outside [A-Za-z0-9_-]
@@ -125,12 +134,22 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 			UnitSummary: d.UnitSummary, Shape: d.Shape, FramePeriod: d.FramePeriod,
 			Intercept: d.Intercept, Features: d.Features,
 			Ridge: name + ".npy", STA: name + ".sta.npy",
+			PriorHyper: d.PriorHyper, PriorLogEvidence: d.PriorLogEvidence, PriorBins: d.PriorBins,
+			PriorReliability: d.PriorReliability,
 		}
-		shape := d.Shape[:]
-		for _, a := range []struct {
+		arrays := []struct {
 			rel string
 			v   online.Floats
-		}{{uf.Ridge, d.Ridge}, {uf.STA, d.STA}} {
+		}{{uf.Ridge, d.Ridge}, {uf.STA, d.STA}}
+		if d.Prior != nil {
+			uf.Prior = name + ".prior.npy"
+			arrays = append(arrays, struct {
+				rel string
+				v   online.Floats
+			}{uf.Prior, d.Prior})
+		}
+		shape := d.Shape[:]
+		for _, a := range arrays {
 			buf.Reset()
 			if err := npy.Write(&buf, shape, floats64(a.v)); err != nil {
 				return out, fmt.Errorf("replay: unit %q: %w", u.ID, err)

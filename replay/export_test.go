@@ -88,12 +88,21 @@ func TestExportFiles(t *testing.T) {
 	if out.Block != "B1" {
 		t.Errorf("block %q, want B1", out.Block)
 	}
+	priors := 0
 	for _, id := range out.Units {
 		d, _ := want.Detail(id)
-		for _, c := range []struct {
+		files := []struct {
 			file string
 			want online.Floats
-		}{{FileName(id) + ".npy", d.Ridge}, {FileName(id) + ".sta.npy", d.STA}} {
+		}{{FileName(id) + ".npy", d.Ridge}, {FileName(id) + ".sta.npy", d.STA}}
+		if d.Prior != nil {
+			priors++
+			files = append(files, struct {
+				file string
+				want online.Floats
+			}{FileName(id) + ".prior.npy", d.Prior})
+		}
+		for _, c := range files {
 			b, err := os.ReadFile(filepath.Join(dir, "units", c.file))
 			if err != nil {
 				t.Fatal(err)
@@ -123,6 +132,12 @@ func TestExportFiles(t *testing.T) {
 		if err := json.Unmarshal(b, &uf); err != nil || uf.ID != id || uf.Shape != d.Shape || uf.Features.PeakLag != d.Features.PeakLag {
 			t.Errorf("%s.json: %v %+v", id, err, uf)
 		}
+		if (uf.Prior != "") != (d.Prior != nil) || (uf.PriorHyper == nil) != (d.Prior == nil) {
+			t.Errorf("%s.json: prior file %q and hyperparameters %v for a prior of %d values", id, uf.Prior, uf.PriorHyper, len(d.Prior))
+		}
+	}
+	if priors == 0 {
+		t.Error("no unit was exported with a prior estimate")
 	}
 	fh, err := os.Open(filepath.Join(dir, "contact.png"))
 	if err != nil {

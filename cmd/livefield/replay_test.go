@@ -102,8 +102,11 @@ func TestSessionCommands(t *testing.T) {
 		})
 	}
 	exp := regexp.MustCompile(`block B1: (\d+) units, (\d+) files`).FindStringSubmatch(outs["export"])
-	if exp == nil || exp[1] == "0" || atoi(exp[2]) != 3*atoi(exp[1])+2 {
-		t.Errorf("export wrote %v: want three files per unit and two more", exp)
+	// Three files per unit, one more (the smooth-local estimate) per unit
+	// that has one, and two for the block.
+	priors, _ := filepath.Glob(filepath.Join(dir, "x", "units", "*.prior.npy"))
+	if exp == nil || exp[1] == "0" || atoi(exp[2]) != 3*atoi(exp[1])+len(priors)+2 {
+		t.Errorf("export wrote %v with %d prior files: want three files per unit, the prior files and two more", exp, len(priors))
 	}
 	var rep struct {
 		State string  `json:"state"`

@@ -242,6 +242,7 @@ func (e *estimator) publish(s *online.Snapshot, at time.Time, took float64, coun
 // the evidence fit, when asked for).
 func (e *estimator) endBlock(at time.Time) {
 	e.update(at)
+	e.mapper.Close() // stops the mapper's background prior fits
 	if f := e.c.opt.OnBlockEnd; f != nil {
 		f(e.block, e.c.snap.Load(), at)
 	}

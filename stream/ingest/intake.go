@@ -164,6 +164,7 @@ func (l *intake) startBlock(b wire.Block, at time.Time) error {
 		Fraction:      l.crit.Fraction,
 		Geometry:      geometry(b.Geometry),
 		Lambda:        l.c.lambdaFor(shape),
+		PriorInline:   l.c.priorInline(),
 	}
 	mp, err := online.NewMapper(cfg)
 	if err != nil {
@@ -442,4 +443,20 @@ func geometry(g *wire.Geometry) *online.Geometry {
 		return nil
 	}
 	return &online.Geometry{DistanceCM: g.DistanceCM, PixelSizeCM: g.PixelSizeCM}
+}
+
+// priorInline says where the mapper fits the smooth-local estimate: on its
+// background worker in a Rig; inline in a Loop (replay, export), so that the
+// estimates are reproducible: every significant unit at each update when
+// only the final update is made (an export), otherwise a few units per
+// update, round-robin.
+func (c *Loop) priorInline() int {
+	switch {
+	case c.async:
+		return 0
+	case c.opt.UpdateEvery >= time.Hour:
+		return online.PriorInlineAll
+	default:
+		return 4
+	}
 }

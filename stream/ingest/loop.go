@@ -104,11 +104,15 @@ func newLoop(opt Options, async bool) *Loop {
 	return c
 }
 
-// Close stops the estimator goroutine (a Rig's), cancels the evidence fits
-// still running and waits for all of them. It may be called more than once.
+// Close stops the estimator goroutine (a Rig's), the running block's
+// background fits and the evidence fits still running, and waits for all
+// of them. It may be called more than once.
 func (c *Loop) Close() {
 	c.stop()
 	c.wg.Wait()
+	if c.est.mapper != nil {
+		c.est.mapper.Close() // the running block's background prior fits
+	}
 	c.fits.close()
 }
 

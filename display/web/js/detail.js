@@ -1,6 +1,6 @@
 // The unit detail: the header facts and controls of one unit and its
 // plots (plots.js), and moving between units with the keyboard.
-import {statusOf} from './words.js';
+import {FIELD, statusOf} from './words.js';
 import {num, eta} from './format.js';
 import {hoverMap, hideHover} from './hover.js';
 import {drawFilters, drawLagStrip, drawPeakMap, drawReliability, drawSpectrum, drawTimeCourse, lagSlice, peakPixel} from './plots.js';
@@ -9,9 +9,27 @@ import {view} from './view.js';
 
 const $ = (id) => document.getElementById(id);
 
-// estimate is the estimate chosen by the Ridge / STA / z buttons.
+// estimate is the estimate chosen by the Ridge / STA / z / Prior buttons
+// (the prior is null until the unit's first smooth-local fit).
 export function estimate(d) {
-  return view.kind === 'sta' ? d.sta : view.kind === 'z' ? d.z : d.ridge;
+  switch (view.kind) {
+    case 'sta': return d.sta;
+    case 'z': return d.z;
+    case 'prior': return d[FIELD.prior];
+    default: return d.ridge;
+  }
+}
+
+// ESTIMATE_WORDS name the estimates a status can come from
+// (online.UnitSummary.estimate).
+const ESTIMATE_WORDS = {ridge: 'the ridge', prior: 'the smooth-local prior'};
+
+// estimateWords gives the smooth-local prior's reliability and says which
+// estimate the unit's status (and its ETA) comes from.
+function estimateWords(d) {
+  const from = ESTIMATE_WORDS[d[FIELD.estimate]];
+  const prior = d[FIELD.prior] ? 'prior reliability ' + num(d[FIELD.priorReliability], 2) : 'no smooth-local fit yet';
+  return prior + (from ? ' · status from ' + from : '');
 }
 
 // drawn remembers what the detail body last drew, so an update that
@@ -86,7 +104,7 @@ function renderFacts(d) {
   const st = statusOf(d.status);
   $('d-status').textContent = st.word;
   $('d-status').className = 'badge ' + st.css;
-  $('d-facts').textContent = 'reliability ' + num(d.reliability, 2) + ' · ETA ' + eta(d.eta_s) + ' · ' + d.spikes + ' spikes · ' +
+  $('d-facts').textContent = 'ridge reliability ' + num(d.reliability, 2) + ' · ' + estimateWords(d) + ' · ETA ' + eta(d.eta_s) + ' · ' + d.spikes + ' spikes · ' +
     num(d.rate_hz, 1) + ' sp/s · −log10 p ' + num(d.significance, 1) + ' · latency ' + num(d.latency_ms, 0) +
     ' ms · separability ' + num(f.separability, 2) + ' · ' + (f.polarity > 0 ? 'bright' : f.polarity < 0 ? 'dark' : '—') + ' peak';
   $('d-stc').textContent = d.flagged ? 'Stop STC' : 'Ask for STC';
@@ -106,7 +124,8 @@ export function renderDetail(d) {
 
   const peak = lagSlice(est, f.peak_lag, n, lags);
   drawPeakMap($('d-map'), peak, width, height, f);
-  $('d-mapcap').textContent = view.kind.toUpperCase() + ' at the peak lag ' + f.peak_lag + ' — ring: fitted centre, 1σ extent';
+  $('d-mapcap').textContent = (view.kind === 'prior' && !d[FIELD.prior] ? 'no smooth-local fit yet — ' : '') +
+    (view.kind === 'prior' ? 'Prior' : view.kind.toUpperCase()) + ' at the peak lag ' + f.peak_lag + ' — ring: fitted centre, 1σ extent';
   $('d-map').title = 'centre x ' + num(f.centre_x, 2) + ', y ' + num(f.centre_y, 2) + ' px; σ ' + num(f.sigma_x, 2) + ' × ' + num(f.sigma_y, 2) + ' px';
 
   const pixel = peakPixel(f.map);

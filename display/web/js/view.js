@@ -11,7 +11,7 @@ export const view = {
   statuses: new Set(), // status words shown; empty: all
   text: '',            // shown ids contain this
   unit: null,          // id of the unit in the detail view
-  kind: 'ridge',       // ridge | sta | z, in the detail view
+  kind: 'ridge',       // ridge | sta | z | prior, in the detail view
 };
 
 // The URL keys. token and practice are the page's own and are kept as they are.
@@ -30,7 +30,7 @@ export function readURL() {
   view.statuses = new Set((p.get('status') || '').split(',').filter((w) => STATUS.some((s) => s.word === w)));
   view.text = p.get('q') || '';
   view.unit = p.get('unit') || null;
-  if (['ridge', 'sta', 'z'].includes(p.get('kind'))) view.kind = p.get('kind');
+  if (['ridge', 'sta', 'z', 'prior'].includes(p.get('kind'))) view.kind = p.get('kind');
 }
 
 // writeURL puts the view into the URL without a new history entry; values

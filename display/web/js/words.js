@@ -29,6 +29,8 @@ export const FIELD = {
   eta: 'eta_s', rate: 'rate_hz', peakLag: 'peak_lag', latency: 'latency_ms',
   centreX: 'centre_x', centreY: 'centre_y', sigmaX: 'sigma_x', sigmaY: 'sigma_y', polarity: 'polarity',
   hasSTC: 'has_stc', flagged: 'flagged', stcState: 'stc_state',
+  estimate: 'estimate', prior: 'prior', priorReliability: 'prior_reliability', priorETA: 'prior_eta_s',
+  priorHyper: 'prior_hyper', priorBins: 'prior_bins',
   map: 'map', mapShape: 'map_shape', mapMax: 'map_max',
 };
 
