@@ -5,6 +5,7 @@ import (
 	"flag"
 	"fmt"
 	"io"
+	"livefield/online"
 	"log/slog"
 	"sync"
 	"time"
@@ -60,7 +61,11 @@ func runDemo(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stder
 	// The embedded server has JetStream, so the demo maps durably, as serve
 	// does on such a server.
 	updates := display.NewUpdates()
-	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, Logger: log, Durable: true, OnUpdate: updates.Notify})
+	r, err := ingest.Start(ctx, sub, ingest.Options{Prefix: prefix, Logger: log, Durable: true, OnUpdate: updates.Notify,
+		// The demo's 48 units afford the larger smooth-local window, which
+		// holds nearly all of each synthetic field: READY comes in about a
+		// quarter of the ridge's time (README, "Smooth-local estimate").
+		Prior: demoPrior})
 	if err != nil {
 		return err
 	}
@@ -91,3 +96,6 @@ func runDemo(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stder
 	fmt.Fprintln(stdout, "livefield: stopping")
 	return err
 }
+
+// demoPrior is the demo's smooth-local window: 9×9 pixels × 8 lags.
+var demoPrior = online.PriorOptions{WindowPixels: 9, WindowLags: 8}

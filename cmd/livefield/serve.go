@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"livefield/display"
+	"livefield/online"
 	"livefield/stream/binning"
 	"livefield/stream/ingest"
 	"livefield/stream/shards"
@@ -23,6 +24,8 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 	addr := fs.String("http", "127.0.0.1:8080", "HTTP listen address")
 	stimuli := fs.String("stimuli", ".", "directory of movie stimulus files")
 	grace := fs.Duration("grace", time.Duration(binning.DefaultGrace*float64(time.Second)), "how long a bin waits for late spikes")
+	priorPixels := fs.Int("prior-pixels", 0, "side of the smooth-local estimate's window, pixels (0: 7; 9 holds more of a large field, at about 3× the cost per refit)")
+	priorLags := fs.Int("prior-lags", 0, "lags in the smooth-local estimate's window (0: 6)")
 	lambdaFlag := fs.String("lambda", "0", "ridge penalty λ; 0 takes the default, 100 × the stimulus pixel variance; \"evidence\" chooses it by empirical Bayes at the end of each block for the blocks that follow")
 	maxUnits := fs.Int("max-units", ingest.DefaultMaxUnits, "cap on distinct unit ids per block")
 	apiToken := fs.String("api-token", "", "when set, required by the HTTP commands (POST /api/…) and exports, header "+display.TokenHeader)
@@ -81,6 +84,7 @@ func runServe(ctx context.Context, fs *flag.FlagSet, args []string, stdout, stde
 		StimuliDir: *stimuli,
 		Grace:      grace.Seconds(),
 		Lambda:     lambda,
+		Prior:      online.PriorOptions{WindowPixels: *priorPixels, WindowLags: *priorLags},
 		Evidence:   evidence,
 		MaxUnits:   *maxUnits,
 		Logger:     log,

@@ -164,6 +164,7 @@ func (l *intake) startBlock(b wire.Block, at time.Time) error {
 		Fraction:      l.crit.Fraction,
 		Geometry:      geometry(b.Geometry),
 		Lambda:        l.c.lambdaFor(shape),
+		Prior:         l.c.opt.Prior,
 		PriorInline:   l.c.priorInline(),
 	}
 	mp, err := online.NewMapper(cfg)

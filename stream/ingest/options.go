@@ -52,6 +52,11 @@ type Options struct {
 	// Lambda is the ridge penalty of every block's estimates; 0 keeps the
 	// estimator's default (online.DefaultLambda times the pixel variance).
 	Lambda float64
+	// Prior sets the smooth-local estimate of every block (its window and
+	// evaluation budgets; online.PriorOptions, the zero value its defaults).
+	// A larger window holds more of each field, so units turn reliable
+	// sooner, at a cost per refit that grows with the window's size cubed.
+	Prior online.PriorOptions
 	// Evidence, with Lambda 0, chooses the penalty by the evidence
 	// (online.Mapper.Evidence) at the end of each block, in the background,
 	// and gives it to the later blocks with the same stimulus shape. The fit
