@@ -231,6 +231,9 @@ func windowShare(a, b []float64, w PriorWindow, width, height, lags int) float64
 // priorWorker runs priorRunners, each on its own goroutine and with its
 // share of the units, over the latest job.
 type priorWorker struct {
+	// gate is held for reading by each fit and for writing by Update, so
+	// that fits never run beside an update.
+	gate    sync.RWMutex
 	mu      sync.Mutex
 	job     *priorJob           // the latest job (latest wins)
 	results map[int]priorResult // the latest fit per unit
@@ -298,7 +301,10 @@ func (w *priorWorker) loop(runner *priorRunner, wake chan struct{}) {
 			}
 			continue
 		}
-		if res, ok := runner.fit(job, i); ok {
+		w.gate.RLock()
+		res, ok := runner.fit(job, i)
+		w.gate.RUnlock()
+		if ok {
 			w.mu.Lock()
 			if job.epoch == runner.epoch {
 				w.results[job.units[i].unit] = res

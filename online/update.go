@@ -40,6 +40,13 @@ func (m *Mapper) newScratch() *scratch {
 // Update folds the bins added since the last call into the estimates,
 // recomputes every unit's statistics and returns a new Snapshot.
 func (m *Mapper) Update() *Snapshot {
+	if w := m.prior.worker; w != nil {
+		// The background prior fits pause while the update runs (it waits
+		// for the fit in hand at most), so they use only the time the
+		// update leaves free and never slow it down.
+		w.gate.Lock()
+		defer w.gate.Unlock()
+	}
 	m.fold()
 	m.updates++
 	sh := &m.common
