@@ -79,13 +79,6 @@ type PriorWindow struct {
 // Size is the number of coefficients in the window.
 func (w PriorWindow) Size() int { return w.NX * w.NY * w.NT }
 
-// inside reports whether the window lies within a width×height frame with
-// lags lags and is not empty.
-func (w PriorWindow) inside(width, height, lags int) bool {
-	return w.NX > 0 && w.NY > 0 && w.NT > 0 && w.X0 >= 0 && w.Y0 >= 0 && w.T0 >= 0 &&
-		w.X0+w.NX <= width && w.Y0+w.NY <= height && w.T0+w.NT <= lags
-}
-
 // Indices returns, for every window coefficient in window order, its index
 // in the full lag-major layout of a width×height frame.
 func (w PriorWindow) Indices(width, height int) []int {
