@@ -99,6 +99,22 @@ function stcWords(d) {
   return d.flagged ? 'STC requested' : '';
 }
 
+// calibrationWords says when "no field" can be said of a unit still
+// collecting, at which spike count a significant unit's field was found,
+// and whether its field moved within the block (drift), with both centres.
+function calibrationWords(d) {
+  let w = '';
+  if (d.status === 'collecting' && typeof d.no_field_spikes === 'number') {
+    w += ' · "no field" only from ' + Math.round(d.no_field_spikes) + ' spikes, when a weak field would have shown';
+  }
+  if (d.significant_at_spikes > 0) w += ' · significant at ' + d.significant_at_spikes + ' spikes';
+  if (d.drift && d.drift_from && d.drift_to) {
+    w += ' · DRIFT: centre (' + num(d.drift_from[0], 1) + ', ' + num(d.drift_from[1], 1) + ') early, (' +
+      num(d.drift_to[0], 1) + ', ' + num(d.drift_to[1], 1) + ') late — the electrode may have moved';
+  }
+  return w;
+}
+
 function renderFacts(d) {
   const f = d.features || {};
   const st = statusOf(d.status);
@@ -106,7 +122,8 @@ function renderFacts(d) {
   $('d-status').className = 'badge ' + st.css;
   $('d-facts').textContent = 'ridge reliability ' + num(d.reliability, 2) + ' · ' + estimateWords(d) + ' · ETA ' + eta(d.eta_s) + ' · ' + d.spikes + ' spikes · ' +
     num(d.rate_hz, 1) + ' sp/s · −log10 p ' + num(d.significance, 1) + ' · latency ' + num(d.latency_ms, 0) +
-    ' ms · separability ' + num(f.separability, 2) + ' · ' + (f.polarity > 0 ? 'bright' : f.polarity < 0 ? 'dark' : '—') + ' peak';
+    ' ms · separability ' + num(f.separability, 2) + ' · ' + (f.polarity > 0 ? 'bright' : f.polarity < 0 ? 'dark' : '—') + ' peak' +
+    ' · predictive r ' + num(d.predictive_r, 2) + calibrationWords(d);
   $('d-stc').textContent = d.flagged ? 'Stop STC' : 'Ask for STC';
   const words = stcWords(d);
   $('d-stcstate').textContent = words;
