@@ -5,6 +5,21 @@ import (
 	"slices"
 )
 
+// Status is the plain-language state of one unit's estimate.
+type Status string
+
+// The unit states, in the order a unit normally passes through them.
+const (
+	// Collecting: too few spikes to say anything yet.
+	Collecting Status = "collecting"
+	// Emerging: the field is significant but not yet reliable.
+	Emerging Status = "emerging"
+	// Reliable: significant and its split-half reliability has reached the target.
+	Reliable Status = "reliable"
+	// NoField: enough spikes, and still no significant linear field.
+	NoField Status = "no field"
+)
+
 // Classify names the state of one unit's estimate:
 //
 //   - Reliable: significant and reliableReached (R ≥ target);

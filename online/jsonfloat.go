@@ -1,0 +1,46 @@
+package online
+
+import (
+	"encoding/json"
+	"math"
+	"strconv"
+)
+
+// Float is a float64 that encodes NaN and ±Inf as JSON null, so that one
+// undefined statistic never breaks a whole update.
+type Float float64
+
+// MarshalJSON encodes non-finite values as null.
+func (f Float) MarshalJSON() ([]byte, error) {
+	v := float64(f)
+	if math.IsNaN(v) || math.IsInf(v, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(nil, v, 'g', -1, 64), nil
+}
+
+// UnmarshalJSON reads null as NaN.
+func (f *Float) UnmarshalJSON(b []byte) error {
+	if string(b) == "null" {
+		*f = Float(math.NaN())
+		return nil
+	}
+	var v float64
+	if err := json.Unmarshal(b, &v); err != nil {
+		return err
+	}
+	*f = Float(v)
+	return nil
+}
+
+// Floats is a slice of Float for maps and profiles.
+type Floats []Float
+
+// FloatsOf copies a []float64 into Floats.
+func FloatsOf(v []float64) Floats {
+	out := make(Floats, len(v))
+	for i, x := range v {
+		out[i] = Float(x)
+	}
+	return out
+}
