@@ -95,10 +95,17 @@ type simulation struct {
 }
 
 func newSimulation(t testing.TB, cfg Config, cells []lnpCell, seed uint64, frame func(rng *rand.Rand, dst []float64)) *simulation {
+	if cfg.PriorInline == 0 {
+		// These tests are about the other estimates: the smooth-local
+		// estimate's background fits (prior_live_test.go) would only take
+		// the CPU they need.
+		cfg.NoPrior = true
+	}
 	m, err := NewMapper(cfg)
 	if err != nil {
 		t.Fatal(err)
 	}
+	t.Cleanup(m.Close)
 	s := &simulation{m: m, cells: cells, rng: rand.New(rand.NewPCG(seed, 7))}
 	s.frame = func(dst []float64) { frame(s.rng, dst) }
 	p := cfg.Width * cfg.Height
