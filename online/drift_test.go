@@ -37,7 +37,7 @@ func driftCheck(t *testing.T, cfg Config, stim lnp.Stimulus, gain float64) {
 	if !longChecks() {
 		units, minutes, shift = 20, 6, 3.0
 	}
-	m, err := NewMapper(cfg)
+	m, err := NewMapper(withoutPrior(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -151,7 +151,7 @@ func driftNullLooks(t *testing.T, cfg Config, stim lnp.Stimulus) {
 	if !longChecks() {
 		units = 100
 	}
-	m, err := NewMapper(cfg)
+	m, err := NewMapper(withoutPrior(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}

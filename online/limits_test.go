@@ -41,7 +41,7 @@ func TestConfigLimits(t *testing.T) {
 func TestRidgeExactAtLambdaFloor(t *testing.T) {
 	rel := func(lambda float64) float64 {
 		cfg := Config{Width: 6, Height: 6, Lags: 4, White: true, PixelVariance: 1, Lambda: MinLambda}
-		m, err := NewMapper(cfg)
+		m, err := NewMapper(withoutPrior(cfg))
 		if err != nil {
 			t.Fatal(err)
 		}

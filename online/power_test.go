@@ -40,7 +40,7 @@ func TestPowerAndNoField(t *testing.T) {
 				t.Skip("runs without -short and -race")
 			}
 			rng := rand.New(rand.NewPCG(53, 2))
-			m, err := NewMapper(tc.cfg)
+			m, err := NewMapper(withoutPrior(tc.cfg))
 			if err != nil {
 				t.Fatal(err)
 			}

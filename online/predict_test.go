@@ -27,7 +27,7 @@ func TestPredictiveRDirect(t *testing.T) {
 	}
 	rng := rand.New(rand.NewPCG(81, 82))
 	cfg := Config{Width: W, Height: H, Lags: L}
-	m, err := NewMapper(cfg)
+	m, err := NewMapper(withoutPrior(cfg))
 	if err != nil {
 		t.Fatal(err)
 	}
