@@ -124,7 +124,7 @@ func TestMergedPageInBrowser(t *testing.T) {
 	if err := chromedp.Do(ctx, chromedp.Click(chromedp.ID("d-stc"))); err != nil {
 		t.Fatal(err)
 	}
-	eventually(t, 10*time.Second, "shard 1/2 gets the STC request", func() bool {
+	eventually(t, time.Minute, "shard 1/2 gets the STC request", func() bool {
 		d, ok := w1.rig.Sync().Detail(id)
 		return ok && d.Flagged
 	})
