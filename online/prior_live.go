@@ -92,7 +92,8 @@ type priorRunner struct {
 	lastTurn            map[int]int64   // unit → turn of its last fit
 	turn                int64
 	cross, seed         []float64
-	part, parts         int // fits the units u with u mod parts = part
+	part, parts         int           // fits the units u with u mod parts = part
+	gate                *sync.RWMutex // passed to the fitters (see priorWorker.gate)
 }
 
 func newPriorRunner(cfg Config) *priorRunner {
@@ -109,6 +110,7 @@ func (r *priorRunner) reset(epoch int64) {
 	for i := range r.fitters {
 		// The config was checked by NewMapper, so this cannot fail.
 		r.fitters[i], _ = NewPriorFitter(r.width, r.height, r.lags, r.opt)
+		r.fitters[i].gate = r.gate
 	}
 	r.fittedOn = map[int]int64{}
 	r.lastTurn = map[int]int64{}
@@ -231,8 +233,9 @@ func windowShare(a, b []float64, w PriorWindow, width, height, lags int) float64
 // priorWorker runs priorRunners, each on its own goroutine and with its
 // share of the units, over the latest job.
 type priorWorker struct {
-	// gate is held for reading by each fit and for writing by Update, so
-	// that fits never run beside an update.
+	// gate is held for reading by each evidence evaluation of a fit and
+	// for writing by Update, so that fits never run beside an update and
+	// an update waits for one evaluation at most.
 	gate    sync.RWMutex
 	mu      sync.Mutex
 	job     *priorJob           // the latest job (latest wins)
@@ -248,6 +251,10 @@ func startPriorWorker(cfg Config) *priorWorker {
 	for k := range n {
 		r := newPriorRunner(cfg)
 		r.part, r.parts = k, n
+		r.gate = &w.gate
+		for _, f := range r.fitters {
+			f.gate = r.gate
+		}
 		wake := make(chan struct{}, 1)
 		w.wake = append(w.wake, wake)
 		w.wg.Go(func() { w.loop(r, wake) })
@@ -301,9 +308,7 @@ func (w *priorWorker) loop(runner *priorRunner, wake chan struct{}) {
 			}
 			continue
 		}
-		w.gate.RLock()
 		res, ok := runner.fit(job, i)
-		w.gate.RUnlock()
 		if ok {
 			w.mu.Lock()
 			if job.epoch == runner.epoch {

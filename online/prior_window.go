@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"sync"
 )
 
 // PriorOptions sizes the smooth-local fits. Zero fields take the defaults.
@@ -60,6 +61,11 @@ type PriorFitter struct {
 	units               map[int]*priorUnit
 	prob                *priorProblem
 	idx                 []int
+
+	// gate, when set, is held for reading during each evidence evaluation,
+	// so that an owner holding it for writing pauses the fit at the next
+	// evaluation (a few milliseconds) rather than after the whole refit.
+	gate *sync.RWMutex
 }
 
 // priorUnit is one unit's warm state.
@@ -93,6 +99,15 @@ func NewPriorFitter(width, height, lags int, opt PriorOptions) (*PriorFitter, er
 		return nil, fmt.Errorf("online: NewPriorFitter: options %+v", opt)
 	}
 	return &PriorFitter{width: width, height: height, lags: lags, opt: opt, units: make(map[int]*priorUnit)}, nil
+}
+
+// guarded runs step while holding the gate for reading (see gate).
+func (f *PriorFitter) guarded(step func() error) error {
+	if f.gate != nil {
+		f.gate.RLock()
+		defer f.gate.RUnlock()
+	}
+	return step()
 }
 
 // Last returns the unit's latest fit.
@@ -142,7 +157,7 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 		u.win, u.peak = win, peak
 	}
 	p := f.problem(u.win)
-	if err := v.WindowTo(p.gram, f.idx); err != nil {
+	if err := f.guarded(func() error { return v.WindowTo(p.gram, f.idx) }); err != nil {
 		return PriorFit{}, err
 	}
 	for i, a := range f.idx {
@@ -156,7 +171,11 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 	var c *compass
 	top := math.Inf(-1) // the best value of this refit, whose mean is in bestMu
 	objective := func(t [thetaDim]float64) (float64, bool) {
-		ev, err := p.evaluate(hyperOf(t), true)
+		var ev evaluation
+		err := f.guarded(func() (err error) {
+			ev, err = p.evaluate(hyperOf(t), true)
+			return err
+		})
 		if err != nil || math.IsNaN(ev.logEv) {
 			return 0, false
 		}

@@ -42,8 +42,8 @@ func (m *Mapper) newScratch() *scratch {
 func (m *Mapper) Update() *Snapshot {
 	if w := m.prior.worker; w != nil {
 		// The background prior fits pause while the update runs (it waits
-		// for the fit in hand at most), so they use only the time the
-		// update leaves free and never slow it down.
+		// for one evidence evaluation of the fit in hand at most), so they
+		// use only the time the update leaves free.
 		w.gate.Lock()
 		defer w.gate.Unlock()
 	}
