@@ -15,14 +15,21 @@ const autocorrLags = 32
 
 // countAutocov keeps, per unit, the lag products S_d = Σ_k y_k y_{k+d}
 // (d = 0…K) of the spike counts over the used bins, the first K counts and
-// the last K counts, from which the centred autocovariance
-// A(d) = Σ_k (y_k − ȳ)(y_{k+d} − ȳ) follows exactly.
+// the unit's recent non-zero counts (those within K bins of its latest), from
+// which the centred autocovariance A(d) = Σ_k (y_k − ȳ)(y_{k+d} − ȳ) follows
+// exactly. A new count pairs only with the recent non-zero counts, so its
+// cost follows the unit's rate, not K.
 type countAutocov struct {
-	k     int
-	sums  [][]float64 // per unit, K+1 lag products
-	head  [][]float64 // per unit, counts of the first K bins
-	ring  [][]float64 // per unit, counts of the last K+1 bins, bin b at b % (K+1)
-	stamp [][]int64   // per unit, the bin each ring slot holds (−1: none)
+	k      int
+	sums   [][]float64     // per unit, K+1 lag products
+	head   [][]float64     // per unit, counts of the first K bins
+	recent [][]recentCount // per unit, its non-zero counts of the last K+1 bins, oldest first
+}
+
+// recentCount is a unit's count in one bin.
+type recentCount struct {
+	bin int64
+	n   float64
 }
 
 func newCountAutocov(k int) *countAutocov { return &countAutocov{k: k} }
@@ -31,12 +38,7 @@ func (c *countAutocov) grow(units int) {
 	for len(c.sums) < units {
 		c.sums = append(c.sums, make([]float64, c.k+1))
 		c.head = append(c.head, make([]float64, c.k))
-		c.ring = append(c.ring, make([]float64, c.k+1))
-		st := make([]int64, c.k+1)
-		for i := range st {
-			st[i] = -1
-		}
-		c.stamp = append(c.stamp, st)
+		c.recent = append(c.recent, make([]recentCount, 0, c.k+1))
 	}
 }
 
@@ -44,36 +46,57 @@ func (c *countAutocov) reset() {
 	for u := range c.sums {
 		clear(c.sums[u])
 		clear(c.head[u])
-		clear(c.ring[u])
-		for i := range c.stamp[u] {
-			c.stamp[u][i] = -1
-		}
+		c.recent[u] = c.recent[u][:0]
 	}
 }
 
-// add records count n of unit u in used bin b (bins counted from 0; only
-// non-zero counts need be given; a unit listed twice in a bin has its
-// counts added). It returns the unit's count in the bin before this one
-// was added.
+// add records count n of unit u in used bin b (bins counted from 0, in
+// increasing order; only non-zero counts need be given; a unit listed twice
+// in a bin has its counts added). It returns the unit's count in the bin
+// before this one was added.
 func (c *countAutocov) add(u int, b int64, n float64) (before float64) {
 	K := int64(c.k)
-	s, ring, stamp := c.sums[u], c.ring[u], c.stamp[u]
-	i := b % (K + 1)
-	if stamp[i] == b {
-		before = ring[i]
+	s, rc := c.sums[u], c.recent[u]
+	same := false // the unit already has a count in bin b
+	if last := len(rc) - 1; last >= 0 && rc[last].bin == b {
+		before, same = rc[last].n, true
+		rc = rc[:last] // the earlier bins only, for the pairs below
 	}
 	s[0] += n * (2*before + n)
-	for d := int64(1); d <= K && d <= b; d++ {
-		j := (b - d) % (K + 1)
-		if stamp[j] == b-d {
-			s[d] += n * ring[j]
+	drop := 0 // counts now more than K bins back
+	for _, r := range rc {
+		d := b - r.bin
+		if d > K {
+			drop++
+			continue
 		}
+		s[d] += n * r.n
 	}
-	ring[i], stamp[i] = before+n, b
+	if !same {
+		if drop > 0 {
+			rc = append(rc[:0], rc[drop:]...)
+		}
+		rc = append(rc, recentCount{bin: b, n: n})
+	} else {
+		rc = rc[:len(rc)+1]
+		rc[len(rc)-1].n = before + n
+	}
+	c.recent[u] = rc
 	if b < K {
 		c.head[u][b] = before + n
 	}
 	return before
+}
+
+// countAt is unit u's count in bin j, which must be among the last K+1 bins
+// up to the unit's latest count.
+func (c *countAutocov) countAt(u int, j int64) float64 {
+	for _, r := range c.recent[u] {
+		if r.bin == j {
+			return r.n
+		}
+	}
+	return 0
 }
 
 // autocovTo writes A(0…K) of unit u over m used bins with spike total sy.
@@ -92,10 +115,7 @@ func (c *countAutocov) autocovTo(dst []float64, u int, m int64, sy float64) {
 			if d-1 < K {
 				headSum += c.head[u][d-1]
 			}
-			j := m - d
-			if sl := j % (K + 1); c.stamp[u][sl] == j {
-				tailSum += c.ring[u][sl]
-			}
+			tailSum += c.countAt(u, m-d)
 		}
 		dst[d] = c.sums[u][d] - mean*(2*sy-headSum-tailSum) + float64(m-d)*mean*mean
 	}

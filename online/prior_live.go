@@ -2,6 +2,7 @@ package online
 
 import (
 	"math"
+	"runtime"
 	"sync"
 )
 
@@ -329,6 +330,7 @@ func (w *priorWorker) close() {
 // priorState is the mapper's side of the live prior.
 type priorState struct {
 	inline  *priorRunner
+	all     []*priorRunner // PriorInlineAll's runners, one per core
 	worker  *priorWorker
 	closed  bool
 	epoch   int64
@@ -379,12 +381,11 @@ func (m *Mapper) livePrior(details []*UnitDetail) {
 	}
 	if !ps.closed {
 		if job := m.priorJob(details); job != nil {
-			if n := m.cfg.PriorInline; n != 0 {
+			if n := m.cfg.PriorInline; n < 0 {
+				m.priorInlineAll(job)
+			} else if n > 0 {
 				if ps.inline == nil {
 					ps.inline = newPriorRunner(m.cfg)
-				}
-				if n < 0 {
-					n = len(job.units)
 				}
 				for range n {
 					i := ps.inline.pick(job)
@@ -412,6 +413,46 @@ func (m *Mapper) livePrior(details []*UnitDetail) {
 			continue
 		}
 		m.applyPrior(u, d, res)
+	}
+}
+
+// priorInlineAll fits every unit of job before it returns, on all cores:
+// runner k takes the units u with u mod runners = k, so that each unit's
+// warm state stays with one runner and the results do not depend on which
+// goroutine ran first.
+func (m *Mapper) priorInlineAll(job *priorJob) {
+	ps := &m.prior
+	if k := max(1, runtime.GOMAXPROCS(0)); len(ps.all) != k {
+		ps.all = make([]*priorRunner, k)
+		for i := range k {
+			ps.all[i] = newPriorRunner(m.cfg)
+			ps.all[i].part, ps.all[i].parts = i, k
+		}
+	}
+	type fitted struct {
+		unit int
+		res  priorResult
+	}
+	out := make([][]fitted, len(ps.all))
+	var wg sync.WaitGroup
+	for k, r := range ps.all {
+		wg.Go(func() {
+			for {
+				i := r.pick(job)
+				if i < 0 {
+					return
+				}
+				if res, ok := r.fit(job, i); ok {
+					out[k] = append(out[k], fitted{job.units[i].unit, res})
+				}
+			}
+		})
+	}
+	wg.Wait()
+	for _, fs := range out {
+		for _, f := range fs {
+			ps.results[f.unit] = f.res
+		}
 	}
 }
 

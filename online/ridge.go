@@ -278,15 +278,18 @@ func (r *Ridge) Flush() {
 
 	// V = P Aᵀ from the lower triangle, one tile at a time while it is in
 	// cache: P_IJ At_J goes to rows I of V and, below the diagonal, the
-	// transposed half A_I P_IJ to columns J of Vt. Each worker accumulates
-	// into its own V and Vt; they are summed into Vt afterwards.
+	// transposed half A_I P_IJ to columns J of Vt. Each lane (one per
+	// worker) accumulates a fixed set of tiles, in a fixed order, into its
+	// own V and Vt; they are summed into Vt afterwards, lane by lane. The
+	// sums therefore do not depend on which worker took which piece: the
+	// result is the same bit for bit from run to run.
 	vt := r.vt[:bp*ld]
 	for w := range r.wv {
 		clear(r.wv[w][:ld*bp])
 		clear(r.wvt[w][:bp*ld])
 	}
 	r.job.phase, r.job.bp = phaseV, bp
-	fastmat.Each(r.nt*(r.nt+1)/2, &r.job)
+	fastmat.Each(len(r.wv), &r.job)
 	r.job.phase = phaseVSum
 	fastmat.Each((ld+tileSize-1)/tileSize, &r.job)
 
@@ -412,13 +415,17 @@ func (j *ridgeJob) Do(i, w int) {
 	buf := &r.bufs[w]
 	switch j.phase {
 	case phaseV:
-		I, J := ridgeTileOf(i)
-		i0, mi := r.tile(I)
-		j0, mj := r.tile(J)
-		pt := r.p[i0*ld+j0:]
-		buf.MulAdd(mi, bp, mj, 1, pt, ld, r.at[j0*bp:], bp, r.wv[w][i0*bp:], bp)
-		if I != J {
-			buf.MulAdd(bp, mj, mi, 1, r.a[i0:], ld, pt, ld, r.wvt[w][j0:], ld)
+		// Lane i: tiles i, i + lanes, i + 2·lanes, …
+		lanes, tiles := len(r.wv), r.nt*(r.nt+1)/2
+		for t := i; t < tiles; t += lanes {
+			I, J := ridgeTileOf(t)
+			i0, mi := r.tile(I)
+			j0, mj := r.tile(J)
+			pt := r.p[i0*ld+j0:]
+			buf.MulAdd(mi, bp, mj, 1, pt, ld, r.at[j0*bp:], bp, r.wv[i][i0*bp:], bp)
+			if I != J {
+				buf.MulAdd(bp, mj, mi, 1, r.a[i0:], ld, pt, ld, r.wvt[i][j0:], ld)
+			}
 		}
 	case phaseVSum:
 		// Columns [lo, hi) of Vt: the sum of the workers' parts.

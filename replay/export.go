@@ -84,6 +84,8 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 		// update at the block end.
 		fo.UpdateEvery = FinalOnly
 	}
+	// The estimator works beside the decoding; the estimates are the same.
+	fo.Pipelined = true
 	user := fo.OnBlockEnd
 	fo.OnBlockEnd = func(block string, s *online.Snapshot, at time.Time) {
 		if opt.Block == "" || block == opt.Block {
@@ -97,6 +99,7 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 	if err != nil {
 		return out, err
 	}
+	defer f.Close()
 	played, err := f.FeedSession(ctx, r, PassOptions{OnDamage: opt.OnDamage, Progress: opt.Progress, ProgressEvery: opt.ProgressEvery})
 	out.Records, out.Damaged = played.Records, played.Damaged
 	if err != nil {

@@ -41,6 +41,11 @@ type FeedOptions struct {
 	// OnBlockEnd, when set, is called likewise with the final snapshot of
 	// each block.
 	OnBlockEnd func(block string, s *online.Snapshot, at time.Time)
+	// Pipelined decodes and bins the next messages while the estimator
+	// works (ingest.Options.Pipelined): the same estimates, sooner, on two
+	// cores. OnUpdate and OnBlockEnd then run on the estimator's goroutine,
+	// not under the feeder's lock.
+	Pipelined bool
 }
 
 // Feeder turns decoded session messages into estimates without NATS: it is
@@ -70,6 +75,7 @@ func NewFeeder(opt FeedOptions) (*Feeder, error) {
 		OnBlockEnd:  opt.OnBlockEnd,
 		Lambda:      opt.Lambda,
 		Evidence:    opt.Evidence,
+		Pipelined:   opt.Pipelined,
 	})
 	if err != nil {
 		return nil, fmt.Errorf("replay: %w", err)
@@ -105,6 +111,15 @@ func (f *Feeder) Feed(subject string, data []byte, at time.Time) error {
 		return &FeedError{Subject: ie.Subject, Reason: ie.Reason, Err: ie.Err}
 	}
 	return err
+}
+
+// Close stops the feeder's goroutines (a pipelined feeder's estimator, the
+// evidence fits still running) and waits for them. The estimates published
+// so far stay readable.
+func (f *Feeder) Close() {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	f.loop.Close()
 }
 
 // FeedRecord feeds one session record.

@@ -5,6 +5,7 @@ import (
 	"context"
 	"errors"
 	"flag"
+	"livefield/online"
 	"os"
 	"strings"
 	"testing"
@@ -183,5 +184,40 @@ func TestCorruptRecordReported(t *testing.T) {
 	}
 	if st.Records != int64(len(all)-1) || st.Damaged != 1 {
 		t.Errorf("%d records, %d damaged; want %d and 1", st.Records, st.Damaged, len(all)-1)
+	}
+}
+
+// TestPipelinedSameEstimates: a pipelined feeder (the estimator on its own
+// goroutine, decoding ahead) publishes the inline feeder's estimates bit
+// for bit, with updates every second and with only the final one, and
+// calls OnUpdate as often. The estimates are deterministic given the bins
+// and the update instants (determinism is the property, no outside source).
+func TestPipelinedSameEstimates(t *testing.T) {
+	recs := readRecords(t, fixturePath)
+	for _, tc := range []struct {
+		name  string
+		every time.Duration
+	}{{"every second", time.Second}, {"final only", FinalOnly}} {
+		every := tc.every
+		t.Run(tc.name, func(t *testing.T) {
+			var updates [2]int
+			var finals [2]*online.Snapshot
+			for i, pipelined := range []bool{false, true} {
+				f, err := NewFeeder(FeedOptions{UpdateEvery: every, Pipelined: pipelined,
+					OnUpdate: func(string, *online.Snapshot, time.Time) { updates[i]++ }})
+				if err != nil {
+					t.Fatal(err)
+				}
+				for _, r := range recs {
+					_ = f.FeedRecord(r)
+				}
+				finals[i] = f.Finish()
+				f.Close()
+			}
+			if updates[0] != updates[1] || updates[0] == 0 {
+				t.Errorf("updates: inline %d, pipelined %d", updates[0], updates[1])
+			}
+			sameEstimates(t, finals[1], finals[0], 0)
+		})
 	}
 }

@@ -64,18 +64,26 @@ func (e *estimator) init(c *Loop) {
 
 // run applies events as they come and updates on time, until ctx is done.
 // Ticks wake it when no event comes, so that updates stay on time.
-func (e *estimator) run(ctx context.Context, q *eventQueue) {
-	tick := time.NewTicker(tickEvery)
-	defer tick.Stop()
+// With wall false (a pipelined Loop) it keeps no time of its own: the
+// evTick events carry the arrival clock.
+func (e *estimator) run(ctx context.Context, q *eventQueue, wall bool) {
+	var ticks <-chan time.Time
+	if wall {
+		tick := time.NewTicker(tickEvery)
+		defer tick.Stop()
+		ticks = tick.C
+	}
 	for {
 		select {
 		case <-ctx.Done():
 			return
 		case <-q.wake:
-		case <-tick.C:
+		case <-ticks:
 		}
 		e.drain(q)
-		e.maybeUpdate(e.c.opt.Now())
+		if wall {
+			e.maybeUpdate(e.c.opt.Now())
+		}
 	}
 }
 
@@ -147,6 +155,8 @@ func (e *estimator) apply(ev *event, counts []online.Count) {
 			e.update(e.clock)
 		}
 		close(ev.done)
+	case evTick:
+		e.maybeUpdate(ev.at)
 	}
 }
 

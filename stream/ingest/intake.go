@@ -447,13 +447,14 @@ func geometry(g *wire.Geometry) *online.Geometry {
 }
 
 // priorInline says where the mapper fits the smooth-local estimate: on its
-// background worker in a Rig; inline in a Loop (replay, export), so that the
+// background worker in a Rig; inline in a Loop (replay, export; pipelined
+// or not), so that the
 // estimates are reproducible: every significant unit at each update when
 // only the final update is made (an export), otherwise a few units per
 // update, round-robin.
 func (c *Loop) priorInline() int {
 	switch {
-	case c.async:
+	case c.async && !c.paced:
 		return 0
 	case c.opt.UpdateEvery >= time.Hour:
 		return online.PriorInlineAll

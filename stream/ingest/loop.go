@@ -29,11 +29,13 @@ type Loop struct {
 	in  intake
 	est estimator
 	q   *eventQueue
-	// async: the estimator runs on its own goroutine (a Rig's).
-	async bool
-	ctx   context.Context
-	stop  context.CancelFunc
-	wg    sync.WaitGroup
+	// async: the estimator runs on its own goroutine (a Rig's, or a
+	// pipelined Loop's); paced: it updates on the arrival clock carried by
+	// evTick events, as an inline one does (a pipelined Loop's).
+	async, paced bool
+	ctx          context.Context
+	stop         context.CancelFunc
+	wg           sync.WaitGroup
 
 	snap      atomic.Pointer[online.Snapshot]
 	estimates atomic.Pointer[estimates]
@@ -82,11 +84,14 @@ func NewLoop(opt Options) (*Loop, error) {
 	if err := opt.fill(); err != nil {
 		return nil, err
 	}
-	return newLoop(opt, false), nil
+	return newLoop(opt, opt.Pipelined), nil
 }
 
+// newLoop returns a Loop whose estimator runs inline, or on a goroutine of
+// its own when async: paced by the arrival clock when opt.Pipelined, by the
+// wall clock (a Rig's) otherwise.
 func newLoop(opt Options, async bool) *Loop {
-	c := &Loop{opt: opt, async: async, q: newEventQueue(),
+	c := &Loop{opt: opt, async: async, paced: async && opt.Pipelined, q: newEventQueue(),
 		rejected: map[string]uint64{}, logged: map[string]time.Time{}}
 	c.n.init()
 	c.estimates.Store(&estimates{EstimateT: math.NaN(), Wait: math.NaN()})
@@ -98,7 +103,8 @@ func newLoop(opt Options, async bool) *Loop {
 		c.wg.Add(1)
 		go func() {
 			defer c.wg.Done()
-			c.est.run(c.ctx, c.q)
+			defer c.q.close()
+			c.est.run(c.ctx, c.q, !c.paced)
 		}()
 	}
 	return c
@@ -152,11 +158,17 @@ func (c *Loop) handle(m message) { _ = c.in.handle(m) }
 func (c *Loop) processed() uint64 { return c.n.processed.Load() }
 
 // settle lets an inline estimator catch up with the intake and update when
-// due; an estimator on its own goroutine does that by itself.
+// due; a pipelined Loop's estimator gets the clock as an event (and the
+// feeding goroutine waits while too many bins are queued); a Rig's
+// estimator keeps time by itself.
 func (c *Loop) settle(now time.Time) {
-	if !c.async {
+	switch {
+	case !c.async:
 		c.est.drain(c.q)
 		c.est.maybeUpdate(now)
+	case c.paced:
+		c.q.push(event{kind: evTick, at: now}, nil)
+		c.q.waitRoom(PipelineBins)
 	}
 }
 

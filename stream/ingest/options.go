@@ -114,7 +114,21 @@ type Options struct {
 	// OnBlockEnd, when set, is called likewise with each block's final
 	// snapshot.
 	OnBlockEnd func(block string, s *online.Snapshot, at time.Time)
+
+	// Pipelined, for NewLoop, runs the estimator on a goroutine of its own
+	// while the caller's Feed decodes and bins the next messages (replay
+	// at full speed, export). The estimator is still paced by the arrival
+	// times, so the estimates are those of the inline estimator, bit for
+	// bit; Feed waits while more than PipelineBins bins are queued, so
+	// memory stays bounded. OnUpdate and OnBlockEnd then run on the
+	// estimator's goroutine; Finish and Update wait for it.
+	Pipelined bool
 }
+
+// PipelineBins is how many bins a pipelined Loop's Feed lets queue up
+// before it waits for the estimator: about a minute of 60 Hz bins, a few
+// hundred kilobytes of events.
+const PipelineBins = 4096
 
 func (o *Options) fill() error {
 	if o.Grace == 0 {

@@ -20,6 +20,7 @@ const (
 	evCriterion                  // a new block criterion
 	evGap                        // the stream paused: restart the lag history
 	evSync                       // update now and close done
+	evTick                       // a pipelined Loop's arrival clock: update when due
 )
 
 // event is one step of the intake's decisions, applied in order by the
@@ -61,9 +62,35 @@ type eventQueue struct {
 	events []event
 	counts []online.Count
 	wake   chan struct{} // one token: something was pushed
+
+	bins   int        // bins queued (not yet taken)
+	room   *sync.Cond // signalled by take and close, for waitRoom
+	closed bool       // the estimator stopped: waitRoom returns at once
 }
 
-func newEventQueue() *eventQueue { return &eventQueue{wake: make(chan struct{}, 1)} }
+func newEventQueue() *eventQueue {
+	q := &eventQueue{wake: make(chan struct{}, 1)}
+	q.room = sync.NewCond(&q.mu)
+	return q
+}
+
+// waitRoom waits until at most max bins are queued (a pipelined Loop's
+// bound) or the queue is closed.
+func (q *eventQueue) waitRoom(max int) {
+	q.mu.Lock()
+	for q.bins > max && !q.closed {
+		q.room.Wait()
+	}
+	q.mu.Unlock()
+}
+
+// close releases waitRoom for good: the estimator will take nothing more.
+func (q *eventQueue) close() {
+	q.mu.Lock()
+	q.closed = true
+	q.mu.Unlock()
+	q.room.Broadcast()
+}
 
 // push appends e, with counts for a bin.
 func (q *eventQueue) push(e event, counts []online.Count) {
@@ -72,6 +99,7 @@ func (q *eventQueue) push(e event, counts []online.Count) {
 		e.lo = len(q.counts)
 		q.counts = append(q.counts, counts...)
 		e.hi = len(q.counts)
+		q.bins++
 	}
 	q.events = append(q.events, e)
 	q.mu.Unlock()
@@ -85,8 +113,10 @@ func (q *eventQueue) push(e event, counts []online.Count) {
 // its place.
 func (q *eventQueue) take(events []event, counts []online.Count) ([]event, []online.Count) {
 	q.mu.Lock()
-	defer q.mu.Unlock()
 	ev, c := q.events, q.counts
 	q.events, q.counts = events[:0], counts[:0]
+	q.bins = 0
+	q.mu.Unlock()
+	q.room.Broadcast()
 	return ev, c
 }

@@ -25,3 +25,18 @@ func kern4x12(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha
 //
 //go:noescape
 func kern12x16(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha float64)
+
+// hasAxpy16 tells whether axpy16 can run (AVX2 and FMA).
+var hasAxpy16 = cpu.X86.HasAVX2 && cpu.X86.HasFMA
+
+// axpy16 adds alpha·x to y over n values, n a positive multiple of 16,
+// with AVX2 and FMA.
+//
+//go:noescape
+func axpy16(n int, alpha float64, x *float64, y *float64)
+
+// axpy4x16 adds a[0]·x0 + a[1]·x1 + a[2]·x2 + a[3]·x3 to y over n values,
+// n a positive multiple of 16, with AVX2 and FMA.
+//
+//go:noescape
+func axpy4x16(n int, a *[4]float64, x0, x1, x2, x3 *float64, y *float64)
