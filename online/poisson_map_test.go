@@ -1,0 +1,210 @@
+package online
+
+import (
+	"encoding/json"
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// poissonGolden is testdata/golden/poisson_map.json, written by
+// testdata/golden/poisson_map.py: the log posterior from the formulas in
+// numpy/scipy and the MAP found by scipy.optimize.minimize (Newton-CG with
+// the analytic gradient and Hessian).
+type poissonGolden struct {
+	X                 [][]float64 `json:"x"`
+	Y                 []float64   `json:"y"`
+	C                 [][]float64 `json:"c"`
+	BFixed            float64     `json:"b_fixed"`
+	WFixed            []float64   `json:"w_fixed"`
+	LogPosteriorFixed float64     `json:"log_posterior_fixed"`
+	MapB              float64     `json:"map_b"`
+	MapW              []float64   `json:"map_w"`
+	MapLogPosterior   float64     `json:"map_log_posterior"`
+	MapGradNorm       float64     `json:"map_grad_norm"`
+	Window            PriorWindow `json:"window"`
+	Hyper             SmoothLocal `json:"hyper"`
+	WindowCov         [][]float64 `json:"window_cov"`
+}
+
+func loadPoissonGolden(t *testing.T) poissonGolden {
+	t.Helper()
+	b, err := os.ReadFile(filepath.Join("..", "testdata", "golden", "poisson_map.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var g poissonGolden
+	if err := json.Unmarshal(b, &g); err != nil {
+		t.Fatal(err)
+	}
+	return g
+}
+
+// denseDesign is a design held as a dense matrix (tests only).
+type denseDesign [][]float64
+
+func (d denseDesign) bins() int { return len(d) }
+func (d denseDesign) dim() int  { return len(d[0]) }
+func (d denseDesign) rowsTo(dst []float64, from, n int) {
+	k := d.dim()
+	for r := range n {
+		copy(dst[r*k:(r+1)*k], d[from+r])
+	}
+}
+
+// poissonGoldenProblem builds the golden data set's problem and the lower Cholesky
+// factor R of its prior covariance (C = RRᵀ, gonum).
+func poissonGoldenProblem(t *testing.T, g poissonGolden) (*poissonData, *mat.TriDense) {
+	t.Helper()
+	k := len(g.C)
+	p := &poissonData{design: denseDesign(g.X), xy: make([]float64, k)}
+	for i, row := range g.X {
+		for j, v := range row {
+			p.xy[j] += g.Y[i] * v
+		}
+		p.sy += g.Y[i]
+		p.logFac += logFactorial(g.Y[i])
+	}
+	c := mat.NewSymDense(k, nil)
+	for i := range k {
+		for j := range k {
+			c.SetSym(i, j, g.C[i][j])
+		}
+	}
+	var ch mat.Cholesky
+	if !ch.Factorize(c) {
+		t.Fatal("golden C is not positive definite")
+	}
+	var l mat.TriDense
+	ch.LTo(&l)
+	return p, &l
+}
+
+func solverFor(l *mat.TriDense) *poissonSolver {
+	k, _ := l.Dims()
+	s := newPoissonSolver(k)
+	r := make([]float64, k*k)
+	for i := range k {
+		for j := range k {
+			r[i*k+j] = l.At(i, j)
+		}
+	}
+	s.setFactor(r)
+	return s
+}
+
+func relErr(got, want float64) float64 { return math.Abs(got-want) / math.Max(1, math.Abs(want)) }
+
+func TestPoissonLogPosteriorGolden(t *testing.T) {
+	g := loadPoissonGolden(t)
+	p, l := poissonGoldenProblem(t, g)
+	s := solverFor(l)
+	// v = R⁻¹w, so that −½vᵀv = −½wᵀC⁻¹w.
+	var v mat.VecDense
+	if err := v.SolveVec(l, mat.NewVecDense(len(g.WFixed), append([]float64(nil), g.WFixed...))); err != nil {
+		t.Fatal(err)
+	}
+	theta := append([]float64{g.BFixed}, v.RawVector().Data...)
+	// Source: the formula in numpy/scipy (poisson_map.py), to 1e-8 relative.
+	if got := s.logPosterior(p, theta); relErr(got, g.LogPosteriorFixed) > 1e-8 {
+		t.Errorf("log posterior %.12g, numpy %.12g", got, g.LogPosteriorFixed)
+	}
+	if got := s.derivatives(p, theta); relErr(got, g.LogPosteriorFixed) > 1e-8 {
+		t.Errorf("log posterior of the Newton pass %.12g, numpy %.12g", got, g.LogPosteriorFixed)
+	}
+}
+
+func TestPoissonMAPGolden(t *testing.T) {
+	g := loadPoissonGolden(t)
+	p, l := poissonGoldenProblem(t, g)
+	s := solverFor(l)
+	res, err := s.solve(p, PoissonOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Logf("%d Newton steps, converged %v, b %.12g (scipy %.12g)", res.iterations, res.converged, res.theta[0], g.MapB)
+	if !res.converged || res.iterations < 2 || res.iterations > 20 {
+		t.Errorf("converged %v after %d iterations", res.converged, res.iterations)
+	}
+	// Source: scipy.optimize.minimize (Newton-CG, analytic derivatives),
+	// whose gradient norm at its optimum is MapGradNorm (< 1e-8): with the
+	// negative Hessian's eigenvalues above 1 (the prior's C⁻¹ ≥ 1/‖C‖ and
+	// the counts' curvature), the two optima agree to about that, so 1e-7.
+	const tol = 1e-7
+	if d := math.Abs(res.theta[0] - g.MapB); d > tol {
+		t.Errorf("b = %.10g, scipy %.10g", res.theta[0], g.MapB)
+	}
+	for i, w := range g.MapW {
+		if d := math.Abs(res.w[i] - w); d > tol {
+			t.Errorf("w[%d] = %.10g, scipy %.10g", i, res.w[i], w)
+		}
+	}
+	if relErr(res.logPosterior, g.MapLogPosterior) > 1e-10 {
+		t.Errorf("log posterior at the MAP %.14g, scipy %.14g", res.logPosterior, g.MapLogPosterior)
+	}
+}
+
+// The factor of the smooth-local prior against its covariance built entry
+// by entry in numpy (poisson_map.py; the model of Sahani & Linden 2003 and
+// Park & Pillow 2011): R Rᵀ = C.
+func TestPoissonPriorFactorGolden(t *testing.T) {
+	g := loadPoissonGolden(t)
+	r, err := priorFactor(g.Hyper, g.Window, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	k := g.Window.Size()
+	if len(g.WindowCov) != k {
+		t.Fatalf("golden covariance %d, window %d", len(g.WindowCov), k)
+	}
+	for i := range k {
+		for j := range k {
+			var c float64
+			for m := range k {
+				c += r[i*k+m] * r[j*k+m]
+			}
+			if math.Abs(c-g.WindowCov[i][j]) > 1e-10 {
+				t.Errorf("C[%d][%d] = %.12g, numpy %.12g", i, j, c, g.WindowCov[i][j])
+			}
+		}
+	}
+}
+
+func TestPoissonUnfittable(t *testing.T) {
+	s, err := NewBinStore(4, 4, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	frame := make([]float64, 16)
+	for k := range 20 {
+		frame[k%16] = 1
+		if err := s.Add(frame, []Count{{Unit: 0, N: 0}}, k > 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	h := SmoothLocal{Scale: 1, Noise: 1, Length: [3]float64{1, 1, 1}, Centre: [3]float64{1, 1, 0}, Width: [3]float64{1, 1, 1}}
+	win := PriorWindow{NX: 2, NY: 2, NT: 2}
+	cases := []struct {
+		name string
+		u    PoissonUnit
+	}{
+		{"no spikes", PoissonUnit{Unit: 0, Hyper: h, Window: win}},
+		{"unknown unit", PoissonUnit{Unit: 7, Hyper: h, Window: win}},
+		{"window past the lags", PoissonUnit{Unit: 0, Hyper: h, Window: PriorWindow{NX: 2, NY: 2, NT: 3}}},
+		{"empty window", PoissonUnit{Unit: 0, Hyper: h}},
+		{"zero scale", PoissonUnit{Unit: 0, Hyper: SmoothLocal{}, Window: win}},
+	}
+	units := make([]PoissonUnit, len(cases))
+	for i, c := range cases {
+		units[i] = c.u
+	}
+	_, errs := s.PoissonMAPAll(units, PoissonOptions{Workers: 2})
+	for i, c := range cases {
+		if errs[i] == nil {
+			t.Errorf("%s: no error", c.name)
+		}
+	}
+}
