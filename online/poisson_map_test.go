@@ -3,6 +3,7 @@ package online
 import (
 	"encoding/json"
 	"math"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"testing"
@@ -205,6 +206,107 @@ func TestPoissonUnfittable(t *testing.T) {
 	for i, c := range cases {
 		if errs[i] == nil {
 			t.Errorf("%s: no error", c.name)
+		}
+	}
+}
+
+// The store's rows are the lagged frames (common practice, no source: the
+// design of a linear filter on a stimulus history), whether the frames are
+// kept as palette codes or, past 256 values, as float64; a unit given twice
+// in a bin has its counts added.
+func TestBinStoreRows(t *testing.T) {
+	const w, h, lags = 3, 2, 3
+	cases := []struct {
+		name  string
+		value func(r *rand.Rand) float64
+		wide  bool
+	}{
+		{"ternary", func(r *rand.Rand) float64 { return float64(r.IntN(3) - 1) }, false},
+		{"gaussian", func(r *rand.Rand) float64 { return r.NormFloat64() }, true},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(5, 6))
+			s, err := NewBinStore(w, h, lags)
+			if err != nil {
+				t.Fatal(err)
+			}
+			var frames [][]float64
+			for k := range 100 {
+				f := make([]float64, w*h)
+				for i := range f {
+					f[i] = c.value(rng)
+				}
+				frames = append(frames, f)
+				used := k >= lags-1
+				if err := s.Add(f, []Count{{Unit: 3, N: 1}, {Unit: 3, N: 2}}, used); err != nil {
+					t.Fatal(err)
+				}
+			}
+			if (s.wide != nil) != c.wide {
+				t.Fatalf("wide storage %v, want %v", s.wide != nil, c.wide)
+			}
+			win := PriorWindow{X0: 1, Y0: 0, T0: 1, NX: 2, NY: 2, NT: 2}
+			d := s.windowDesign(win)
+			if d.bins() != 100-(lags-1) {
+				t.Fatalf("%d bins", d.bins())
+			}
+			row := make([]float64, win.Size())
+			for bin := range d.bins() {
+				d.rowsTo(row, bin, 1)
+				i := 0
+				for l := range win.NT {
+					for y := range win.NY {
+						for x := range win.NX {
+							want := frames[bin+lags-1-(win.T0+l)][(win.Y0+y)*w+win.X0+x]
+							if row[i] != want {
+								t.Fatalf("bin %d coefficient %d: %v, want %v", bin, i, row[i], want)
+							}
+							i++
+						}
+					}
+				}
+			}
+			u := s.units[3]
+			if len(u.bins) != d.bins() || u.counts[0] != 3 || u.sum != 3*float64(d.bins()) || math.Abs(u.logFac-float64(d.bins())*math.Log(6)) > 1e-9 {
+				t.Errorf("counts %v…, sum %v, Σlog y! %v", u.counts[:1], u.sum, u.logFac)
+			}
+		})
+	}
+}
+
+// PoissonMAPAll gives every unit the fit PoissonMAP gives it alone, whatever
+// the number of workers (common practice, no source: determinism).
+func TestPoissonMAPAllMatchesOne(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 9))
+	s, err := NewBinStore(4, 4, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := range 600 {
+		f := make([]float64, 16)
+		for i := range f {
+			f[i] = float64(2*rng.IntN(2) - 1)
+		}
+		counts := []Count{{Unit: 0, N: float64(rng.IntN(3))}, {Unit: 1, N: float64(rng.IntN(2))}}
+		if err := s.Add(f, counts, k > 0); err != nil {
+			t.Fatal(err)
+		}
+	}
+	h := SmoothLocal{Scale: 0.05, Noise: 1, Length: [3]float64{1, 1, 1}, Centre: [3]float64{1.5, 1.5, 0.5}, Width: [3]float64{2, 2, 1}}
+	units := []PoissonUnit{
+		{Unit: 0, Hyper: h, Window: PriorWindow{NX: 3, NY: 3, NT: 2}},
+		{Unit: 1, Hyper: h, Window: PriorWindow{X0: 1, Y0: 1, NX: 3, NY: 3, NT: 2}},
+		{Unit: 0, Hyper: h, Window: PriorWindow{NX: 4, NY: 4, NT: 1}},
+	}
+	fits, errs := s.PoissonMAPAll(units, PoissonOptions{Workers: 2})
+	for i, u := range units {
+		one, err := s.PoissonMAP(u, PoissonOptions{})
+		if err != nil || errs[i] != nil {
+			t.Fatalf("unit %d: %v, %v", i, err, errs[i])
+		}
+		if one.LogPosterior != fits[i].LogPosterior || one.Iterations != fits[i].Iterations {
+			t.Errorf("unit %d: alone L %v in %d steps, with workers L %v in %d", i, one.LogPosterior, one.Iterations, fits[i].LogPosterior, fits[i].Iterations)
 		}
 	}
 }
