@@ -240,10 +240,12 @@ func (s *poissonSolver) derivatives(p *poissonData, theta []float64) float64 {
 			scaled := s.xl[r*k : (r+1)*k]
 			for i, xv := range row {
 				scaled[i] = lam * xv
-				s.gx[i] += lam * xv
-				s.xt[i*n+r] = xv
+			}
+			for i, v := range scaled {
+				s.gx[i] += v
 			}
 		}
+		transposeBlocked(s.xt, s.x, n, k)
 		// H += Xᵀ diag(λ) X.
 		s.buf.MulAdd(k, k, n, 1, s.xt, n, s.xl, k, s.h, k)
 	}
@@ -273,6 +275,24 @@ func (s *poissonSolver) derivatives(p *poissonData, theta []float64) float64 {
 		}
 	}
 	return l
+}
+
+// transposeBlocked writes the transpose of the rows×cols matrix src into dst
+// (cols×rows), in 16×16 tiles so that both sides stay in cache.
+func transposeBlocked(dst, src []float64, rows, cols int) {
+	const tile = 16
+	for r0 := 0; r0 < rows; r0 += tile {
+		r1 := min(r0+tile, rows)
+		for c0 := 0; c0 < cols; c0 += tile {
+			c1 := min(c0+tile, cols)
+			for r := r0; r < r1; r++ {
+				row := src[r*cols+c0 : r*cols+c1]
+				for j, v := range row {
+					dst[(c0+j)*rows+r] = v
+				}
+			}
+		}
+	}
 }
 
 // poissonResult is the outcome of poissonSolver.solve.
