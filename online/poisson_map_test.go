@@ -212,17 +212,20 @@ func TestPoissonUnfittable(t *testing.T) {
 
 // The store's rows are the lagged frames (common practice, no source: the
 // design of a linear filter on a stimulus history), whether the frames are
-// kept as palette codes or, past 256 values, as float64; a unit given twice
-// in a bin has its counts added.
+// kept as palette codes of 1 to 8 bits (repacked as the palette grows) or,
+// past 256 values, as float64; a unit given twice in a bin has its counts
+// added.
 func TestBinStoreRows(t *testing.T) {
 	const w, h, lags = 3, 2, 3
 	cases := []struct {
 		name  string
-		value func(r *rand.Rand) float64
-		wide  bool
+		value func(r *rand.Rand, k int) float64
+		bits  int // 0: float64
 	}{
-		{"ternary", func(r *rand.Rand) float64 { return float64(r.IntN(3) - 1) }, false},
-		{"gaussian", func(r *rand.Rand) float64 { return r.NormFloat64() }, true},
+		{"binary", func(r *rand.Rand, _ int) float64 { return float64(2*r.IntN(2) - 1) }, 1},
+		{"ternary", func(r *rand.Rand, _ int) float64 { return float64(r.IntN(3) - 1) }, 2},
+		{"palette growing to 40 values", func(r *rand.Rand, k int) float64 { return float64(r.IntN(1 + k*40/100)) }, 8},
+		{"gaussian", func(r *rand.Rand, _ int) float64 { return r.NormFloat64() }, 0},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -235,7 +238,7 @@ func TestBinStoreRows(t *testing.T) {
 			for k := range 100 {
 				f := make([]float64, w*h)
 				for i := range f {
-					f[i] = c.value(rng)
+					f[i] = c.value(rng, k)
 				}
 				frames = append(frames, f)
 				used := k >= lags-1
@@ -243,8 +246,8 @@ func TestBinStoreRows(t *testing.T) {
 					t.Fatal(err)
 				}
 			}
-			if (s.wide != nil) != c.wide {
-				t.Fatalf("wide storage %v, want %v", s.wide != nil, c.wide)
+			if bits := s.bits * btoi(s.wide == nil); bits != c.bits {
+				t.Fatalf("%d bits per code, want %d (0: float64)", bits, c.bits)
 			}
 			win := PriorWindow{X0: 1, Y0: 0, T0: 1, NX: 2, NY: 2, NT: 2}
 			d := s.windowDesign(win)
@@ -268,8 +271,8 @@ func TestBinStoreRows(t *testing.T) {
 				}
 			}
 			u := s.units[3]
-			if len(u.bins) != d.bins() || u.counts[0] != 3 || u.sum != 3*float64(d.bins()) || math.Abs(u.logFac-float64(d.bins())*math.Log(6)) > 1e-9 {
-				t.Errorf("counts %v…, sum %v, Σlog y! %v", u.counts[:1], u.sum, u.logFac)
+			if len(u.bins) != d.bins() || u.at(0) != 3 || u.sum != 3*float64(d.bins()) || math.Abs(u.logFac-float64(d.bins())*math.Log(6)) > 1e-9 {
+				t.Errorf("first count %v, sum %v, Σlog y! %v", u.at(0), u.sum, u.logFac)
 			}
 		})
 	}
@@ -308,5 +311,42 @@ func TestPoissonMAPAllMatchesOne(t *testing.T) {
 		if one.LogPosterior != fits[i].LogPosterior || one.Iterations != fits[i].Iterations {
 			t.Errorf("unit %d: alone L %v in %d steps, with workers L %v in %d", i, one.LogPosterior, one.Iterations, fits[i].LogPosterior, fits[i].Iterations)
 		}
+	}
+}
+
+func btoi(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+// Counts are kept in a byte while they are whole numbers up to 255, and as
+// float64 from the first one that is not, without changing any (common
+// practice, no source).
+func TestBinStoreCounts(t *testing.T) {
+	s, err := NewBinStore(2, 1, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := []float64{1, 255, 300, 0.5, 2}
+	for _, n := range want {
+		if err := s.Add([]float64{1, -1}, []Count{{Unit: 0, N: n}}, true); err != nil {
+			t.Fatal(err)
+		}
+	}
+	u := s.units[0]
+	var sum float64
+	for k, n := range want {
+		if u.at(k) != n {
+			t.Errorf("count %d: %v, want %v", k, u.at(k), n)
+		}
+		sum += n
+	}
+	if u.sum != sum || u.wide == nil {
+		t.Errorf("sum %v (want %v), float64 storage %v", u.sum, sum, u.wide != nil)
+	}
+	if err := s.Add([]float64{1, -1}, []Count{{Unit: 0, N: math.NaN()}}, true); err == nil {
+		t.Error("a NaN count was taken")
 	}
 }

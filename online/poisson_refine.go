@@ -43,7 +43,7 @@ func (s *BinStore) poissonMAP(u PoissonUnit, opt PoissonOptions, sv *poissonSolv
 	for i, b := range uc.bins {
 		design.rowsTo(row, int(b), 1)
 		for j, v := range row {
-			p.xy[j] += uc.counts[i] * v
+			p.xy[j] += uc.at(i) * v
 		}
 	}
 	mean := uc.sum / float64(s.Bins())

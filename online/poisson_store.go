@@ -7,24 +7,28 @@ import (
 )
 
 // BinStore keeps one block's bins in compact form for the offline Poisson
-// refinement (PoissonMAP): every frame once, as one byte per pixel while the
-// stimulus has at most 256 distinct pixel values (binary and ternary noise
-// always do) and as float64 otherwise, and each unit's non-zero counts as
-// (bin, count) pairs. A used bin's lagged stimulus row is rebuilt from the
-// frames on demand, so no bins × pixels·lags matrix is ever held: a 30-minute
-// block of 16×16 binary noise at 60 Hz (108000 frames) takes 28 MB of
-// frames plus 12 bytes per non-zero count.
+// refinement (PoissonMAP): every frame once, as palette codes of 1, 2, 4 or 8
+// bits per pixel while the stimulus has at most 256 distinct pixel values
+// (binary noise: one bit) and as float64 otherwise, and each unit's
+// non-zero counts as (bin, count) pairs of 5 bytes while the counts are
+// whole numbers up to 255 (12 bytes otherwise). A used bin's lagged
+// stimulus row is rebuilt from the frames on demand, so no bins × pixels·lags
+// matrix is ever held: a 30-minute block of 16×16 binary noise at 60 Hz
+// (108000 frames) takes 3.5 MB of frames plus 5 bytes per non-zero count.
 //
 // A BinStore is filled by one goroutine (Add); once filled it is read-only
 // and PoissonMAP may be called on it from several goroutines.
 type BinStore struct {
 	width, height, lags, pixels int
 
-	palette []float64         // distinct pixel values, while at most 256
-	code    map[float64]uint8 // value → index in palette
-	codes   []uint8           // frames × pixels, while the palette holds
-	wide    []float64         // frames × pixels, once it has overflowed
-	frames  int
+	palette    []float64         // distinct pixel values, while at most 256
+	code       map[float64]uint8 // value → index in palette
+	bits       int               // bits per packed code: 1, 2, 4 or 8 (0 before the first frame)
+	frameBytes int               // bytes per packed frame
+	packed     []byte            // frames × frameBytes, while the palette holds
+	wide       []float64         // frames × pixels, once it has overflowed
+	frames     int
+	scratch    []uint8 // one frame's codes
 
 	binFrame []int32 // per used bin, the index of its lag-0 frame
 	units    map[int]*unitCounts
@@ -33,9 +37,38 @@ type BinStore struct {
 // unitCounts is one unit's non-zero counts, in bin order.
 type unitCounts struct {
 	bins   []int32
-	counts []float64
-	sum    float64 // Σ counts
-	logFac float64 // Σ log(count!)
+	small  []uint8   // the counts, while each is a whole number ≤ 255
+	wide   []float64 // the counts, once one is not
+	sum    float64   // Σ counts
+	logFac float64   // Σ log(count!)
+}
+
+func (u *unitCounts) at(k int) float64 {
+	if u.wide != nil {
+		return u.wide[k]
+	}
+	return float64(u.small[k])
+}
+
+// set changes count k (k = len(bins) appends).
+func (u *unitCounts) set(k int, v float64) {
+	if u.wide == nil && (v != math.Trunc(v) || v > math.MaxUint8) {
+		u.wide = make([]float64, len(u.small), len(u.small)+1)
+		for i, c := range u.small {
+			u.wide[i] = float64(c)
+		}
+		u.small = nil
+	}
+	switch {
+	case u.wide != nil && k == len(u.wide):
+		u.wide = append(u.wide, v)
+	case u.wide != nil:
+		u.wide[k] = v
+	case k == len(u.small):
+		u.small = append(u.small, uint8(v))
+	default:
+		u.small[k] = uint8(v)
+	}
 }
 
 // NewBinStore returns an empty store for frames of width×height pixels
@@ -44,7 +77,7 @@ func NewBinStore(width, height, lags int) (*BinStore, error) {
 	if width <= 0 || height <= 0 || lags <= 0 || width*height > MaxPixels {
 		return nil, fmt.Errorf("online: NewBinStore: frame %d×%d with %d lags", width, height, lags)
 	}
-	s := &BinStore{width: width, height: height, lags: lags, pixels: width * height}
+	s := &BinStore{width: width, height: height, lags: lags, pixels: width * height, scratch: make([]uint8, width*height)}
 	s.Reset()
 	return s, nil
 }
@@ -52,7 +85,8 @@ func NewBinStore(width, height, lags int) (*BinStore, error) {
 // Reset empties the store (the block's estimates were reset).
 func (s *BinStore) Reset() {
 	s.palette, s.code = s.palette[:0], map[float64]uint8{}
-	s.codes, s.wide, s.frames = s.codes[:0], nil, 0
+	s.bits, s.frameBytes = 0, 0
+	s.packed, s.wide, s.frames = s.packed[:0], nil, 0
 	s.binFrame = s.binFrame[:0]
 	s.units = map[int]*unitCounts{}
 }
@@ -63,9 +97,9 @@ func (s *BinStore) Bins() int { return len(s.binFrame) }
 // Bytes is the memory held by the frames, bins and counts (capacity not
 // counted).
 func (s *BinStore) Bytes() int64 {
-	n := int64(len(s.codes)) + 8*int64(len(s.wide)) + 4*int64(len(s.binFrame))
+	n := int64(len(s.packed)) + 8*int64(len(s.wide)) + 4*int64(len(s.binFrame))
 	for _, u := range s.units {
-		n += 12 * int64(len(u.bins))
+		n += 4*int64(len(u.bins)) + int64(len(u.small)) + 8*int64(len(u.wide))
 	}
 	return n
 }
@@ -78,7 +112,8 @@ var errStoreBin = errors.New("online: bin store")
 // bin had its full lag history and so entered the estimates (an unused bin
 // is kept as history for the next ones). A used bin regresses on the
 // frames added just before it, so a restarted lag history must give Lags−1
-// unused bins before the next used one, as the mapper does.
+// unused bins before the next used one, as the mapper does. Counts must be
+// finite and ≥ 0 (the mapper checked them).
 func (s *BinStore) Add(frame []float64, counts []Count, used bool) error {
 	if len(frame) != s.pixels {
 		return fmt.Errorf("%w: frame of %d pixels, want %d", errStoreBin, len(frame), s.pixels)
@@ -88,6 +123,11 @@ func (s *BinStore) Add(frame []float64, counts []Count, used bool) error {
 	}
 	if s.frames >= math.MaxInt32 {
 		return fmt.Errorf("%w: more than %d frames", errStoreBin, math.MaxInt32)
+	}
+	for _, c := range counts {
+		if !(c.N >= 0) || math.IsInf(c.N, 0) {
+			return fmt.Errorf("%w: count %v", errStoreBin, c.N)
+		}
 	}
 	s.addFrame(frame)
 	if !used {
@@ -106,12 +146,12 @@ func (s *BinStore) Add(frame []float64, counts []Count, used bool) error {
 		}
 		if k := len(u.bins) - 1; k >= 0 && u.bins[k] == bin {
 			// A unit given twice in one bin: its counts add up.
-			u.logFac -= logFactorial(u.counts[k])
-			u.counts[k] += c.N
-			u.logFac += logFactorial(u.counts[k])
+			u.logFac -= logFactorial(u.at(k))
+			u.set(k, u.at(k)+c.N)
+			u.logFac += logFactorial(u.at(k))
 		} else {
+			u.set(len(u.bins), c.N)
 			u.bins = append(u.bins, bin)
-			u.counts = append(u.counts, c.N)
 			u.logFac += logFactorial(c.N)
 		}
 		u.sum += c.N
@@ -125,46 +165,89 @@ func logFactorial(n float64) float64 {
 	return v
 }
 
-// addFrame appends a frame as codes while the palette holds, else as
-// float64 values (converting the codes stored so far once).
+// addFrame appends a frame as packed codes while the palette holds, else as
+// float64 values (converting the frames stored so far once).
 func (s *BinStore) addFrame(frame []float64) {
-	s.frames++
-	if s.wide == nil {
-		for _, v := range frame {
-			if _, ok := s.code[v]; !ok {
-				if len(s.palette) == 256 {
-					s.widen()
-					s.wide = append(s.wide, frame...)
-					return
-				}
-				s.code[v] = uint8(len(s.palette))
-				s.palette = append(s.palette, v)
-			}
-		}
-		for _, v := range frame {
-			s.codes = append(s.codes, s.code[v])
-		}
+	defer func() { s.frames++ }()
+	if s.wide != nil {
+		s.wide = append(s.wide, frame...)
 		return
 	}
-	s.wide = append(s.wide, frame...)
+	for p, v := range frame {
+		c, ok := s.code[v]
+		if !ok {
+			if len(s.palette) == 256 {
+				s.widen()
+				s.wide = append(s.wide, frame...)
+				return
+			}
+			c = uint8(len(s.palette))
+			s.code[v] = c
+			s.palette = append(s.palette, v)
+		}
+		s.scratch[p] = c
+	}
+	if need := codeBits(len(s.palette)); need > s.bits {
+		s.repack(need)
+	}
+	off := len(s.packed)
+	s.packed = append(s.packed, make([]byte, s.frameBytes)...)
+	dst := s.packed[off:]
+	for p, c := range s.scratch {
+		bit := p * s.bits
+		dst[bit>>3] |= c << (bit & 7)
+	}
 }
 
-// widen turns the stored codes into float64 values.
-func (s *BinStore) widen() {
-	s.wide = make([]float64, len(s.codes), len(s.codes)+s.pixels)
-	for i, c := range s.codes {
-		s.wide[i] = s.palette[c]
+// codeBits is the bits per code for a palette of n values: 1, 2, 4 or 8.
+func codeBits(n int) int {
+	for _, b := range []int{1, 2, 4} {
+		if n <= 1<<b {
+			return b
+		}
 	}
-	s.codes = nil
+	return 8
+}
+
+// codeAt is the palette index of pixel p of stored frame f.
+func (s *BinStore) codeAt(f, p int) uint8 {
+	bit := p * s.bits
+	return (s.packed[f*s.frameBytes+bit>>3] >> (bit & 7)) & uint8(1<<s.bits-1)
+}
+
+// repack re-stores the frames so far at bits bits per code.
+func (s *BinStore) repack(bits int) {
+	fb := (s.pixels*bits + 7) / 8
+	packed := make([]byte, s.frames*fb, (s.frames+1)*fb)
+	for f := range s.frames {
+		for p := range s.pixels {
+			bit := p * bits
+			packed[f*fb+bit>>3] |= s.codeAt(f, p) << (bit & 7)
+		}
+	}
+	s.packed, s.bits, s.frameBytes = packed, bits, fb
+}
+
+// widen turns the frames stored so far into float64 values.
+func (s *BinStore) widen() {
+	s.wide = make([]float64, s.frames*s.pixels, (s.frames+1)*s.pixels)
+	for f := range s.frames {
+		for p := range s.pixels {
+			s.wide[f*s.pixels+p] = s.palette[s.codeAt(f, p)]
+		}
+	}
+	s.packed = nil
 }
 
 // windowDesign is the design of one window over a store's used bins: row t
 // holds the window's coefficients (lag, row, column order) of bin t.
 type windowDesign struct {
-	s    *BinStore
-	lag  []int // per window coefficient, its lag
-	pix  []int // per window coefficient, its pixel
-	size int
+	s     *BinStore
+	lag   []int   // per window coefficient, its lag
+	pix   []int   // per window coefficient, its pixel
+	off   []int   // per window coefficient, its byte in a packed frame
+	shift []uint8 // and its bit in that byte
+	size  int
 }
 
 func (s *BinStore) windowDesign(win PriorWindow) *windowDesign {
@@ -172,8 +255,11 @@ func (s *BinStore) windowDesign(win PriorWindow) *windowDesign {
 	for t := range win.NT {
 		for y := range win.NY {
 			for x := range win.NX {
+				p := (win.Y0+y)*s.width + win.X0 + x
 				d.lag = append(d.lag, win.T0+t)
-				d.pix = append(d.pix, (win.Y0+y)*s.width+win.X0+x)
+				d.pix = append(d.pix, p)
+				d.off = append(d.off, p*s.bits>>3)
+				d.shift = append(d.shift, uint8(p*s.bits&7))
 			}
 		}
 	}
@@ -186,6 +272,7 @@ func (d *windowDesign) dim() int  { return d.size }
 // rowsTo writes rows from…from+n−1 into dst (n×dim, row-major).
 func (d *windowDesign) rowsTo(dst []float64, from, n int) {
 	s, k := d.s, d.size
+	mask := uint8(1<<s.bits - 1)
 	for r := range n {
 		f := int(s.binFrame[from+r])
 		row := dst[r*k : (r+1)*k]
@@ -196,7 +283,8 @@ func (d *windowDesign) rowsTo(dst []float64, from, n int) {
 			continue
 		}
 		for i := range row {
-			row[i] = s.palette[s.codes[(f-d.lag[i])*s.pixels+d.pix[i]]]
+			b := s.packed[(f-d.lag[i])*s.frameBytes+d.off[i]]
+			row[i] = s.palette[(b>>d.shift[i])&mask]
 		}
 	}
 }

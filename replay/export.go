@@ -35,7 +35,8 @@ type ExportOptions struct {
 	// are kept in compact form during the run, and after it each unit with
 	// a smooth-local estimate gets units/<name>.poisson.npy and the
 	// PoissonSummary fields in its JSON. PoissonProgress, when set, is told
-	// of the units refined so far.
+	// of the units refined so far: once with none before the first starts,
+	// then after each (from the refining goroutines, one call at a time).
 	Poisson         bool
 	PoissonProgress func(done, total int)
 }

@@ -104,6 +104,9 @@ func refinePoisson(c *binCollector, final *online.Snapshot, block string, opt Ex
 	}
 	if whole == nil {
 		n.Bins, n.StoreBytes = c.store.Bins(), c.store.Bytes()
+		if opt.PoissonProgress != nil {
+			opt.PoissonProgress(0, len(units))
+		}
 		res, errs := c.store.PoissonMAPAll(units, online.PoissonOptions{Progress: opt.PoissonProgress})
 		for k, id := range ids {
 			if errs[k] != nil {

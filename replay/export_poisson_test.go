@@ -39,7 +39,7 @@ func TestExportPoisson(t *testing.T) {
 	if p.Units == 0 || p.Fitted+p.Failed != p.Units || p.Bins == 0 || p.StoreBytes <= 0 {
 		t.Fatalf("counts %+v", p)
 	}
-	if calls != p.Units-failedBeforeFit(t, dir, out.Units) || lastDone != lastTotal {
+	if calls != 1+p.Units-failedBeforeFit(t, dir, out.Units) || lastDone != lastTotal {
 		t.Errorf("progress: %d calls, last %d of %d", calls, lastDone, lastTotal)
 	}
 	if len(out.Files) != len(plain.Files)+p.Fitted {

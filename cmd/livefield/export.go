@@ -79,13 +79,18 @@ func runExport(ctx context.Context, fs *flag.FlagSet, args []string, stdout, std
 	return nil
 }
 
-// poissonProgress prints the units refined so far, at most once a second
-// and at the last.
+// poissonProgress prints the units refined so far, at the start, at most
+// once a second and at the last.
 func poissonProgress(w io.Writer) func(done, total int) {
-	start := time.Now()
-	next := start
+	var start, next time.Time
 	return func(done, total int) {
-		if now := time.Now(); now.After(next) || done == total {
+		now := time.Now()
+		if done == 0 {
+			start, next = now, now.Add(time.Second)
+			fmt.Fprintf(w, "livefield: Poisson refinement of the %d units with a smooth-local estimate\n", total)
+			return
+		}
+		if now.After(next) || done == total {
 			next = now.Add(time.Second)
 			fmt.Fprintf(w, "livefield: Poisson refinement: %d of %d units (%.1f s)\n", done, total, now.Sub(start).Seconds())
 		}
