@@ -105,6 +105,17 @@ func priorFactor(h SmoothLocal, w PriorWindow, scale float64) ([]float64, error)
 	return r, nil
 }
 
+// safePoissonMAP is poissonMAP with a panic of the numerics (none is known)
+// turned into the unit's error, so that one unit cannot end an export.
+func (s *BinStore) safePoissonMAP(u PoissonUnit, opt PoissonOptions, sv *poissonSolver) (fit PoissonFit, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			fit, err = PoissonFit{}, fmt.Errorf("online: Poisson refinement of unit %d failed: %v", u.Unit, r)
+		}
+	}()
+	return s.poissonMAP(u, opt, sv)
+}
+
 // PoissonMAPAll refines every unit of units, opt.Workers at a time, each
 // worker with its own scratch. fits[i] and errs[i] belong to units[i]; a
 // unit that cannot be fitted has its error and a zero fit.
@@ -131,7 +142,7 @@ func (s *BinStore) PoissonMAPAll(units []PoissonUnit, opt PoissonOptions) (fits 
 				if k := units[i].Window.Size(); k > 0 && (sv == nil || sv.k != k) {
 					sv = newPoissonSolver(k)
 				}
-				fits[i], errs[i] = s.poissonMAP(units[i], opt, sv)
+				fits[i], errs[i] = s.safePoissonMAP(units[i], opt, sv)
 				mu.Lock()
 				done++
 				if opt.Progress != nil {
