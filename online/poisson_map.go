@@ -58,13 +58,14 @@ import (
 //
 // # Cost
 //
-// For T bins and a window of D coefficients, one iteration costs T·D² for
-// H (on the package's matrix kernel, in chunks of poissonChunk rows built
-// from the compact BinStore), 2·D³ for RᵀHR and (D+1)³/3 for the
-// factorisation, and each line-search trial T·D. At T = 108000 (30 minutes
-// at 60 Hz) and the default 7×7×6 window (D = 294) that is 9·10⁹
-// multiply-adds per iteration, about a second on one core; a unit takes
-// 5–10 iterations. Memory per fit: five D×D matrices and three
+// For T bins and a window of D coefficients, one iteration costs about
+// T·D²/2 multiply-adds for H (its lower triangle, on the package's matrix
+// kernel, in chunks of poissonChunk rows built from the compact BinStore),
+// 2·D³ for RᵀHR and (D+1)³/3 for the factorisation, and each line-search
+// trial T·D. At T = 108000 (30 minutes at 60 Hz) and the default 7×7×6
+// window (D = 294) that is 5·10⁹ multiply-adds per iteration, under a
+// second on one core; the units of the tests and the reference session
+// took 3–6 iterations. Memory per fit: five D×D matrices and three
 // poissonChunk×D chunks, about 5 MB at D = 294.
 
 // PoissonOptions configure the Poisson refinement.
@@ -127,6 +128,10 @@ type poissonData struct {
 
 // poissonChunk is the number of design rows built at a time.
 const poissonChunk = 256
+
+// poissonBlock is the height of the block rows of the Hessian's product (a
+// multiple of the matrix kernel's 12 rows).
+const poissonBlock = 48
 
 // poissonSolver holds the scratch of one fit at a time (one goroutine).
 type poissonSolver struct {
@@ -246,8 +251,18 @@ func (s *poissonSolver) derivatives(p *poissonData, theta []float64) float64 {
 			}
 		}
 		transposeBlocked(s.xt, s.x, n, k)
-		// H += Xᵀ diag(λ) X.
-		s.buf.MulAdd(k, k, n, 1, s.xt, n, s.xl, k, s.h, k)
+		// H += Xᵀ diag(λ) X, by block rows of poissonBlock, each up to
+		// its diagonal: the lower triangle and a little more, 0.57 of the
+		// full product at k = 294.
+		for i0 := 0; i0 < k; i0 += poissonBlock {
+			i1 := min(i0+poissonBlock, k)
+			s.buf.MulAdd(i1-i0, i1, n, 1, s.xt[i0*n:], n, s.xl, k, s.h[i0*k:], k)
+		}
+	}
+	for i := range k {
+		for j := i + 1; j < k; j++ {
+			s.h[i*k+j] = s.h[j*k+i]
+		}
 	}
 	l := s.closedTerms(p, theta, rate)
 	// tmp = H R, then the v block RᵀHR + I into a.

@@ -240,27 +240,29 @@ func (s *BinStore) widen() {
 }
 
 // windowDesign is the design of one window over a store's used bins: row t
-// holds the window's coefficients (lag, row, column order) of bin t.
+// holds the window's coefficients (lag, row, column order) of bin t. It
+// decodes each frame's window pixels once per chunk of rows and copies them
+// into the rows of the bins that see the frame (one per lag), instead of
+// decoding every coefficient of every row. It belongs to one goroutine.
 type windowDesign struct {
-	s     *BinStore
-	lag   []int   // per window coefficient, its lag
-	pix   []int   // per window coefficient, its pixel
-	off   []int   // per window coefficient, its byte in a packed frame
-	shift []uint8 // and its bit in that byte
-	size  int
+	s      *BinStore
+	win    PriorWindow
+	plane  int     // window pixels per lag, NX·NY
+	pix    []int   // per window pixel (row, column order), its frame pixel
+	off    []int   // and its byte in a packed frame
+	shift  []uint8 // and its bit in that byte
+	size   int
+	frames []float64 // decoded window pixels of the frames of a chunk
 }
 
 func (s *BinStore) windowDesign(win PriorWindow) *windowDesign {
-	d := &windowDesign{s: s, size: win.Size()}
-	for t := range win.NT {
-		for y := range win.NY {
-			for x := range win.NX {
-				p := (win.Y0+y)*s.width + win.X0 + x
-				d.lag = append(d.lag, win.T0+t)
-				d.pix = append(d.pix, p)
-				d.off = append(d.off, p*s.bits>>3)
-				d.shift = append(d.shift, uint8(p*s.bits&7))
-			}
+	d := &windowDesign{s: s, win: win, plane: win.NX * win.NY, size: win.Size()}
+	for y := range win.NY {
+		for x := range win.NX {
+			p := (win.Y0+y)*s.width + win.X0 + x
+			d.pix = append(d.pix, p)
+			d.off = append(d.off, p*s.bits>>3)
+			d.shift = append(d.shift, uint8(p*s.bits&7))
 		}
 	}
 	return d
@@ -271,20 +273,35 @@ func (d *windowDesign) dim() int  { return d.size }
 
 // rowsTo writes rows from…from+n−1 into dst (n×dim, row-major).
 func (d *windowDesign) rowsTo(dst []float64, from, n int) {
-	s, k := d.s, d.size
+	s, w := d.s, d.win
+	// The frames the rows read: lags T0…T0+NT−1 before each bin's frame.
+	lo := int(s.binFrame[from]) - (w.T0 + w.NT - 1)
+	hi := int(s.binFrame[from+n-1]) - w.T0
+	nf := hi - lo + 1
+	if need := nf * d.plane; len(d.frames) < need {
+		d.frames = make([]float64, need)
+	}
 	mask := uint8(1<<s.bits - 1)
-	for r := range n {
-		f := int(s.binFrame[from+r])
-		row := dst[r*k : (r+1)*k]
+	for f := range nf {
+		dec := d.frames[f*d.plane : (f+1)*d.plane]
 		if s.wide != nil {
-			for i := range row {
-				row[i] = s.wide[(f-d.lag[i])*s.pixels+d.pix[i]]
+			base := (lo + f) * s.pixels
+			for q, p := range d.pix {
+				dec[q] = s.wide[base+p]
 			}
 			continue
 		}
-		for i := range row {
-			b := s.packed[(f-d.lag[i])*s.frameBytes+d.off[i]]
-			row[i] = s.palette[(b>>d.shift[i])&mask]
+		frame := s.packed[(lo+f)*s.frameBytes : (lo+f+1)*s.frameBytes]
+		for q, o := range d.off {
+			dec[q] = s.palette[(frame[o]>>d.shift[q])&mask]
+		}
+	}
+	for r := range n {
+		f := int(s.binFrame[from+r]) - lo
+		row := dst[r*d.size : (r+1)*d.size]
+		for t := range w.NT {
+			src := f - (w.T0 + t)
+			copy(row[t*d.plane:(t+1)*d.plane], d.frames[src*d.plane:(src+1)*d.plane])
 		}
 	}
 }
