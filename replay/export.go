@@ -9,6 +9,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime/debug"
 	"strings"
 	"time"
 
@@ -154,6 +155,11 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 	var fits map[string]online.PoissonFit
 	var fails map[string]error
 	if col != nil {
+		// The estimator is done with: give its memory back before the
+		// refinement adds its own (the whole export stays within the
+		// reference workload's 400 MB).
+		f, col.mapper = nil, nil
+		debug.FreeOSMemory()
 		fits, fails, out.Poisson = refinePoisson(col, final, finalBlock, opt)
 		col.store = nil // the bins are no longer needed
 	}
