@@ -134,9 +134,9 @@ func TestPoissonMAPGolden(t *testing.T) {
 	// whose gradient norm at its optimum is MapGradNorm (< 1e-8). The
 	// distance between the two optima is about that norm over the smallest
 	// eigenvalue of the negative Hessian (the prior's C⁻¹ plus the curvature
-	// of 400 bins of counts: 100, by numpy at scipy's optimum), so 1e-7
+	// of 400 bins of counts: 100, by numpy at scipy's optimum), so 1e-9
 	// leaves a wide margin.
-	const tol = 1e-7
+	const tol = 1e-9
 	if d := math.Abs(res.theta[0] - g.MapB); d > tol {
 		t.Errorf("b = %.10g, scipy %.10g", res.theta[0], g.MapB)
 	}
