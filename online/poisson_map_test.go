@@ -29,6 +29,17 @@ type poissonGolden struct {
 	Window            PriorWindow `json:"window"`
 	Hyper             SmoothLocal `json:"hyper"`
 	WindowCov         [][]float64 `json:"window_cov"`
+	Unit              struct {
+		Width, Height, Lags int
+		Frames              [][]float64 `json:"frames"`
+		Counts              []float64   `json:"counts"`
+		Window              PriorWindow `json:"window"`
+		Hyper               SmoothLocal `json:"hyper"`
+		Indices             []int       `json:"indices"`
+		MapB                float64     `json:"map_b"`
+		MapW                []float64   `json:"map_w"`
+		MapLogPosterior     float64     `json:"map_log_posterior"`
+	} `json:"unit"`
 }
 
 func loadPoissonGolden(t *testing.T) poissonGolden {
@@ -350,5 +361,53 @@ func TestBinStoreCounts(t *testing.T) {
 	}
 	if err := s.Add([]float64{1, -1}, []Count{{Unit: 0, N: math.NaN()}}, true); err == nil {
 		t.Error("a NaN count was taken")
+	}
+}
+
+// One unit's whole refinement through the public API, from frames and
+// counts in a BinStore, against scipy's MAP of the same model written
+// densely in numpy (poisson_map.py: the window's lagged design, the
+// smooth-local covariance over the squared mean count, Newton-CG): the
+// weights at the window's indices, the intercept and the log posterior.
+func TestPoissonStoreGolden(t *testing.T) {
+	g := loadPoissonGolden(t).Unit
+	s, err := NewBinStore(g.Width, g.Height, g.Lags)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k, f := range g.Frames {
+		used := k >= g.Lags-1
+		var counts []Count
+		if used {
+			counts = []Count{{Unit: 0, N: g.Counts[k-(g.Lags-1)]}}
+		}
+		if err := s.Add(f, counts, used); err != nil {
+			t.Fatal(err)
+		}
+	}
+	fit, err := s.PoissonMAP(PoissonUnit{Unit: 0, Hyper: g.Hyper, Window: g.Window}, PoissonOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// scipy's gradient norm (≈1e-9) over the Newton matrix's smallest
+	// eigenvalue (≈120) bounds the distance of the optima near 1e-11.
+	const tol = 1e-9
+	if !fit.Converged || math.Abs(fit.Intercept-g.MapB) > tol {
+		t.Errorf("converged %v, b = %.12g, scipy %.12g", fit.Converged, fit.Intercept, g.MapB)
+	}
+	inside := map[int]bool{}
+	for i, a := range g.Indices {
+		inside[a] = true
+		if math.Abs(fit.Weights[a]-g.MapW[i]) > tol {
+			t.Errorf("w[%d] = %.12g, scipy %.12g", a, fit.Weights[a], g.MapW[i])
+		}
+	}
+	for a, v := range fit.Weights {
+		if !inside[a] && v != 0 {
+			t.Errorf("w[%d] = %v outside the window", a, v)
+		}
+	}
+	if relErr(fit.LogPosterior, g.MapLogPosterior) > 1e-10 {
+		t.Errorf("log posterior %.14g, scipy %.14g", fit.LogPosterior, g.MapLogPosterior)
 	}
 }
