@@ -34,6 +34,10 @@
 //   - Classify and Summarize: the unit status and the block summary;
 //   - LagGram, BatchRidge and Evidence: the whole block at once from lag
 //     cross-products, and the empirical-Bayes choice of the ridge penalty.
+//   - PriorFitter: the smooth-local estimate, the posterior mean under an
+//     evidence-optimised smoothness-and-locality prior in a window around
+//     the field; BinStore and PoissonMAP: its offline refinement with the
+//     Poisson likelihood of the exponential LNP model (poisson_map.go).
 //
 // Size limits (MaxPixels, MaxLags, MaxDim) and the smallest penalty
 // (MinLambda) are in limits.go; the tests' simulator of stimuli, null spike

@@ -72,8 +72,12 @@ type SmoothLocal struct {
 // Y0…Y0+NY−1 and lags T0…T0+NT−1. Inside the window coefficients are
 // ordered like the full layout: lag, then row, then column.
 type PriorWindow struct {
-	X0, Y0, T0 int
-	NX, NY, NT int
+	X0 int `json:"x0"`
+	Y0 int `json:"y0"`
+	T0 int `json:"t0"`
+	NX int `json:"nx"`
+	NY int `json:"ny"`
+	NT int `json:"nt"`
 }
 
 // Size is the number of coefficients in the window.
@@ -171,20 +175,7 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 			return evaluation{}, err
 		}
 	}
-	// Envelope.
-	off := [3]int{w.X0, w.Y0, w.T0}
-	i := 0
-	for t := range w.NT {
-		et := sqNorm(float64(off[2]+t), h.Centre[2], h.Width[2])
-		for y := range w.NY {
-			ey := sqNorm(float64(off[1]+y), h.Centre[1], h.Width[1])
-			for x := range w.NX {
-				ex := sqNorm(float64(off[0]+x), h.Centre[0], h.Width[0])
-				p.sqE[i] = math.Exp(-(ex + ey + et) / 4)
-				i++
-			}
-		}
-	}
+	p.envelope(h)
 	// m = Lᵀ G L = K^½ (E^½ G E^½) K^½.
 	for r := range k {
 		for c := range k {
@@ -239,6 +230,25 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 	}
 	s2 := h.Noise
 	return evaluation{logEv: -0.5*nn*math.Log(2*math.Pi*s2) - 0.5*logDet - 0.5*res/s2, noise: s2, cmu: cmu}, nil
+}
+
+// envelope writes E^½, the square root of the locality envelope at h, into
+// p.sqE.
+func (p *priorProblem) envelope(h SmoothLocal) {
+	w := p.win
+	off := [3]int{w.X0, w.Y0, w.T0}
+	i := 0
+	for t := range w.NT {
+		et := sqNorm(float64(off[2]+t), h.Centre[2], h.Width[2])
+		for y := range w.NY {
+			ey := sqNorm(float64(off[1]+y), h.Centre[1], h.Width[1])
+			for x := range w.NX {
+				ex := sqNorm(float64(off[0]+x), h.Centre[0], h.Width[0])
+				p.sqE[i] = math.Exp(-(ex + ey + et) / 4)
+				i++
+			}
+		}
+	}
 }
 
 // sqNorm is (v − c)²/w².

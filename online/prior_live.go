@@ -75,6 +75,7 @@ type priorResult struct {
 	seq         int64 // of the job it was fitted on
 	weights     Floats
 	hyper       SmoothLocal
+	window      PriorWindow
 	logEv       float64
 	bins        int
 	spikes      float64
@@ -160,7 +161,7 @@ func (r *priorRunner) fit(job *priorJob, i int) (priorResult, bool) {
 	if err != nil {
 		return priorResult{}, false
 	}
-	res := priorResult{epoch: job.epoch, seq: job.seq, weights: FloatsOf(fit.Weights), hyper: fit.Hyper,
+	res := priorResult{epoch: job.epoch, seq: job.seq, weights: FloatsOf(fit.Weights), hyper: fit.Hyper, window: fit.Window,
 		logEv: fit.LogEvidence, bins: fit.Bins, spikes: in.spikes, reliability: math.NaN(), split: math.NaN()}
 	var halves [2][]float64
 	for h, half := range [2][]float64{in.halfA, in.halfB} {
@@ -459,9 +460,10 @@ func (m *Mapper) priorInlineAll(job *priorJob) {
 // applyPrior puts unit u's latest prior fit into its detail.
 func (m *Mapper) applyPrior(u int, d *UnitDetail, res priorResult) {
 	ps := &m.prior
-	h := res.hyper
+	h, win := res.hyper, res.window
 	d.Prior = res.weights
 	d.PriorHyper = &h
+	d.PriorWindow = &win
 	d.PriorLogEvidence = Float(res.logEv)
 	d.PriorBins = int64(res.bins)
 	d.PriorReliability = Float(res.reliability)

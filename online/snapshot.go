@@ -111,6 +111,9 @@ type UnitDetail struct {
 	// Ridge, zero outside its window; null until the unit's first fit.
 	Prior      Floats       `json:"prior"`
 	PriorHyper *SmoothLocal `json:"prior_hyper"` // its hyperparameters; null without a fit
+	// PriorWindow is the box of coefficients the fit covers; absent
+	// without a fit.
+	PriorWindow *PriorWindow `json:"prior_window,omitempty"`
 	// PriorLogEvidence is the log evidence at PriorHyper, PriorBins the
 	// used bins behind the fit (it trails the ridge by a few seconds).
 	PriorLogEvidence Float `json:"prior_log_evidence"`

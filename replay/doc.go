@@ -22,7 +22,9 @@
 //     display.PracticeHandler.
 //   - Export runs a whole session at full speed (every bin, then one update
 //     at the block end) and writes every unit's estimates as NPY and JSON
-//     files and a PNG contact sheet.
+//     files and a PNG contact sheet; with ExportOptions.Poisson it keeps
+//     the block's bins and adds the Poisson refinement of each unit's
+//     smooth-local estimate.
 //
 // # Goroutines
 //

@@ -6,8 +6,10 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
+	"runtime/debug"
 	"strings"
 	"time"
 
@@ -29,6 +31,15 @@ type ExportOptions struct {
 	// time with the counts so far, and once at the end (PassOptions).
 	Progress      func(ingest.Health)
 	ProgressEvery time.Duration
+	// Poisson adds the Poisson refinement of every unit's smooth-local
+	// estimate (online.BinStore.PoissonMAP): the bins of the exported block
+	// are kept in compact form during the run, and after it each unit with
+	// a smooth-local estimate gets units/<name>.poisson.npy and the
+	// PoissonSummary fields in its JSON. PoissonProgress, when set, is told
+	// of the units refined so far: once with none before the first starts,
+	// then after each (from the refining goroutines, one call at a time).
+	Poisson         bool
+	PoissonProgress func(done, total int)
 }
 
 // UnitFile is the content of units/<name>.json: one unit's summary, its
@@ -49,6 +60,10 @@ type UnitFile struct {
 	PriorLogEvidence online.Float        `json:"prior_log_evidence"`
 	PriorBins        int64               `json:"prior_bins"`
 	PriorReliability online.Float        `json:"prior_reliability"`
+	PriorWindow      *online.PriorWindow `json:"prior_window,omitempty"`
+	// PoissonSummary is present when the export refined the unit
+	// (ExportOptions.Poisson).
+	*PoissonSummary
 }
 
 // Exported lists what Export wrote.
@@ -58,6 +73,8 @@ type Exported struct {
 	Files   []string `json:"files"` // paths relative to the directory
 	Records int64    `json:"records"`
 	Damaged int64    `json:"damaged"`
+	// Poisson counts the Poisson refinement (ExportOptions.Poisson).
+	Poisson PoissonCounts `json:"poisson"`
 	// Final is the snapshot the files were written from.
 	Final *online.Snapshot `json:"-"`
 }
@@ -70,6 +87,7 @@ type Exported struct {
 //	units/<name>.npy      ridge weights, float64, shape (lags, height, width)
 //	units/<name>.sta.npy  spike-triggered average, same shape
 //	units/<name>.prior.npy  smooth-local estimate, same shape (units that have one)
+//	units/<name>.poisson.npy  its Poisson refinement, same shape (with Poisson)
 //	units/<name>.json     UnitFile
 //
 // where <name> is the unit id with every byte outside [A-Za-z0-9_-]
@@ -93,6 +111,17 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 		}
 		if user != nil {
 			user(block, s, at)
+		}
+	}
+	var col *binCollector
+	if opt.Poisson {
+		col = &binCollector{want: opt.Block}
+		userBin := fo.OnBin
+		fo.OnBin = func(block string, m *online.Mapper, frame []float64, counts []online.Count) {
+			col.add(block, m, frame, counts)
+			if userBin != nil {
+				userBin(block, m, frame, counts)
+			}
 		}
 	}
 	f, err := NewFeeder(fo)
@@ -126,6 +155,18 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 		out.Files = append(out.Files, rel)
 		return nil
 	}
+	var fits map[string]online.PoissonFit
+	var fails map[string]error
+	if col != nil {
+		// The estimator is done with: give its memory back before the
+		// refinement adds its own (the whole export stays within the
+		// reference workload's 400 MB).
+		f.Close()
+		f, col.mapper = nil, nil
+		debug.FreeOSMemory()
+		fits, fails, out.Poisson = refinePoisson(col, final, finalBlock, opt)
+		col.store = nil // the bins are no longer needed
+	}
 	var buf bytes.Buffer
 	for _, u := range final.Units {
 		d, ok := final.Detail(u.ID)
@@ -138,7 +179,7 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 			Intercept: d.Intercept, Features: d.Features,
 			Ridge: name + ".npy", STA: name + ".sta.npy",
 			PriorHyper: d.PriorHyper, PriorLogEvidence: d.PriorLogEvidence, PriorBins: d.PriorBins,
-			PriorReliability: d.PriorReliability,
+			PriorReliability: d.PriorReliability, PriorWindow: d.PriorWindow,
 		}
 		arrays := []struct {
 			rel string
@@ -150,6 +191,19 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 				rel string
 				v   online.Floats
 			}{uf.Prior, d.Prior})
+		}
+		if fit, ok := fits[u.ID]; ok {
+			uf.PoissonSummary = &PoissonSummary{
+				PoissonFile: name + ".poisson.npy", PoissonLogPosterior: online.Float(fit.LogPosterior),
+				PoissonIterations: fit.Iterations, PoissonConverged: fit.Converged, PoissonIntercept: online.Float(fit.Intercept),
+			}
+			arrays = append(arrays, struct {
+				rel string
+				v   online.Floats
+			}{uf.PoissonFile, online.FloatsOf(fit.Weights)})
+		} else if err, ok := fails[u.ID]; ok {
+			nan := online.Float(math.NaN())
+			uf.PoissonSummary = &PoissonSummary{PoissonError: err.Error(), PoissonLogPosterior: nan, PoissonIntercept: nan}
 		}
 		shape := d.Shape[:]
 		for _, a := range arrays {

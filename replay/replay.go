@@ -41,6 +41,9 @@ type FeedOptions struct {
 	// OnBlockEnd, when set, is called likewise with the final snapshot of
 	// each block.
 	OnBlockEnd func(block string, s *online.Snapshot, at time.Time)
+	// OnBin, when set, is called with every bin the block's estimator
+	// took (ingest.Options.OnBin).
+	OnBin func(block string, m *online.Mapper, frame []float64, counts []online.Count)
 	// Pipelined decodes and bins the next messages while the estimator
 	// works (ingest.Options.Pipelined): the same estimates, sooner, on two
 	// cores. OnUpdate and OnBlockEnd then run on the estimator's goroutine,
@@ -73,6 +76,7 @@ func NewFeeder(opt FeedOptions) (*Feeder, error) {
 		Logger:      discard,
 		OnUpdate:    opt.OnUpdate,
 		OnBlockEnd:  opt.OnBlockEnd,
+		OnBin:       opt.OnBin,
 		Lambda:      opt.Lambda,
 		Evidence:    opt.Evidence,
 		Pipelined:   opt.Pipelined,

@@ -42,7 +42,7 @@ var commands = []command{
 	{
 		name:    "export",
 		summary: "run a whole session at full speed and write every unit's estimates (NPY, JSON) and a contact sheet (PNG)",
-		usage:   "FILE --out DIR [--block ID] [--stimuli DIR] [--lambda L|evidence]",
+		usage:   "FILE --out DIR [--block ID] [--stimuli DIR] [--lambda L|evidence] [--poisson]",
 		example: "livefield export testdata/sessions/synth-30s.lfs --out synth-30s-export",
 		run:     runExport,
 	},

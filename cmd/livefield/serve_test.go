@@ -168,6 +168,7 @@ func TestCommandLine(t *testing.T) {
 		{"serve -h", []string{"serve", "-h"}, 0, "Example:\n  livefield serve --nats"},
 		{"demo -h", []string{"demo", "-h"}, 0, `(default "127.0.0.1:8080")`},
 		{"simulate -h", []string{"simulate", "-h"}, 0, "-speed float"},
+		{"export -h says --poisson is off by default", []string{"export", "-h"}, 0, "write units/NAME.poisson.npy; off by default"},
 		{"help simulate", []string{"help", "simulate"}, 0, "Example:\n  livefield simulate"},
 		{"serve without nats", []string{"serve", "--rig", "r1"}, 1, "--nats is required"},
 		{"serve without rig", []string{"serve", "--nats", "nats://127.0.0.1:1"}, 1, "--rig is required"},

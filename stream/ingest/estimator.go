@@ -178,6 +178,9 @@ func (e *estimator) addBin(ev *event, counts []online.Count) {
 		e.c.reject(ReasonBadBin, fmt.Errorf("ingest: bin of frame %d refused: %w", ev.frame, err))
 		return
 	}
+	if f := e.c.opt.OnBin; f != nil {
+		f(e.block, e.mapper, e.frame, counts)
+	}
 	e.bins++
 	e.binEnd = ev.end
 	if !e.dirty {

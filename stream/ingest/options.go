@@ -114,6 +114,12 @@ type Options struct {
 	// OnBlockEnd, when set, is called likewise with each block's final
 	// snapshot.
 	OnBlockEnd func(block string, s *online.Snapshot, at time.Time)
+	// OnBin, when set, is called likewise right after the block's mapper
+	// took a bin (Mapper.AddBin), with the frame and counts it was given
+	// (valid during the call only); the mapper may be read (Bins, Units,
+	// UnitID), not changed. The export's Poisson refinement keeps the bins
+	// this way.
+	OnBin func(block string, m *online.Mapper, frame []float64, counts []online.Count)
 
 	// Pipelined, for NewLoop, runs the estimator on a goroutine of its own
 	// while the caller's Feed decodes and bins the next messages (replay
