@@ -24,6 +24,9 @@ func newBenchWorkload(b *testing.B, w, h, lags, units int, rate float64) *benchW
 	if err != nil {
 		b.Fatal(err)
 	}
+	// Close the mapper's background prior fits when the benchmark ends, or
+	// they would go on beside the next run's updates.
+	b.Cleanup(m.Close)
 	rng := rand.New(rand.NewPCG(11, 12))
 	for u := range units {
 		m.Unit("u" + strconv.Itoa(u))

@@ -241,6 +241,7 @@ type priorWorker struct {
 	gate    sync.RWMutex
 	mu      sync.Mutex
 	job     *priorJob           // the latest job (latest wins)
+	idle    int                 // goroutines that have fitted all their units of job
 	results map[int]priorResult // the latest fit per unit
 	wake    []chan struct{}     // per goroutine
 	stop    chan struct{}
@@ -264,10 +265,26 @@ func startPriorWorker(cfg Config) *priorWorker {
 	return w
 }
 
+// priorJobMaxAge is how many updates a job may serve a busy worker before
+// the next update offers a fresh one anyway (so that a unit that has just
+// turned significant waits a few seconds at most).
+const priorJobMaxAge = 5
+
+// wants reports whether an update at seq in the given epoch should build a
+// job and offer it: none yet, another epoch, every goroutine done with the
+// current one, or the current one priorJobMaxAge updates old. Building a
+// job (a copy of the Gram view, each unit's half-STAs) takes a share of
+// the update, and a worker still busy with a round would not look at it.
+func (w *priorWorker) wants(seq, epoch int64) bool {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	return w.job == nil || w.job.epoch != epoch || w.idle >= len(w.wake) || seq-w.job.seq >= priorJobMaxAge
+}
+
 // offer replaces the job in the slot and wakes the worker.
 func (w *priorWorker) offer(job *priorJob) {
 	w.mu.Lock()
-	w.job = job
+	w.job, w.idle = job, 0
 	w.mu.Unlock()
 	for _, wake := range w.wake {
 		select {
@@ -289,6 +306,7 @@ func (w *priorWorker) collect(dst map[int]priorResult) {
 }
 
 func (w *priorWorker) loop(runner *priorRunner, wake chan struct{}) {
+	var done *priorJob // the last job this goroutine finished
 	for {
 		select {
 		case <-w.stop:
@@ -303,6 +321,14 @@ func (w *priorWorker) loop(runner *priorRunner, wake chan struct{}) {
 			i = runner.pick(job)
 		}
 		if i < 0 {
+			if job != nil && job != done {
+				done = job
+				w.mu.Lock()
+				if w.job == job {
+					w.idle++
+				}
+				w.mu.Unlock()
+			}
 			select {
 			case <-w.stop:
 				return
@@ -381,10 +407,17 @@ func (m *Mapper) livePrior(details []*UnitDetail) {
 		return
 	}
 	if !ps.closed {
-		if job := m.priorJob(details); job != nil {
-			if n := m.cfg.PriorInline; n < 0 {
+		n := m.cfg.PriorInline
+		var job *priorJob
+		// A busy worker with a recent job gets no new one this time.
+		if n != 0 || ps.worker == nil || ps.worker.wants(m.updates, ps.epoch) {
+			job = m.priorJob(details)
+		}
+		if job != nil {
+			switch {
+			case n < 0:
 				m.priorInlineAll(job)
-			} else if n > 0 {
+			case n > 0:
 				if ps.inline == nil {
 					ps.inline = newPriorRunner(m.cfg)
 				}
@@ -397,7 +430,7 @@ func (m *Mapper) livePrior(details []*UnitDetail) {
 						ps.results[job.units[i].unit] = res
 					}
 				}
-			} else {
+			default:
 				if ps.worker == nil {
 					ps.worker = startPriorWorker(m.cfg)
 				}

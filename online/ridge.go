@@ -37,8 +37,9 @@ import (
 // A Ridge is not safe for concurrent use: one goroutine calls every method.
 type Ridge struct {
 	dim, cols int
-	n, ld     int // augmented size dim+1, and the padded stride (multiple of 12)
-	nt        int // tiles per side of P
+	n, ld     int     // augmented size dim+1, and the padded stride (multiple of 12)
+	nt        int     // tiles per side of P
+	diag      diagJob // samplingDiagTraces' lanes and their scratch
 	lambda    float64
 	lam, eps  float64 // the penalty and the intercept's prior precision ε
 	rows      int64

@@ -71,6 +71,11 @@ func checkRidgeCheckpoint(t *testing.T, r *Ridge, cp *ridgeCheckpoint) {
 	if ridgeRel(t1, cp.T1) > 1e-8 || ridgeRel(t2, cp.T2) > 1e-8 {
 		t.Errorf("n=%d: hat traces %v, %v; numpy eigenvalues give %v, %v", cp.N, t1, t2, cp.T1, cp.T2)
 	}
+	// The same traces from the pass that gives the sampling diagonal.
+	t1, t2 = r.samplingDiagTraces(post)
+	if ridgeRel(t1, cp.T1) > 1e-8 || ridgeRel(t2, cp.T2) > 1e-8 {
+		t.Errorf("n=%d: hat traces beside the sampling diagonal %v, %v; numpy eigenvalues give %v, %v", cp.N, t1, t2, cp.T1, cp.T2)
+	}
 }
 
 func loadRidgeGolden(t *testing.T) *ridgeGolden {
@@ -351,10 +356,13 @@ func TestRidgeHandWorked(t *testing.T) {
 	w := make([]float64, 1)
 	b := r.WeightsTo(w, 0)
 	t1, t2 := r.HatTraces()
+	t1d, t2d := r.samplingDiagTraces(make([]float64, 1))
 	checks := []struct {
 		name      string
 		got, want float64
 	}{
+		{"t1 beside the sampling diagonal", t1d, 2.0 / 3},
+		{"t2 beside the sampling diagonal", t2d, 4.0 / 9},
 		{"w", w[0], 2.0 / 3},
 		{"b", b, 2},
 		{"objective", r.Objective(0), 2.0 / 3},

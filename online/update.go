@@ -60,8 +60,7 @@ func (m *Mapper) Update() *Snapshot {
 		if !m.cfg.White {
 			m.ridge.WeightsTo(sh.wh, 0)
 		}
-		m.ridge.samplingDiagTo(sh.pdiag)
-		sh.t1, sh.t2 = m.ridge.HatTraces()
+		sh.t1, sh.t2 = m.ridge.samplingDiagTraces(sh.pdiag)
 		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda, m.ridge)
 	}
 	m.sta.CacheMeans()

@@ -1,5 +1,7 @@
 package online
 
+import "livefield/online/internal/fastmat"
+
 // The z of a ridge coefficient. The ridge estimate w = M X̃ᵀy with
 // M = (X̃ᵀX̃ + λI)⁻¹ has, for independent residuals of variance σ² and a
 // fixed stimulus, the sampling covariance
@@ -17,33 +19,94 @@ package online
 // M the weights block of (Λ + ÃᵀÃ)⁻¹, from the lower triangle of P and the
 // exact intercept correction (see interceptCorrection). With no rows it is
 // 1/λ − λ/λ² = 0.
-func (r *Ridge) samplingDiagTo(dst []float64) {
+func (r *Ridge) samplingDiagTo(dst []float64) { r.samplingDiagTraces(dst) }
+
+// diagRows is the number of rows of P a lane of samplingDiagTraces takes at
+// a time: small enough that the triangle's rows (longer further down) even
+// out over the lanes.
+const diagRows = 64
+
+// samplingDiagTraces writes the diagonal of M − λM² to dst, as
+// samplingDiagTo, and returns the hat traces t1 = tr H and t2 = tr H² that
+// HatTraces gives, from the same single pass over P's lower triangle, on
+// all cores: with Q = M, tr Q = Σ M_ii and ‖Q‖_F² = Σ_i (M²)_ii, the sums
+// the diagonal needs anyway. The lanes (one per worker) take fixed sets of
+// rows and are summed in a fixed order, so the result does not depend on
+// the schedule. With no rows the traces are 0.
+func (r *Ridge) samplingDiagTraces(dst []float64) (t1, t2 float64) {
 	d := r.dim
 	if len(dst) != d {
 		panic("online: samplingDiagTo: wrong length")
 	}
-	c, pe := r.interceptCorrection()
-	sq := make([]float64, d)
-	for i := 0; i < d; i++ {
-		row := r.p[i*r.ld : i*r.ld+i]
-		ci := c * pe[i]
-		var s float64
-		for j, p := range row {
-			v := p + ci*pe[j]
-			v2 := v * v
-			s += v2
-			sq[j] += v2
+	j := &r.diag
+	j.r, j.dst = r, dst
+	j.c, j.pe = r.interceptCorrection()
+	lanes := fastmat.Workers()
+	if len(j.sq) != lanes || len(j.sq[0]) != d {
+		j.sq = make([][]float64, lanes)
+		for k := range j.sq {
+			j.sq[k] = make([]float64, d)
 		}
-		m := r.p[i*r.ld+i] + ci*pe[i]
-		sq[i] += s + m*m
-		dst[i] = m
+		j.tr = make([]float64, lanes)
 	}
+	fastmat.Each(lanes, j)
+	var tr, fro float64
+	for _, t := range j.tr {
+		tr += t
+	}
+	sq := j.sq[0]
 	for i := range dst {
+		for k := 1; k < lanes; k++ {
+			sq[i] += j.sq[k][i]
+		}
+		fro += sq[i]
 		dst[i] -= r.lam * sq[i]
 		if dst[i] < 0 {
 			dst[i] = 0
 		}
 	}
+	*j = diagJob{sq: j.sq, tr: j.tr}
+	if r.rows == 0 {
+		return 0, 0
+	}
+	D := float64(d)
+	return D - r.lam*tr, D - 2*r.lam*tr + r.lam*r.lam*fro
+}
+
+// diagJob is one lane of samplingDiagTraces: rows lo…lo+diagRows−1 for
+// lo = (k + m·lanes)·diagRows, m = 0, 1, …
+type diagJob struct {
+	r   *Ridge
+	dst []float64
+	c   float64
+	pe  []float64
+	sq  [][]float64 // per lane, Σ_j M_ij² of the rows and columns it saw
+	tr  []float64   // per lane, Σ M_ii of its rows
+}
+
+func (j *diagJob) Do(k, _ int) {
+	r, d, lanes := j.r, j.r.dim, len(j.sq)
+	sq := j.sq[k]
+	clear(sq)
+	var tr float64
+	for lo := k * diagRows; lo < d; lo += lanes * diagRows {
+		for i := lo; i < min(lo+diagRows, d); i++ {
+			row := r.p[i*r.ld : i*r.ld+i]
+			ci := j.c * j.pe[i]
+			var s float64
+			for jj, p := range row {
+				v := p + ci*j.pe[jj]
+				v2 := v * v
+				s += v2
+				sq[jj] += v2
+			}
+			m := r.p[i*r.ld+i] + ci*j.pe[i]
+			sq[i] += s + m*m
+			j.dst[i] = m
+			tr += m
+		}
+	}
+	j.tr[k] = tr
 }
 
 // weightsMulTo writes M·v to dst, M the weights block of (Λ + ÃᵀÃ)⁻¹ (see

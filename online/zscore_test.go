@@ -11,10 +11,17 @@ import (
 // TestSamplingDiagDense: the sampling variances per σ² equal the diagonal
 // of M − λM², M = (X̃ᵀX̃ + λI)⁻¹ on the centred design, computed densely with
 // gonum (an independent route through the same identity), to 1e-9 relative;
-// and M·v (the drift test's whitening) equals the dense product.
+// and M·v (the drift test's whitening) equals the dense product. D = 200
+// spreads the rows over more than one lane of the parallel pass.
 func TestSamplingDiagDense(t *testing.T) {
+	for _, size := range []struct{ n, d int }{{300, 20}, {600, 200}} {
+		samplingDiagDense(t, size.n, size.d)
+	}
+}
+
+func samplingDiagDense(t *testing.T, n, d int) {
 	rng := rand.New(rand.NewPCG(61, 62))
-	const n, d, lambda = 300, 20, 5.0
+	const lambda = 5.0
 	r, err := NewRidge(d, 1, lambda)
 	if err != nil {
 		t.Fatal(err)
@@ -35,7 +42,7 @@ func TestSamplingDiagDense(t *testing.T) {
 		col := mat.Col(nil, j, x)
 		var mean float64
 		for _, v := range col {
-			mean += v / n
+			mean += v / float64(n)
 		}
 		for k := range col {
 			x.Set(k, j, col[k]-mean)
