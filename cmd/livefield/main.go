@@ -102,6 +102,7 @@ func lookup(name string) (command, bool) {
 
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	governMemory(ctx)
 	code := runMain(ctx, os.Args[1:], os.Stdout, os.Stderr)
 	stop()
 	os.Exit(code)
