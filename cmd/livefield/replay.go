@@ -149,15 +149,17 @@ func progressPrinter(w io.Writer) func(ingest.Health) {
 
 // replayFullSpeed feeds the session to the mapper at full speed, printing
 // progress each second, and serves the page afterwards when addr is set.
-// The estimates are updated once, at the end of each block (replay.FinalOnly).
+// The estimates are updated once, at the end of each block (replay.FinalOnly),
+// by an estimator beside the decoding (replay.FeedOptions.Pipelined).
 func replayFullSpeed(ctx context.Context, f *session.File, play replay.PlayOptions, addr, stimuli string, stdout, stderr io.Writer) error {
 	// The page, served after the pass, shows the snapshots of its own
 	// commands (a reset, a criterion) as they are published.
 	updates := display.NewUpdates()
-	feeder, err := replay.NewFeeder(replay.FeedOptions{StimuliDir: stimuli, UpdateEvery: replay.FinalOnly, OnUpdate: updates.Notify})
+	feeder, err := replay.NewFeeder(replay.FeedOptions{StimuliDir: stimuli, UpdateEvery: replay.FinalOnly, OnUpdate: updates.Notify, Pipelined: true})
 	if err != nil {
 		return err
 	}
+	defer feeder.Close()
 	start := time.Now()
 	st, err := feeder.FeedSession(ctx, f.Reader, replay.PassOptions{From: play.From, OnDamage: play.OnDamage, Progress: progressPrinter(stdout)})
 	if err != nil {
