@@ -25,7 +25,7 @@ import (
 const (
 	gcPercent      = 50
 	memoryFloor    = 360 << 20
-	memoryHeadroom = 1.3
+	memoryHeadroom = 1.2
 	memoryEvery    = 2 * time.Second
 )
 
