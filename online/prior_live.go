@@ -461,7 +461,8 @@ const priorStartP = 0.01
 
 // priorJob gathers the statistics of the significant units for the prior
 // fits, or returns nil when there is none or the Gram view does not cover
-// the same bins as the unit sums (after a restarted history).
+// the same bins as the unit sums (which never happens: the view covers
+// every segment of a restarted lag history, as the sums do).
 func (m *Mapper) priorJob(details []*UnitDetail) *priorJob {
 	var units []int
 	for u, d := range details {
