@@ -435,9 +435,9 @@ func (m *Mapper) applyPrior(u int, d *UnitDetail, res priorResult) {
 	if eta, ok := tr.Project(float64(d.Rate), m.cfg.Target); ok {
 		d.PriorETA = Float(eta)
 	}
-	// The status comes from the more reliable estimate: the ridge's
-	// reliability is the existing rule's; the prior's is calibrated
-	// against the true filter (TestMapperPriorLive).
+	// The status comes from the more reliable estimate: both
+	// reliabilities are calibrated against the true filter
+	// (TestMapperPriorLive).
 	pr, rr := res.reliability, float64(d.Reliability)
 	if !(pr > rr) && !math.IsNaN(rr) {
 		return
