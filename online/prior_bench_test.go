@@ -114,3 +114,64 @@ func BenchmarkPriorLiveUnit(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkPriorRound is the live worker's round over the fitted units at
+// the reference frame (16×16 pixels, 12 lags, the synthetic rig's simple,
+// centre-surround and direction-selective cells at 8 Hz): after two
+// minutes and a first (cold) round, each op adds ten seconds of data and
+// gives every unit its turn (three warm refits with the live defaults:
+// the whole block and each half; the halves here use the unit's STA, the
+// cost is the same). The data grow as they do live, so the searches
+// reopen when the data grew by a quarter. s/unit is one unit's turn;
+// s-round-384 is one round over 384 units on the one worker goroutine
+// the mapper starts on two cores (Config.PriorWorkers).
+func BenchmarkPriorRound(b *testing.B) {
+	for _, c := range []struct {
+		name string
+		opt  PriorOptions
+	}{{"window7x7x6", PriorOptions{}}, {"window9x9x8", PriorOptions{WindowPixels: 9, WindowLags: 8}}} {
+		b.Run(c.name, func(b *testing.B) {
+			blk := newSimBlock(b, 7)
+			cfg, err := Config{Width: blk.width, Height: blk.height, Lags: blk.lags, White: true, PixelVariance: 1, Prior: c.opt}.withDefaults()
+			if err != nil {
+				b.Fatal(err)
+			}
+			r := newPriorRunner(cfg)
+			units := blk.linearUnits()
+			var seq int64
+			round := func() {
+				view, err := blk.lg.View()
+				if err != nil {
+					b.Fatal(err)
+				}
+				seq++
+				job := &priorJob{seq: seq, view: view, usedA: view.Bins() / 2, usedB: view.Bins() - view.Bins()/2}
+				for _, u := range units {
+					st := blk.stats(view, u)
+					spikes := blk.spikes(u)
+					job.units = append(job.units, priorInput{unit: u, spikes: spikes, sta: FloatsOf(st.Seed), ridge: FloatsOf(st.Seed),
+						yy: st.YY, halfA: st.Seed, halfB: st.Seed, spikesA: spikes / 2, spikesB: spikes / 2, yyA: st.YY / 2, yyB: st.YY / 2})
+				}
+				b.StartTimer()
+				for i := range job.units {
+					if _, ok := r.fit(job, i); !ok {
+						b.Fatal("fit failed")
+					}
+				}
+				b.StopTimer()
+			}
+			blk.run(2 * 3600)
+			b.StopTimer()
+			round() // the first, cold fits
+			b.ResetTimer()
+			b.StopTimer()
+			for range b.N {
+				blk.run(blk.bins + 10*60)
+				round()
+			}
+			perUnit := b.Elapsed().Seconds() / float64(b.N*len(units))
+			b.ReportMetric(perUnit, "s/unit")
+			b.ReportMetric(perUnit*384/float64(cfg.PriorWorkers), "s-round-384")
+		})
+	}
+}
