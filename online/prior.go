@@ -116,6 +116,23 @@ type priorProblem struct {
 	buf   fastmat.Buf
 	vb    []float64 // k, for kronVec
 	eig   mat.EigenSym
+
+	// The last M = K^½ E^½ G E^½ K^½ (symmetrised) and what it was formed
+	// for: evaluations that change only a = s/σ² (the scale probes, the
+	// search's steps in log a) reuse it, and the kernel roots and the
+	// envelope, which are then still those of its key. Any change of the
+	// data (gram) must clear mValid.
+	mc     []float64
+	mKey   priorMKey
+	mValid bool
+	formed int // Ms formed so far (BenchmarkPriorRound)
+}
+
+// priorMKey is what M depends on besides the data: the window and every
+// hyperparameter but the scale and the noise.
+type priorMKey struct {
+	win                   PriorWindow
+	length, centre, width [3]float64
 }
 
 func newPriorProblem(win PriorWindow) *priorProblem {
@@ -125,6 +142,7 @@ func newPriorProblem(win PriorWindow) *priorProblem {
 	p.c = make([]float64, k)
 	p.sqE = make([]float64, k)
 	p.m = make([]float64, k*k)
+	p.mc = make([]float64, k*k)
 	p.tmp = make([]float64, k*k)
 	p.line = make([]float64, max(win.NX, win.NY, win.NT))
 	p.z = make([]float64, k)
@@ -162,13 +180,42 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 			return evaluation{}, fmt.Errorf("online: smooth-local prior: length %v, width %v, centre %v", h.Length, h.Width, h.Centre)
 		}
 	}
-	k, w := p.k, p.win
+	k := p.k
 	a := h.Scale / h.Noise
+	key := priorMKey{win: p.win, length: h.Length, centre: h.Centre, width: h.Width}
+	if !p.mValid || key != p.mKey {
+		p.mValid = false
+		if err := p.formM(h); err != nil {
+			return evaluation{}, err
+		}
+		p.mKey, p.mValid = key, true
+	}
+	// B = I + a·M, then its Cholesky factor (lower).
+	for r := range k {
+		for c := r; c < k; c++ {
+			v := a * p.mc[r*k+c]
+			if r == c {
+				v++
+			}
+			p.m[r*k+c], p.m[c*k+r] = v, v
+		}
+	}
+	if !cholesky(p.m, k, p.tr, &p.buf) {
+		return evaluation{}, errors.New("online: smooth-local prior: I + a·LᵀGL is not positive definite")
+	}
+	return p.finish(a, profile, h)
+}
+
+// formM writes M = K^½ E^½ G E^½ K^½, symmetrised, into p.mc, with the
+// kernel roots and the envelope of h.
+func (p *priorProblem) formM(h SmoothLocal) error {
+	p.formed++
+	k, w := p.k, p.win
 	// Per-axis kernel square roots.
 	sizes := [3]int{w.NX, w.NY, w.NT}
 	for d := range 3 {
 		if err := p.kernelRoot(d, sizes[d], h.Length[d]); err != nil {
-			return evaluation{}, err
+			return err
 		}
 	}
 	// Envelope.
@@ -194,19 +241,19 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 	p.kronRows(p.tmp)
 	transposeTo(p.m, p.tmp, k)
 	p.kronRows(p.m)
-	// B = I + a·m, symmetrised, then its Cholesky factor (lower).
 	for r := range k {
 		for c := r; c < k; c++ {
-			v := a * 0.5 * (p.m[r*k+c] + p.m[c*k+r])
-			if r == c {
-				v++
-			}
-			p.m[r*k+c], p.m[c*k+r] = v, v
+			v := 0.5 * (p.m[r*k+c] + p.m[c*k+r])
+			p.mc[r*k+c], p.mc[c*k+r] = v, v
 		}
 	}
-	if !cholesky(p.m, k, p.tr, &p.buf) {
-		return evaluation{}, errors.New("online: smooth-local prior: I + a·LᵀGL is not positive definite")
-	}
+	return nil
+}
+
+// finish completes an evaluation from the Cholesky factor of B in p.m: the
+// log determinant, the posterior mean and the log evidence.
+func (p *priorProblem) finish(a float64, profile bool, h SmoothLocal) (evaluation, error) {
+	k := p.k
 	var logDet float64
 	for r := range k {
 		logDet += 2 * math.Log(p.m[r*k+r])

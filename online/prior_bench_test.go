@@ -25,6 +25,7 @@ func BenchmarkPriorEvaluate(b *testing.B) {
 	h := SmoothLocal{Scale: 1e-3, Noise: 1, Length: [3]float64{1.5, 1.5, 1}, Centre: [3]float64{7, 7, 3}, Width: [3]float64{2, 2, 1.5}}
 	b.ReportAllocs()
 	for b.Loop() {
+		p.mValid = false // a full evaluation, not one that reuses M
 		if _, err := p.evaluate(h, true); err != nil {
 			b.Fatal(err)
 		}
@@ -122,7 +123,10 @@ func BenchmarkPriorLiveUnit(b *testing.B) {
 // gives every unit its turn (three warm refits with the live defaults:
 // the whole block and each half; the halves here use the unit's STA, the
 // cost is the same). The data grow as they do live, so the searches
-// reopen when the data grew by a quarter. s/unit is one unit's turn;
+// reopen when the data grew by a quarter. s/unit is one unit's turn and
+// evals/unit its evidence evaluations (which do not depend on the load),
+// M-formed/unit those that formed the window's M (the others changed only
+// the prior's scale and reuse it, at about half the cost);
 // s-round-384 is one round over 384 units on the one worker goroutine
 // the mapper starts on two cores (Config.PriorWorkers).
 func BenchmarkPriorRound(b *testing.B) {
@@ -139,6 +143,8 @@ func BenchmarkPriorRound(b *testing.B) {
 			r := newPriorRunner(cfg)
 			units := blk.linearUnits()
 			var seq int64
+			evals := 0  // evidence evaluations, load-independent
+			formed := 0 // of which formed M (the others changed only the scale)
 			round := func() {
 				view, err := blk.lg.View()
 				if err != nil {
@@ -159,18 +165,35 @@ func BenchmarkPriorRound(b *testing.B) {
 					}
 				}
 				b.StopTimer()
+				for _, u := range units {
+					for _, f := range r.fitters {
+						if last, ok := f.Last(u); ok {
+							evals += last.Evaluations
+						}
+					}
+				}
+				formed = 0
+				for _, f := range r.fitters {
+					if f.prob != nil {
+						formed += f.prob.formed
+					}
+				}
 			}
 			blk.run(2 * 3600)
 			b.StopTimer()
 			round() // the first, cold fits
 			b.ResetTimer()
 			b.StopTimer()
+			evals = 0
+			formed0 := formed
 			for range b.N {
 				blk.run(blk.bins + 10*60)
 				round()
 			}
 			perUnit := b.Elapsed().Seconds() / float64(b.N*len(units))
 			b.ReportMetric(perUnit, "s/unit")
+			b.ReportMetric(float64(evals)/float64(b.N*len(units)), "evals/unit")
+			b.ReportMetric(float64(formed-formed0)/float64(b.N*len(units)), "M-formed/unit")
 			b.ReportMetric(perUnit*384/float64(cfg.PriorWorkers), "s-round-384")
 		})
 	}

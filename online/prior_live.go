@@ -107,8 +107,15 @@ func newPriorRunner(cfg Config) *priorRunner {
 func (r *priorRunner) reset(epoch int64) {
 	r.epoch = epoch
 	for i := range r.fitters {
+		opt := r.opt
+		if i > 0 {
+			// The halves carry on their searches with half the budget
+			// per refit: their fits only decide the reliability, and a
+			// unit's turn costs the less (BenchmarkPriorRound).
+			opt.Evaluations = max(2, opt.Evaluations/2)
+		}
 		// The config was checked by NewMapper, so this cannot fail.
-		r.fitters[i], _ = NewPriorFitter(r.width, r.height, r.lags, r.opt)
+		r.fitters[i], _ = NewPriorFitter(r.width, r.height, r.lags, opt)
 	}
 	r.fittedOn = map[int]int64{}
 	r.lastTurn = map[int]int64{}

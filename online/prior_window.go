@@ -145,6 +145,7 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 	if err := v.WindowTo(p.gram, f.idx); err != nil {
 		return PriorFit{}, err
 	}
+	p.mValid = false // new data
 	for i, a := range f.idx {
 		p.c[i] = st.Cross[a]
 	}
