@@ -117,7 +117,7 @@ type priorProblem struct {
 	vb    []float64 // k, for kronVec
 	eig   mat.EigenSym
 
-	// The last M = K^½ E^½ G E^½ K^½ (symmetrised) and what it was formed
+	// The last M = K^½ E^½ G E^½ K^½ (lower triangle) and what it was formed
 	// for: evaluations that change only a = s/σ² (the scale probes, the
 	// search's steps in log a) reuse it, and the kernel roots and the
 	// envelope, which are then still those of its key. Any change of the
@@ -190,15 +190,14 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 		}
 		p.mKey, p.mValid = key, true
 	}
-	// B = I + a·M, then its Cholesky factor (lower).
+	// B = I + a·M on the lower triangle (all that cholesky reads), then
+	// its Cholesky factor (lower).
 	for r := range k {
-		for c := r; c < k; c++ {
-			v := a * p.mc[r*k+c]
-			if r == c {
-				v++
-			}
-			p.m[r*k+c], p.m[c*k+r] = v, v
+		row, src := p.m[r*k:r*k+r+1], p.mc[r*k:r*k+r+1]
+		for c, v := range src {
+			row[c] = a * v
 		}
+		row[r]++
 	}
 	if !cholesky(p.m, k, p.tr, &p.buf) {
 		return evaluation{}, errors.New("online: smooth-local prior: I + a·LᵀGL is not positive definite")
@@ -206,8 +205,8 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 	return p.finish(a, profile, h)
 }
 
-// formM writes M = K^½ E^½ G E^½ K^½, symmetrised, into p.mc, with the
-// kernel roots and the envelope of h.
+// formM writes M = K^½ E^½ G E^½ K^½ into p.mc (its lower triangle is
+// read), with the kernel roots and the envelope of h.
 func (p *priorProblem) formM(h SmoothLocal) error {
 	p.formed++
 	k, w := p.k, p.win
@@ -241,12 +240,8 @@ func (p *priorProblem) formM(h SmoothLocal) error {
 	p.kronRows(p.tmp)
 	transposeTo(p.m, p.tmp, k)
 	p.kronRows(p.m)
-	for r := range k {
-		for c := r; c < k; c++ {
-			v := 0.5 * (p.m[r*k+c] + p.m[c*k+r])
-			p.mc[r*k+c], p.mc[c*k+r] = v, v
-		}
-	}
+	// M is symmetric up to rounding; its lower triangle is the one used.
+	p.m, p.mc = p.mc, p.m
 	return nil
 }
 
@@ -390,11 +385,18 @@ func (p *priorProblem) vbuf() []float64 {
 	return p.vb
 }
 
-// transposeTo writes the transpose of the k×k matrix src into dst.
+// transposeTo writes the transpose of the k×k matrix src into dst, in
+// tiles of transposeTile² values that stay in the cache.
 func transposeTo(dst, src []float64, k int) {
-	for r := range k {
-		for c := range k {
-			dst[c*k+r] = src[r*k+c]
+	for r0 := 0; r0 < k; r0 += transposeTile {
+		for c0 := 0; c0 < k; c0 += transposeTile {
+			for r := r0; r < min(r0+transposeTile, k); r++ {
+				for c := c0; c < min(c0+transposeTile, k); c++ {
+					dst[c*k+r] = src[r*k+c]
+				}
+			}
 		}
 	}
 }
+
+const transposeTile = 32
