@@ -131,9 +131,11 @@ func BenchmarkPriorLiveUnit(b *testing.B) {
 // the mapper starts on two cores (Config.PriorWorkers).
 func BenchmarkPriorRound(b *testing.B) {
 	for _, c := range []struct {
-		name string
-		opt  PriorOptions
-	}{{"window7x7x6", PriorOptions{}}, {"window9x9x8", PriorOptions{WindowPixels: 9, WindowLags: 8}}} {
+		name    string
+		opt     PriorOptions
+		minutes int // of data before the timed rounds
+	}{{"window7x7x6", PriorOptions{}, 2}, {"window9x9x8", PriorOptions{WindowPixels: 9, WindowLags: 8}, 2},
+		{"window7x7x6-after10min", PriorOptions{}, 10}} {
 		b.Run(c.name, func(b *testing.B) {
 			blk := newSimBlock(b, 7)
 			cfg, err := Config{Width: blk.width, Height: blk.height, Lags: blk.lags, White: true, PixelVariance: 1, Prior: c.opt}.withDefaults()
@@ -179,7 +181,7 @@ func BenchmarkPriorRound(b *testing.B) {
 					}
 				}
 			}
-			blk.run(2 * 3600)
+			blk.run(int64(c.minutes) * 3600)
 			b.StopTimer()
 			round() // the first, cold fits
 			b.ResetTimer()
