@@ -81,9 +81,10 @@ func BenchmarkGramView(b *testing.B) {
 
 // BenchmarkPriorLiveUnit is one unit's turn on the live worker at the
 // reference frame (16×16 pixels, 12 lags) after two minutes of the
-// synthetic rig, with the live defaults (Config.Prior: 6 evaluations per
-// refit after the first): three warm refits, the whole block and each half
-// (the halves here both use the unit's STA; the cost is the same). Its
+// synthetic rig, with the live defaults (Config.Prior: 4 evaluations per
+// refit of the whole block after the first, 2 per half): three warm
+// refits, the whole block and each half (the halves here both use the
+// unit's STA; the cost is the same). Its
 // time times the number of significant units is how long the worker takes
 // to refresh them all on one core.
 func BenchmarkPriorLiveUnit(b *testing.B) {

@@ -28,9 +28,13 @@ import (
 
 // Live defaults of the fitter (Config.Prior): fewer evaluations per refit
 // than the library's defaults, so that each unit is refitted every few
-// seconds at hundreds of units; the warm start carries the search on.
+// seconds at hundreds of units; the warm start carries the search on. With
+// 4 per refit of the whole block (2 per half), a round over 384 units at
+// the reference frame takes about 12 s on one worker after two minutes of
+// data and 8.5 s after ten (BenchmarkPriorRound); TestMapperPriorLive's
+// checks pass at the demo's scale.
 const (
-	priorLiveEvaluations = 6
+	priorLiveEvaluations = 4
 	priorLiveFirst       = 20
 )
 
