@@ -230,6 +230,37 @@ func TestBrowserPage(t *testing.T) {
 		}
 	})
 
+	t.Run("tile shows the reliability its status comes from", func(t *testing.T) {
+		// The server's rule (online.Mapper.applyPrior): the status comes
+		// from the estimate named in Estimate; the tile shows that
+		// estimate's reliability, to two decimals, and names it.
+		fromPrior := 0
+		for _, u := range first.Units {
+			want, from := float64(u.Reliability), online.EstimateRidge
+			if u.Estimate == online.EstimatePrior {
+				want, from = float64(u.PriorReliability), online.EstimatePrior
+				fromPrior++
+			}
+			got := text(t, ctx, `.tile[data-id="`+u.ID+`"] .rel`)
+			fields := strings.Fields(got) // "r 0.93 prior" (large tiles)
+			if len(fields) < 2 || fields[0] != "r" {
+				t.Fatalf("unit %s: tile reliability %q", u.ID, got)
+			}
+			v, err := strconv.ParseFloat(fields[1], 64)
+			if math.IsNaN(want) {
+				if fields[1] != "—" {
+					t.Errorf("unit %s: tile reliability %q, want — (none yet)", u.ID, got)
+				}
+			} else if err != nil || math.Abs(v-want) > 0.0051 {
+				t.Errorf("unit %s (status from %q): tile reliability %q, want %.4f", u.ID, u.Estimate, got, want)
+			}
+			if mark := strings.Join(fields[2:], " "); u.Estimate != "" && mark != from || u.Estimate == "" && mark != "" {
+				t.Errorf("unit %s (status from %q): tile marks %q", u.ID, u.Estimate, mark)
+			}
+		}
+		t.Logf("%d of %d units with the status from the prior", fromPrior, len(first.Units))
+	})
+
 	t.Run("screenshot is not blank", func(t *testing.T) {
 		shot, err := chromedp.Run(ctx, chromedp.CaptureScreenshot())
 		if err != nil {

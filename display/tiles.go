@@ -80,6 +80,12 @@ type tileUnit struct {
 	HasSTC       bool          `json:"has_stc,omitempty"`
 	Flagged      bool          `json:"flagged,omitempty"`
 	PredictiveR  short         `json:"predictive_r"`
+	// Estimate names the estimate the status comes from ("ridge" or
+	// "prior"; absent for units not significant), PriorReliability the
+	// smooth-local estimate's reliability: the tile shows the reliability
+	// of the estimate the status comes from.
+	Estimate         string `json:"estimate,omitempty"`
+	PriorReliability short  `json:"prior_reliability"`
 	// NoFieldSpikes is the count from which "no field" may be said (absent
 	// once the unit is significant); Drift, with the centres of the field
 	// early and late in the block, when the field moved.
@@ -113,6 +119,7 @@ func tilesOf(s *online.Snapshot, d Density) *tileSnapshot {
 			CentreX: short(u.CentreX), CentreY: short(u.CentreY), SigmaX: short(u.SigmaX), SigmaY: short(u.SigmaY),
 			Polarity: u.Polarity, HasSTC: u.HasSTC, Flagged: u.Flagged,
 			PredictiveR: short(u.PredictiveR), NoFieldSpikes: short(u.NoFieldSpikes), Drift: u.Drift,
+			Estimate: u.Estimate, PriorReliability: short(u.PriorReliability),
 		}
 		if u.Drift {
 			t.DriftFrom = &[2]short{short(u.DriftFrom[0]), short(u.DriftFrom[1])}

@@ -79,4 +79,11 @@ func TestPageWordsMatchServer(t *testing.T) {
 	if !slices.Equal(densities, []string{string(Large), string(Medium), string(Compact)}) {
 		t.Errorf("words.js densities %q, want large, medium, compact", densities)
 	}
+
+	// The estimates a status can come from: the tile shows the reliability
+	// of the one named, so the names must be the server's.
+	estimates := values(block("ESTIMATE"))
+	if want := []string{online.EstimateRidge, online.EstimatePrior}; !slices.Equal(estimates, want) {
+		t.Errorf("words.js ESTIMATE %q, the server's estimates %q", estimates, want)
+	}
 }

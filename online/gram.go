@@ -127,16 +127,21 @@ func (g *LagGram) segmentBins() int { return max(0, g.n-g.lags+1) }
 // Restart begins a new segment: the next Lags−1 frames are history only,
 // as after a pause in the stimulus, and no used bin spans the two
 // segments. What the finished segment contributed is kept in a dense D×D
-// accumulator (allocated at the first restart, filled in O(D²·Pixels)).
+// matrix (made anew at each restart, in O(D²·Pixels), and shared by the
+// GramViews taken since).
 func (g *LagGram) Restart() {
 	if g.segmentBins() > 0 {
-		if g.past == nil {
-			g.past = mat.NewSymDense(g.dim, nil)
+		if g.pastSum == nil {
 			g.pastSum = make([]float64, g.dim)
 		}
-		var seg mat.SymDense
-		_ = g.segmentGramTo(&seg) // cannot fail: the segment has bins
-		g.past.AddSym(g.past, &seg)
+		// A new matrix each time, never written afterwards: GramViews
+		// share it (View).
+		seg := new(mat.SymDense)
+		_ = g.segmentGramTo(seg) // cannot fail: the segment has bins
+		if g.past != nil {
+			seg.AddSym(seg, g.past)
+		}
+		g.past = seg
 		sums := make([]float64, g.dim)
 		g.segmentSumsTo(sums)
 		for i, v := range sums {

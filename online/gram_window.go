@@ -1,23 +1,29 @@
 package online
 
 import (
-	"errors"
 	"fmt"
+
+	"gonum.org/v1/gonum/blas/blas64"
 )
 
 // GramView is a read-only copy of what a LagGram holds at one moment, from
 // which any entry of the centred Gram matrix X̃ᵀX̃ can be formed without the
 // D×D matrix: the lag cross-products Q_τ(n) (P×D), the first and last
-// frames for the exact edge terms, and the mean lagged stimulus. A view
-// never changes after View returns it, so any number of goroutines may read
-// it while the LagGram goes on accumulating. Its size is P·D + D + 2·L·P
-// floats (6.3 MB at 16×16 pixels and 12 lags).
+// frames for the exact edge terms, and the mean lagged stimulus. After a
+// restarted lag history (LagGram.Restart) it also holds the earlier
+// segments' Gram matrix, which the LagGram never writes again (Restart
+// makes a new one), so the view shares it. A view never changes after View
+// returns it, so any number of goroutines may read it while the LagGram
+// goes on accumulating. Its size is P·D + D + 2·L·P floats (6.3 MB at
+// 16×16 pixels and 12 lags), and the shared D×D matrix after a restart.
 type GramView struct {
 	pixels, lags, dim int
-	frames            int
-	cross             []float64   // P×D: cross[p*D + τ*P + q] = Q_τ(n)[p, q]
-	first, last       [][]float64 // first and last min(frames, lags) frames, in order
-	mean              []float64   // mean lagged stimulus over the used bins
+	frames            int              // frames of the current segment
+	cross             []float64        // P×D: cross[p*D + τ*P + q] = Q_τ(n)[p, q]; nil when the segment has no used bin
+	first, last       [][]float64      // first and last lags frames of the segment, in order
+	mean              []float64        // mean lagged stimulus over the used bins
+	past              blas64.Symmetric // XᵀX over the earlier segments' used bins (Data nil: none)
+	pastBins          int
 	// A share (Share): every entry times scale, and Bins reports bins.
 	scale float64
 	bins  int
@@ -40,23 +46,29 @@ func (v *GramView) Share(bins int) *GramView {
 // View copies the LagGram's statistics into a GramView. It must be called by
 // the goroutine that owns the LagGram; it costs about one pass over P·D
 // values (plus the counts of the partial chunk on the two-level route).
+//
+// A view covers every segment of a restarted lag history: the current
+// segment through its lag cross-products and edge frames, the earlier ones
+// through their Gram matrix, so its entries are those of XᵀX over all the
+// used bins.
 func (g *LagGram) View() (*GramView, error) {
-	if g.n < g.lags {
+	if g.Bins() == 0 {
 		return nil, ErrFewFrames
 	}
-	if g.pastBins > 0 {
-		// The view reads the lag cross-products of one segment only.
-		return nil, errors.New("online: LagGram.View: the lag history was restarted; a view covers one segment")
-	}
 	P, L, d := g.pixels, g.lags, g.dim
-	v := &GramView{pixels: P, lags: L, dim: d, frames: g.n}
-	v.cross = make([]float64, P*d)
-	g.crossTo(v.cross)
-	v.first = make([][]float64, L)
-	v.last = make([][]float64, L)
-	for m := range L {
-		v.first[m] = append([]float64(nil), g.frame(m)...)
-		v.last[m] = append([]float64(nil), g.frame(g.n-L+m)...)
+	v := &GramView{pixels: P, lags: L, dim: d, frames: g.n, pastBins: g.pastBins}
+	if g.past != nil {
+		v.past = g.past.RawSymmetric()
+	}
+	if g.segmentBins() > 0 {
+		v.cross = make([]float64, P*d)
+		g.crossTo(v.cross)
+		v.first = make([][]float64, L)
+		v.last = make([][]float64, L)
+		for m := range L {
+			v.first[m] = append([]float64(nil), g.frame(m)...)
+			v.last[m] = append([]float64(nil), g.frame(g.n-L+m)...)
+		}
 	}
 	v.mean = make([]float64, d)
 	g.lagSumsTo(v.mean)
@@ -84,8 +96,12 @@ func (v *GramView) Bins() int {
 	return v.allBins()
 }
 
-// allBins is the number of used bins behind the statistics.
-func (v *GramView) allBins() int { return v.frames - v.lags + 1 }
+// allBins is the number of used bins behind the statistics, of every
+// segment.
+func (v *GramView) allBins() int { return v.pastBins + v.segmentBins() }
+
+// segmentBins is the number of used bins of the current segment.
+func (v *GramView) segmentBins() int { return max(0, v.frames-v.lags+1) }
 
 // Mean returns the mean lagged stimulus over the used bins (length Dim). The
 // slice belongs to the view and must not be modified.
@@ -103,6 +119,26 @@ func (v *GramView) frame(m int) []float64 {
 // Entry is element (a, b) of XᵀX (centred: X̃ᵀX̃ = XᵀX − N x̄x̄ᵀ) over the
 // used bins, with a and b lag-major indices below Dim. It costs O(Lags).
 func (v *GramView) Entry(a, b int, centred bool) float64 {
+	var s float64
+	if v.cross != nil {
+		s = v.segmentEntry(a, b)
+	}
+	if v.past.Data != nil {
+		lo, hi := min(a, b), max(a, b) // the upper triangle holds the entries
+		s += v.past.Data[lo*v.past.Stride+hi]
+	}
+	if centred {
+		s -= float64(v.allBins()) * v.mean[a] * v.mean[b]
+	}
+	if v.scale != 0 {
+		s *= v.scale
+	}
+	return s
+}
+
+// segmentEntry is element (a, b) of XᵀX over the current segment's used
+// bins, from its lag cross-products and edge frames.
+func (v *GramView) segmentEntry(a, b int) float64 {
 	P, d, n, L := v.pixels, v.dim, v.frames, v.lags
 	i, p := a/P, a%P
 	j, q := b/P, b%P
@@ -118,12 +154,6 @@ func (v *GramView) Entry(a, b int, centred bool) float64 {
 	// Minus Q_τ(L−1−i) = Σ_{m=τ}^{L−2−i} s_m[p] s_{m−τ}[q] (frames before the first used bin).
 	for m := tau; m <= L-2-i; m++ {
 		s -= v.frame(m)[p] * v.frame(m - tau)[q]
-	}
-	if centred {
-		s -= float64(v.allBins()) * v.mean[a] * v.mean[b]
-	}
-	if v.scale != 0 {
-		s *= v.scale
 	}
 	return s
 }

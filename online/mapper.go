@@ -462,21 +462,15 @@ func (m *Mapper) defaultPeak() int {
 	return min(int(math.Round(0.060/m.cfg.FramePeriod)), m.cfg.Lags-1)
 }
 
-// columns is the number of ridge columns for units units.
-func (m *Mapper) columns(units int) int {
-	if m.cfg.White {
-		return units
-	}
-	return 1 + 2*units
-}
+// columns is the number of ridge columns for units units: the half-A
+// indicator, then per unit its counts and its half-A counts, from which
+// halvesTo forms the two split-half ridge fits whose sum is the unit's
+// ridge (for every stimulus, white or not: the ridge's reliability is that
+// of the ridge itself, see unitDetail).
+func (m *Mapper) columns(units int) int { return 1 + 2*units }
 
 // colY is the ridge column of unit u's counts.
-func (m *Mapper) colY(u int) int {
-	if m.cfg.White {
-		return u
-	}
-	return 1 + 2*u
-}
+func (m *Mapper) colY(u int) int { return 1 + 2*u }
 
-// colA is the ridge column of unit u's half-A counts (non-white stimuli).
+// colA is the ridge column of unit u's half-A counts.
 func (m *Mapper) colA(u int) int { return 2 + 2*u }

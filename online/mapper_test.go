@@ -171,7 +171,7 @@ func TestMapperLNPRecoveryWhiteNoise(t *testing.T) {
 	cells := []lnpCell{{filter: filter, base: 0.15, gain: 0.8}}
 	sim := newSimulation(t, cfg, cells, 1, binaryFrame)
 	var rho []float64
-	durations := []int{40, 160, 640} // seconds of data at 60 Hz
+	durations := []int{20, 80, 320, 1280} // seconds of data at 60 Hz
 	done := 0
 	for _, sec := range durations {
 		sim.run(sec*60 - done)

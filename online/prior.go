@@ -120,6 +120,23 @@ type priorProblem struct {
 	buf   fastmat.Buf
 	vb    []float64 // k, for kronVec
 	eig   mat.EigenSym
+
+	// The last M = K^½ E^½ G E^½ K^½ (lower triangle) and what it was formed
+	// for: evaluations that change only a = s/σ² (the scale probes, the
+	// search's steps in log a) reuse it, and the kernel roots and the
+	// envelope, which are then still those of its key. Any change of the
+	// data (gram) must clear mValid.
+	mc     []float64
+	mKey   priorMKey
+	mValid bool
+	formed int // Ms formed so far (BenchmarkPriorRound)
+}
+
+// priorMKey is what M depends on besides the data: the window and every
+// hyperparameter but the scale and the noise.
+type priorMKey struct {
+	win                   PriorWindow
+	length, centre, width [3]float64
 }
 
 func newPriorProblem(win PriorWindow) *priorProblem {
@@ -129,6 +146,7 @@ func newPriorProblem(win PriorWindow) *priorProblem {
 	p.c = make([]float64, k)
 	p.sqE = make([]float64, k)
 	p.m = make([]float64, k*k)
+	p.mc = make([]float64, k*k)
 	p.tmp = make([]float64, k*k)
 	p.line = make([]float64, max(win.NX, win.NY, win.NT))
 	p.z = make([]float64, k)
@@ -166,13 +184,41 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 			return evaluation{}, fmt.Errorf("online: smooth-local prior: length %v, width %v, centre %v", h.Length, h.Width, h.Centre)
 		}
 	}
-	k, w := p.k, p.win
+	k := p.k
 	a := h.Scale / h.Noise
+	key := priorMKey{win: p.win, length: h.Length, centre: h.Centre, width: h.Width}
+	if !p.mValid || key != p.mKey {
+		p.mValid = false
+		if err := p.formM(h); err != nil {
+			return evaluation{}, err
+		}
+		p.mKey, p.mValid = key, true
+	}
+	// B = I + a·M on the lower triangle (all that cholesky reads), then
+	// its Cholesky factor (lower).
+	for r := range k {
+		row, src := p.m[r*k:r*k+r+1], p.mc[r*k:r*k+r+1]
+		for c, v := range src {
+			row[c] = a * v
+		}
+		row[r]++
+	}
+	if !cholesky(p.m, k, p.tr, &p.buf) {
+		return evaluation{}, errors.New("online: smooth-local prior: I + a·LᵀGL is not positive definite")
+	}
+	return p.finish(a, profile, h)
+}
+
+// formM writes M = K^½ E^½ G E^½ K^½ into p.mc (its lower triangle is
+// read), with the kernel roots and the envelope of h.
+func (p *priorProblem) formM(h SmoothLocal) error {
+	p.formed++
+	k, w := p.k, p.win
 	// Per-axis kernel square roots.
 	sizes := [3]int{w.NX, w.NY, w.NT}
 	for d := range 3 {
 		if err := p.kernelRoot(d, sizes[d], h.Length[d]); err != nil {
-			return evaluation{}, err
+			return err
 		}
 	}
 	p.envelope(h)
@@ -185,19 +231,15 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 	p.kronRows(p.tmp)
 	transposeTo(p.m, p.tmp, k)
 	p.kronRows(p.m)
-	// B = I + a·m, symmetrised, then its Cholesky factor (lower).
-	for r := range k {
-		for c := r; c < k; c++ {
-			v := a * 0.5 * (p.m[r*k+c] + p.m[c*k+r])
-			if r == c {
-				v++
-			}
-			p.m[r*k+c], p.m[c*k+r] = v, v
-		}
-	}
-	if !cholesky(p.m, k, p.tr, &p.buf) {
-		return evaluation{}, errors.New("online: smooth-local prior: I + a·LᵀGL is not positive definite")
-	}
+	// M is symmetric up to rounding; its lower triangle is the one used.
+	p.m, p.mc = p.mc, p.m
+	return nil
+}
+
+// finish completes an evaluation from the Cholesky factor of B in p.m: the
+// log determinant, the posterior mean and the log evidence.
+func (p *priorProblem) finish(a float64, profile bool, h SmoothLocal) (evaluation, error) {
+	k := p.k
 	var logDet float64
 	for r := range k {
 		logDet += 2 * math.Log(p.m[r*k+r])
@@ -353,11 +395,18 @@ func (p *priorProblem) vbuf() []float64 {
 	return p.vb
 }
 
-// transposeTo writes the transpose of the k×k matrix src into dst.
+// transposeTo writes the transpose of the k×k matrix src into dst, in
+// tiles of transposeTile² values that stay in the cache.
 func transposeTo(dst, src []float64, k int) {
-	for r := range k {
-		for c := range k {
-			dst[c*k+r] = src[r*k+c]
+	for r0 := 0; r0 < k; r0 += transposeTile {
+		for c0 := 0; c0 < k; c0 += transposeTile {
+			for r := r0; r < min(r0+transposeTile, k); r++ {
+				for c := c0; c < min(c0+transposeTile, k); c++ {
+					dst[c*k+r] = src[r*k+c]
+				}
+			}
 		}
 	}
 }
+
+const transposeTile = 32

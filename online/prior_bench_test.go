@@ -25,6 +25,7 @@ func BenchmarkPriorEvaluate(b *testing.B) {
 	h := SmoothLocal{Scale: 1e-3, Noise: 1, Length: [3]float64{1.5, 1.5, 1}, Centre: [3]float64{7, 7, 3}, Width: [3]float64{2, 2, 1.5}}
 	b.ReportAllocs()
 	for b.Loop() {
+		p.mValid = false // a full evaluation, not one that reuses M
 		if _, err := p.evaluate(h, true); err != nil {
 			b.Fatal(err)
 		}
@@ -80,9 +81,10 @@ func BenchmarkGramView(b *testing.B) {
 
 // BenchmarkPriorLiveUnit is one unit's turn on the live worker at the
 // reference frame (16×16 pixels, 12 lags) after two minutes of the
-// synthetic rig, with the live defaults (Config.Prior: 6 evaluations per
-// refit after the first): three warm refits, the whole block and each half
-// (the halves here both use the unit's STA; the cost is the same). Its
+// synthetic rig, with the live defaults (Config.Prior: 4 evaluations per
+// refit of the whole block after the first, 2 per half): three warm
+// refits, the whole block and each half (the halves here both use the
+// unit's STA; the cost is the same). Its
 // time times the number of significant units is how long the worker takes
 // to refresh them all on one core.
 func BenchmarkPriorLiveUnit(b *testing.B) {
@@ -112,5 +114,90 @@ func BenchmarkPriorLiveUnit(b *testing.B) {
 		if _, ok := r.fit(job, 0); !ok {
 			b.Fatal("refit failed")
 		}
+	}
+}
+
+// BenchmarkPriorRound is the live worker's round over the fitted units at
+// the reference frame (16×16 pixels, 12 lags, the synthetic rig's simple,
+// centre-surround and direction-selective cells at 8 Hz): after two
+// minutes and a first (cold) round, each op adds ten seconds of data and
+// gives every unit its turn (three warm refits with the live defaults:
+// the whole block and each half; the halves here use the unit's STA, the
+// cost is the same). The data grow as they do live, so the searches
+// reopen when the data grew by a quarter. s/unit is one unit's turn and
+// evals/unit its evidence evaluations (which do not depend on the load),
+// M-formed/unit those that formed the window's M (the others changed only
+// the prior's scale and reuse it, at about half the cost);
+// s-round-384 is one round over 384 units on the one worker goroutine
+// the mapper starts on two cores (Config.PriorWorkers).
+func BenchmarkPriorRound(b *testing.B) {
+	for _, c := range []struct {
+		name    string
+		opt     PriorOptions
+		minutes int // of data before the timed rounds
+	}{{"window7x7x6", PriorOptions{}, 2}, {"window9x9x8", PriorOptions{WindowPixels: 9, WindowLags: 8}, 2},
+		{"window7x7x6-after10min", PriorOptions{}, 10}} {
+		b.Run(c.name, func(b *testing.B) {
+			blk := newSimBlock(b, 7)
+			cfg, err := Config{Width: blk.width, Height: blk.height, Lags: blk.lags, White: true, PixelVariance: 1, Prior: c.opt}.withDefaults()
+			if err != nil {
+				b.Fatal(err)
+			}
+			r := newPriorRunner(cfg)
+			units := blk.linearUnits()
+			var seq int64
+			evals := 0  // evidence evaluations, load-independent
+			formed := 0 // of which formed M (the others changed only the scale)
+			round := func() {
+				view, err := blk.lg.View()
+				if err != nil {
+					b.Fatal(err)
+				}
+				seq++
+				job := &priorJob{seq: seq, view: view, usedA: view.Bins() / 2, usedB: view.Bins() - view.Bins()/2}
+				for _, u := range units {
+					st := blk.stats(view, u)
+					spikes := blk.spikes(u)
+					job.units = append(job.units, priorInput{unit: u, spikes: spikes, sta: FloatsOf(st.Seed), ridge: FloatsOf(st.Seed),
+						yy: st.YY, halfA: st.Seed, halfB: st.Seed, spikesA: spikes / 2, spikesB: spikes / 2, yyA: st.YY / 2, yyB: st.YY / 2})
+				}
+				b.StartTimer()
+				for i := range job.units {
+					if _, ok := r.fit(job, i); !ok {
+						b.Fatal("fit failed")
+					}
+				}
+				b.StopTimer()
+				for _, u := range units {
+					for _, f := range r.fitters {
+						if last, ok := f.Last(u); ok {
+							evals += last.Evaluations
+						}
+					}
+				}
+				formed = 0
+				for _, f := range r.fitters {
+					if f.prob != nil {
+						formed += f.prob.formed
+					}
+				}
+			}
+			blk.run(int64(c.minutes) * 3600)
+			b.StopTimer()
+			round() // the first, cold fits
+			b.ResetTimer()
+			b.StopTimer()
+			evals = 0
+			formed0 := formed
+			for range b.N {
+				blk.run(blk.bins + 10*60)
+				round()
+			}
+			perUnit := b.Elapsed().Seconds() / float64(b.N*len(units))
+			b.ReportMetric(perUnit, "s/unit")
+			b.ReportMetric(float64(evals)/float64(b.N*len(units)), "evals/unit")
+			b.ReportMetric(float64(formed-formed0)/float64(b.N*len(units)), "M-formed/unit")
+			b.ReportMetric(perUnit*384/float64(cfg.PriorWorkers), "s-round-384")
+		})
 	}
 }

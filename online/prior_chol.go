@@ -7,11 +7,11 @@ import (
 )
 
 // cholBlock is the panel width of the blocked Cholesky factorisation.
-const cholBlock = 32
+const cholBlock = 16
 
-// cholesky factors the k×k symmetric positive definite matrix a (row-major,
-// both triangles set) in place as a = L·Lᵀ, L in the lower triangle (the
-// upper triangle is left as scratch). It is the right-looking blocked
+// cholesky factors the k×k symmetric positive definite matrix a (row-major;
+// the lower triangle is read) in place as a = L·Lᵀ, L in the lower triangle
+// (the upper triangle is left as scratch). It is the right-looking blocked
 // algorithm (Golub & Van Loan, Matrix Computations, 4th ed., §4.2.9): each
 // panel of cholBlock columns is factored with scalar loops and the trailing
 // matrix is updated by one product on the package's matrix kernel, on the
@@ -23,24 +23,26 @@ func cholesky(a []float64, k int, tr []float64, buf *fastmat.Buf) bool {
 		// The panel: columns j0…j0+jb−1, rows j0…k−1; earlier panels are
 		// already subtracted by the trailing updates.
 		for j := j0; j < j0+jb; j++ {
-			rj := a[j*k : j*k+j+1]
-			d := rj[j]
-			for p := j0; p < j; p++ {
-				d -= rj[p] * rj[p]
+			n := j - j0 // columns of the panel left of j
+			rj := a[j*k+j0 : j*k+j+1]
+			d := rj[n]
+			for _, v := range rj[:n] {
+				d -= v * v
 			}
 			if !(d > 0) {
 				return false
 			}
 			ljj := math.Sqrt(d)
-			rj[j] = ljj
+			rj[n] = ljj
 			inv := 1 / ljj
+			lj := rj[:n]
 			for i := j + 1; i < k; i++ {
-				ri := a[i*k : i*k+j+1]
-				s := ri[j]
-				for p := j0; p < j; p++ {
-					s -= ri[p] * rj[p]
+				ri := a[i*k+j0 : i*k+j+1]
+				s := ri[n]
+				for p, v := range ri[:n] {
+					s -= v * lj[p]
 				}
-				ri[j] = s * inv
+				ri[n] = s * inv
 			}
 		}
 		r := k - j0 - jb
@@ -48,7 +50,10 @@ func cholesky(a []float64, k int, tr []float64, buf *fastmat.Buf) bool {
 			break
 		}
 		// Trailing update: A22 −= L21·L21ᵀ, with L21 = rows j0+jb…, columns
-		// j0…j0+jb−1, and its transpose copied into tr (jb × r).
+		// j0…j0+jb−1, and its transpose copied into tr (jb × r). Only the
+		// lower triangle is read later, so it is updated in strips of
+		// cholStrip rows, each up to its last column: about half the
+		// products of the full square.
 		s := j0 + jb
 		for p := range jb {
 			row := tr[p*r : (p+1)*r]
@@ -56,10 +61,17 @@ func cholesky(a []float64, k int, tr []float64, buf *fastmat.Buf) bool {
 				row[i] = a[(s+i)*k+j0+p]
 			}
 		}
-		buf.MulAdd(r, r, jb, -1, a[s*k+j0:], k, tr, r, a[s*k+s:], k)
+		for i0 := 0; i0 < r; i0 += cholStrip {
+			i1 := min(i0+cholStrip, r)
+			buf.MulAdd(i1-i0, i1, jb, -1, a[(s+i0)*k+j0:], k, tr, r, a[(s+i0)*k+s:], k)
+		}
 	}
 	return true
 }
+
+// cholStrip is the height of the strips of the trailing update (a multiple
+// of the matrix kernel's 12 rows).
+const cholStrip = 48
 
 // cholSolve overwrites b with (L·Lᵀ)⁻¹ b for the factor of cholesky.
 func cholSolve(l []float64, k int, b []float64) {

@@ -29,9 +29,13 @@ import (
 
 // Live defaults of the fitter (Config.Prior): fewer evaluations per refit
 // than the library's defaults, so that each unit is refitted every few
-// seconds at hundreds of units; the warm start carries the search on.
+// seconds at hundreds of units; the warm start carries the search on. With
+// 4 per refit of the whole block (2 per half), a round over 384 units at
+// the reference frame takes about 12 s on one worker after two minutes of
+// data and 8.5 s after ten (BenchmarkPriorRound); TestMapperPriorLive's
+// checks pass at the demo's scale.
 const (
-	priorLiveEvaluations = 6
+	priorLiveEvaluations = 4
 	priorLiveFirst       = 20
 )
 
@@ -110,8 +114,15 @@ func newPriorRunner(cfg Config) *priorRunner {
 func (r *priorRunner) reset(epoch int64) {
 	r.epoch = epoch
 	for i := range r.fitters {
+		opt := r.opt
+		if i > 0 {
+			// The halves carry on their searches with half the budget
+			// per refit: their fits only decide the reliability, and a
+			// unit's turn costs the less (BenchmarkPriorRound).
+			opt.Evaluations = max(2, opt.Evaluations/2)
+		}
 		// The config was checked by NewMapper, so this cannot fail.
-		r.fitters[i], _ = NewPriorFitter(r.width, r.height, r.lags, r.opt)
+		r.fitters[i], _ = NewPriorFitter(r.width, r.height, r.lags, opt)
 		r.fitters[i].gate = r.gate
 	}
 	r.fittedOn = map[int]int64{}
@@ -516,9 +527,9 @@ func (m *Mapper) applyPrior(u int, d *UnitDetail, res priorResult) {
 	if eta, ok := tr.Project(float64(d.Rate), m.cfg.Target); ok {
 		d.PriorETA = Float(eta)
 	}
-	// The status comes from the more reliable estimate: the ridge's
-	// reliability is the existing rule's; the prior's is calibrated
-	// against the true filter (TestMapperPriorLive).
+	// The status comes from the more reliable estimate: both
+	// reliabilities are calibrated against the true filter
+	// (TestMapperPriorLive).
 	pr, rr := res.reliability, float64(d.Reliability)
 	if !(pr > rr) && !math.IsNaN(rr) {
 		return
@@ -542,7 +553,8 @@ const priorStartP = 0.01
 
 // priorJob gathers the statistics of the significant units for the prior
 // fits, or returns nil when there is none or the Gram view does not cover
-// the same bins as the unit sums (after a restarted history).
+// the same bins as the unit sums (which never happens: the view covers
+// every segment of a restarted lag history, as the sums do).
 func (m *Mapper) priorJob(details []*UnitDetail) *priorJob {
 	var units []int
 	for u, d := range details {

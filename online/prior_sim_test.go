@@ -62,13 +62,20 @@ func newSimBlock(t testing.TB, seed uint64) *simBlock {
 	if err != nil {
 		t.Fatal(err)
 	}
-	rig, err := synth.New(synth.Scenario{Seed: seed}, src)
+	return newSimBlockOn(t, synth.Scenario{Seed: seed}, src)
+}
+
+// newSimBlockOn simulates the linear units of the rig's scenario sc on the
+// stimulus src (seeded by sc.Seed); unit indices are the rig's.
+func newSimBlockOn(t testing.TB, sc synth.Scenario, src stimulus.Source) *simBlock {
+	t.Helper()
+	rig, err := synth.New(sc, src)
 	if err != nil {
 		t.Fatal(err)
 	}
-	sc := rig.Scenario()
+	sc = rig.Scenario()
 	b := &simBlock{t: t, src: src, truth: rig.Units(), width: sc.Width, height: sc.Height, lags: sc.Lags,
-		gain: sc.Gain, dt: sc.FramePeriod, rng: rand.New(rand.NewPCG(seed, 77))}
+		gain: sc.Gain, dt: sc.FramePeriod, rng: rand.New(rand.NewPCG(sc.Seed, 77))}
 	for i, u := range b.truth {
 		if u.Filter != nil && (u.Kind == synth.KindSimple || u.Kind == synth.KindCentreSurround || u.Kind == synth.KindDirection) {
 			b.model = append(b.model, i)

@@ -160,6 +160,7 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 	if err := f.guarded(func() error { return v.WindowTo(p.gram, f.idx) }); err != nil {
 		return PriorFit{}, err
 	}
+	p.mValid = false // new data
 	for i, a := range f.idx {
 		p.c[i] = st.Cross[a]
 	}

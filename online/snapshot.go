@@ -93,6 +93,11 @@ type UnitSummary struct {
 	// when its split-half reliability is the higher); empty for units
 	// that are not significant.
 	Estimate string `json:"estimate,omitempty"`
+	// PriorReliability is the reliability of the smooth-local estimate
+	// (prior_live.go: the Spearman–Brown corrected split-half correlation,
+	// each half fitted on its own data, times the window's share); null
+	// without a fit. With Estimate "prior" it is the one the status uses.
+	PriorReliability Float `json:"prior_reliability"`
 }
 
 // UnitDetail is everything known about one unit.
@@ -118,13 +123,11 @@ type UnitDetail struct {
 	// used bins behind the fit (it trails the ridge by a few seconds).
 	PriorLogEvidence Float `json:"prior_log_evidence"`
 	PriorBins        int64 `json:"prior_bins"`
-	// PriorReliability is the Spearman–Brown corrected split-half
-	// correlation of the prior estimate, each half fitted on its own data;
-	// PriorETA its projected seconds to the target (null when too early).
-	PriorReliability Float      `json:"prior_reliability"`
-	PriorETA         Float      `json:"prior_eta_s"`
-	Features         Features   `json:"features"`
-	STC              *STCResult `json:"stc,omitempty"`
+	// PriorETA is the prior's projected seconds to the target (null when
+	// too early).
+	PriorETA Float      `json:"prior_eta_s"`
+	Features Features   `json:"features"`
+	STC      *STCResult `json:"stc,omitempty"`
 	// STCState says what became of STC on this unit: "running" (a result
 	// is attached), "collecting: …" (too few spike-triggered samples yet),
 	// "queued for results" (enough; its turn comes), "waiting: …" (asked

@@ -110,15 +110,14 @@ func (m *Mapper) ringHistory() [][]float64 {
 
 // replayLog folds the logged bins by block updates of flushRows rows.
 func (m *Mapper) replayLog() {
-	halves := !m.cfg.White
 	for k := range m.log.bins() {
 		counts, halfA := m.log.rowTo(m.x, k)
-		if halfA && halves {
+		if halfA {
 			m.yrow[0] = 1
 		}
 		for _, c := range counts {
 			m.yrow[m.colY(c.Unit)] += c.N
-			if halfA && halves {
+			if halfA {
 				m.yrow[m.colA(c.Unit)] += c.N
 			}
 		}
@@ -129,9 +128,7 @@ func (m *Mapper) replayLog() {
 		m.yrow[0] = 0
 		for _, c := range counts {
 			m.yrow[m.colY(c.Unit)] = 0
-			if halves {
-				m.yrow[m.colA(c.Unit)] = 0
-			}
+			m.yrow[m.colA(c.Unit)] = 0
 		}
 	}
 	m.ridge.Flush()
@@ -165,17 +162,13 @@ func (m *Mapper) resolve() error {
 	for u := range m.ids {
 		colTo(cross[m.colY(u)*n:(m.colY(u)+1)*n], u, false)
 		yy[m.colY(u)] = m.yy[u]
-		if !m.cfg.White {
-			colTo(cross[m.colA(u)*n:(m.colA(u)+1)*n], u, true)
-			yy[m.colA(u)] = m.yyA[u]
-		}
+		colTo(cross[m.colA(u)*n:(m.colA(u)+1)*n], u, true)
+		yy[m.colA(u)] = m.yyA[u]
 	}
-	if !m.cfg.White {
-		// The half indicator: Σ h x = Σx over half A, Σ h = hᵀh = bins in A.
-		copy(cross[:d], s.sumX[0])
-		cross[d] = float64(m.usedA)
-		yy[0] = float64(m.usedA)
-	}
+	// The half indicator: Σ h x = Σx over half A, Σ h = hᵀh = bins in A.
+	copy(cross[:d], s.sumX[0])
+	cross[d] = float64(m.usedA)
+	yy[0] = float64(m.usedA)
 	sumX := make([]float64, d)
 	m.gram.lagSumsTo(sumX)
 	if bins := int64(m.gram.Bins()); bins != m.used {

@@ -57,9 +57,7 @@ func (m *Mapper) Update() *Snapshot {
 	clear(sh.pdiag)
 	sh.t1, sh.t2 = 0, 0
 	if m.ridge.Rows() > 0 {
-		if !m.cfg.White {
-			m.ridge.WeightsTo(sh.wh, 0)
-		}
+		m.ridge.WeightsTo(sh.wh, 0)
 		sh.t1, sh.t2 = m.ridge.samplingDiagTraces(sh.pdiag)
 		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda, m.ridge)
 	}
@@ -130,9 +128,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	var intercept float64
 	if m.ridge.Rows() > 0 {
 		intercept = m.ridge.WeightsTo(s.w, m.colY(u))
-		if !cfg.White {
-			m.ridge.WeightsTo(s.wa, m.colA(u))
-		}
+		m.ridge.WeightsTo(s.wa, m.colA(u))
 	} else {
 		clear(s.w)
 		clear(s.wa)
@@ -180,18 +176,24 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	noField := m.cal.noFieldSpikes(u, m.updates, cfg, m.dim, corr, perSpike, significant)
 	d.NoFieldSpikes = Float(noField)
 
-	// Split halves: for a white stimulus the STAs of the two halves, which
-	// are independent and each proportional to the filter; otherwise the
-	// ridge fits of each half's counts (see halvesTo), which need many more
-	// bins than dimensions before they stop underestimating.
-	if cfg.White {
-		m.sta.HalvesTo(s.ha, s.hb, u)
-	} else {
-		m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
-	}
+	// Split halves: the ridge fits of each half's counts (see halvesTo),
+	// independent under the null and summing to the unit's ridge, compared
+	// over all coefficients, so that R is the reliability of the ridge
+	// estimate itself and √R its correlation with its expectation
+	// (classical test theory; TestMapperPriorLive checks it against the
+	// true filter). The STA halves in a window of reliabilityLags lags
+	// around the peak, used before on white noise, overstated it: the
+	// window leaves out the noise of the other lags, and the ridge's noise
+	// is larger than the STA's where the Gram matrix departs from N·c²I.
+	m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
 	lo, hi := m.reliabilityWindow(s.w, significant)
-	_, R := SplitHalf(s.ha[lo:hi], s.hb[lo:hi])
+	_, R := SplitHalf(s.ha, s.hb)
 	d.Reliability = Float(R)
+	if cfg.White {
+		// The predictive correlation keeps the STA halves on white noise,
+		// as before (predict.go).
+		m.sta.HalvesTo(s.ha, s.hb, u)
+	}
 	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.sta, s.cross))
 	m.sta.STATo(s.sta, u) // the scratch is reused below
 	m.checkDrift(d, u, significant, lo, hi, sh, s)
@@ -237,13 +239,12 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	return d
 }
 
-// reliabilityLags is the width of the lag window over which the split
-// halves are compared: the main lobe of a field, without the many lags that
-// hold only noise.
+// reliabilityLags is the width of the lag window of the drift check: the
+// main lobe of a field, without the many lags that hold only noise.
 const reliabilityLags = 3
 
 // reliabilityWindow returns the coefficient range [lo, hi) of the lag window
-// for the split-half correlation: centred on the unit's own peak lag once
+// of the drift check: centred on the unit's own peak lag once
 // the unit is significant (its field then decides the lag, not its noise),
 // before that on the population's median peak lag, so that under the null
 // the window does not depend on the unit's own data and r stays unbiased.

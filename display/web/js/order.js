@@ -1,5 +1,5 @@
 // The order and the filter of the units.
-import {FIELD, SORTS, statusOf} from './words.js';
+import {ESTIMATE, FIELD, SORTS, statusOf} from './words.js';
 
 // naturalCompare orders ids with digit runs compared as numbers ("2"
 // before "10", "007" equal to "7"), other characters one by one; the server
@@ -57,13 +57,25 @@ export function compareBy(key, desc) {
       return x === y ? 0 : x === Infinity ? 1 : y === Infinity ? -1 : sign * (x - y);
     };
   } else {
+    // Reliability sorts by the reliability the status comes from, the one
+    // the tile shows.
+    const value = sort.key === 'reliability' ? (u) => statusReliability(u).value : (u) => u[sort.field];
     primary = (a, b) => {
-      const x = a[sort.field], y = b[sort.field];
+      const x = value(a), y = value(b);
       if (!defined(x) || !defined(y)) return defined(x) ? -1 : defined(y) ? 1 : 0;
       return sign * (x - y);
     };
   }
   return (a, b) => primary(a, b) || naturalCompare(a[FIELD.id], b[FIELD.id]);
+}
+
+// statusReliability is the reliability of the estimate a unit's status
+// comes from (online.UnitSummary.estimate) and which estimate that is:
+// the smooth-local prior's when the status comes from it, else the
+// ridge's (also for units not significant, whose estimate is empty).
+export function statusReliability(u) {
+  if (u[FIELD.estimate] === ESTIMATE.prior) return {value: u[FIELD.priorReliability], from: ESTIMATE.prior};
+  return {value: u[FIELD.reliability], from: ESTIMATE.ridge};
 }
 
 // visibleUnits is the units that pass the filter, in the chosen order.

@@ -1,9 +1,9 @@
 // The Units tab: the bar that chooses density, order and filter, and one
 // tile per shown unit.
-import {DENSITIES, SORTS, STATUS, autoDensity, statusOf} from './words.js';
+import {DENSITIES, ESTIMATE, FIELD, SORTS, STATUS, autoDensity, statusOf} from './words.js';
 import {maxAbs, paintMap, tileMap} from './colour.js';
 import {eta, num} from './format.js';
-import {visibleUnits} from './order.js';
+import {statusReliability, visibleUnits} from './order.js';
 import {hoverMap} from './hover.js';
 import {live} from './store.js';
 import {view} from './view.js';
@@ -94,9 +94,10 @@ function tileFor(id, open) {
   const el = document.createElement('div');
   el.className = 'tile';
   el.dataset.id = id;
-  el.innerHTML = '<canvas></canvas><div class="tline"><span class="tid"></span><span class="rel"></span></div>' +
+  el.innerHTML = '<canvas></canvas><div class="tline"><span class="tid"></span><span class="rel"><span class="rv"></span><span class="from"></span></span></div>' +
     '<div class="tline more"><span class="badge"></span><span class="sub"></span></div><div class="rbar"><i></i><b></b></div>';
   t = {el, canvas: el.querySelector('canvas'), id: el.querySelector('.tid'), rel: el.querySelector('.rel'),
+    relValue: el.querySelector('.rel .rv'), relFrom: el.querySelector('.rel .from'),
     badge: el.querySelector('.badge'), sub: el.querySelector('.sub'), bar: el.querySelector('.rbar i'),
     tick: el.querySelector('.rbar b'), unit: null};
   t.id.textContent = id;
@@ -134,14 +135,22 @@ export function renderOverview(s, open) {
     t.el.className = 'tile ' + st.css + (u.id === view.unit ? ' current' : '');
     t.badge.className = 'badge ' + st.css;
     t.badge.textContent = st.word;
-    t.rel.textContent = (d === 'large' ? 'r ' : '') + num(u.reliability, 2);
-    t.rel.title = 'split-half reliability (Spearman–Brown corrected)';
+    // The reliability the status comes from, marked with its estimate
+    // when the unit is significant (short in the smaller tiles).
+    const rel = statusReliability(u);
+    const marked = !!u[FIELD.estimate];
+    t.relValue.textContent = (d === 'large' ? 'r ' : '') + num(rel.value, 2);
+    t.relFrom.textContent = !marked ? '' : d === 'large' ? ' ' + rel.from : ' ' + rel.from.charAt(0);
+    t.rel.title = 'split-half reliability (Spearman–Brown corrected) of the ' +
+      (rel.from === ESTIMATE.prior ? 'smooth-local prior estimate' : 'ridge estimate') +
+      (marked ? ', the estimate the status comes from' : '');
     t.sub.textContent = (u.spikes || 0) + ' sp' + (u.flagged ? ' · STC' : '') + (u.drift ? ' · drift' : '');
     t.sub.classList.toggle('warn', !!u.drift);
-    const r = u.reliability !== null && isFinite(u.reliability) ? Math.max(0, Math.min(1, u.reliability)) : 0;
+    const r = rel.value !== null && isFinite(rel.value) ? Math.max(0, Math.min(1, rel.value)) : 0;
     t.bar.style.width = (100 * r) + '%';
     t.tick.style.left = (100 * (target || 0)) + '%';
-    t.el.title = 'unit ' + u.id + ': ' + st.word + ', reliability ' + num(u.reliability, 3) +
+    t.el.title = 'unit ' + u.id + ': ' + st.word + ', reliability ' + num(rel.value, 3) + ' (' + rel.from + ')' +
+      (rel.from === ESTIMATE.prior ? ', ridge ' + num(u.reliability, 3) : '') +
       ', −log10 p ' + num(u.significance, 1) + ', ' + (u.spikes || 0) + ' spikes, ' + num(u.rate_hz, 1) +
       ' spikes/s, peak lag ' + u.peak_lag + ' (' + num(u.latency_ms, 0) + ' ms), ETA ' + eta(u.eta_s) +
       (u.flagged ? ', STC requested' : '') +

@@ -34,6 +34,10 @@ export const FIELD = {
   map: 'map', mapShape: 'map_shape', mapMax: 'map_max',
 };
 
+// ESTIMATE names the estimates a unit's status can come from, as the
+// server sends them (online.EstimateRidge, online.EstimatePrior).
+export const ESTIMATE = {ridge: 'ridge', prior: 'prior'};
+
 // SORTS are the orders of the tiles: key (in the URL), label, the unit
 // field compared, and the direction it starts in (desc: largest first).
 export const SORTS = [
