@@ -3,6 +3,7 @@ package online
 import (
 	"errors"
 	"fmt"
+	"livefield/online/internal/fastmat"
 	"math"
 
 	"gonum.org/v1/gonum/mathext"
@@ -147,7 +148,7 @@ type WhiteTest struct {
 	cross        []float64 // D
 	autocov      []float64 // L
 	chol         []float64 // L×L, lower triangle
-	w            []float64 // L
+	w            []float64 // D: the whitened coefficients, lag-major like cross
 }
 
 // NewWhiteTest returns a test for STAs of the given pixels and lags.
@@ -159,7 +160,7 @@ func NewWhiteTest(pixels, lags int) *WhiteTest {
 		cross:   make([]float64, pixels*lags),
 		autocov: make([]float64, lags),
 		chol:    make([]float64, lags*lags),
-		w:       make([]float64, lags),
+		w:       make([]float64, pixels*lags),
 	}
 }
 
@@ -204,18 +205,24 @@ func (t *WhiteTest) TestTo(z, cross, autocov []float64, variance float64) (Signi
 	if !t.factor(autocov) {
 		return res, ErrAutocov
 	}
+	// Forward substitution G w_p = z_p for every pixel p at once, z_p =
+	// (T_{p,0}, …, T_{p,L−1})/c: lag i of all pixels is z's lag i minus
+	// the earlier lags' rows scaled by G's row i (contiguous vector
+	// operations), then divided by G_ii.
 	var q float64
 	P := t.pixels
-	for p := 0; p < P; p++ {
-		// Forward substitution G w = z_p, z_p = (T_{p,0}, …, T_{p,L−1})/c.
-		for i := 0; i < L; i++ {
-			v := cross[i*P+p] / c
-			row := t.chol[i*L : i*L+i]
-			for j, g := range row {
-				v -= g * t.w[j]
-			}
-			v /= t.chol[i*L+i]
-			t.w[i] = v
+	for i := 0; i < L; i++ {
+		wi := t.w[i*P : (i+1)*P]
+		for p, v := range cross[i*P : (i+1)*P] {
+			wi[p] = v / c
+		}
+		for j, g := range t.chol[i*L : i*L+i] {
+			fastmat.AddScaled(wi, -g, t.w[j*P:(j+1)*P])
+		}
+		inv := 1 / t.chol[i*L+i]
+		for p, v := range wi {
+			v *= inv
+			wi[p] = v
 			q += v * v
 		}
 	}
