@@ -32,12 +32,10 @@ func BenchmarkPriorEvaluate(b *testing.B) {
 	}
 }
 
-// BenchmarkPriorRefit is one warm refit of one unit at the reference frame
-// (16×16 pixels, 12 lags, D = 3072) after two minutes of the synthetic
-// rig: the window's Gram from the view, the evidence re-evaluated at the
-// last hyperparameters and up to 11 more evaluations of the compass search
-// (the default Evaluations of 12), and the full-D posterior mean.
-func BenchmarkPriorRefit(b *testing.B) {
+// warmPriorUnit runs two minutes of the synthetic rig at the reference
+// frame and returns the block, its Gram view, its first linear unit and
+// that unit's statistics.
+func warmPriorUnit(b *testing.B) (*simBlock, *GramView, int, PriorStats) {
 	blk := newSimBlock(b, 7)
 	blk.run(2 * 3600)
 	view, err := blk.lg.View()
@@ -45,7 +43,16 @@ func BenchmarkPriorRefit(b *testing.B) {
 		b.Fatal(err)
 	}
 	u := blk.linearUnits()[0]
-	st := blk.stats(view, u)
+	return blk, view, u, blk.stats(view, u)
+}
+
+// BenchmarkPriorRefit is one warm refit of one unit at the reference frame
+// (16×16 pixels, 12 lags, D = 3072) after two minutes of the synthetic
+// rig: the window's Gram from the view, the evidence re-evaluated at the
+// last hyperparameters and up to 11 more evaluations of the compass search
+// (the default Evaluations of 12), and the full-D posterior mean.
+func BenchmarkPriorRefit(b *testing.B) {
+	blk, _, u, st := warmPriorUnit(b)
 	fitter, _ := NewPriorFitter(blk.width, blk.height, blk.lags, PriorOptions{})
 	if _, err := fitter.Refit(u, st); err != nil {
 		b.Fatal(err)
@@ -88,14 +95,7 @@ func BenchmarkGramView(b *testing.B) {
 // time times the number of significant units is how long the worker takes
 // to refresh them all on one core.
 func BenchmarkPriorLiveUnit(b *testing.B) {
-	blk := newSimBlock(b, 7)
-	blk.run(2 * 3600)
-	view, err := blk.lg.View()
-	if err != nil {
-		b.Fatal(err)
-	}
-	u := blk.linearUnits()[0]
-	st := blk.stats(view, u)
+	blk, view, u, st := warmPriorUnit(b)
 	cfg, err := Config{Width: blk.width, Height: blk.height, Lags: blk.lags, White: true, PixelVariance: 1}.withDefaults()
 	if err != nil {
 		b.Fatal(err)

@@ -62,7 +62,7 @@ type Ridge struct {
 	bufs    []fastmat.Buf
 	job     ridgeJob
 	wv, wvt [][]float64 // per-worker parts of V and Vt for the V pass
-	hatPart []float64
+	hatDiag []float64   // HatTraces' scratch for the sampling diagonal
 
 	err      error
 	rejected int64
@@ -104,7 +104,6 @@ func NewRidge(dim, cols int, lambda float64) (*Ridge, error) {
 	}
 	r.job.r = r
 	r.bufs = make([]fastmat.Buf, fastmat.Workers())
-	r.hatPart = make([]float64, 3*r.nt)
 	r.wv = make([][]float64, len(r.bufs))
 	r.wvt = make([][]float64, len(r.bufs))
 	r.growCols(cols)
@@ -395,12 +394,11 @@ func ridgeCholInv(s, linv, linvT []float64, n int) bool {
 	return true
 }
 
-// The parallel phases of Flush and HatTraces.
+// The parallel phases of Flush and of mirroring P.
 const (
 	phaseV = iota
 	phaseVSum
 	phaseP
-	phaseHat
 	phaseMirror
 )
 
@@ -455,8 +453,6 @@ func (j *ridgeJob) Do(i, w int) {
 		i0, mi := r.tile(I)
 		j0, mj := r.tile(J)
 		buf.MulAdd(mi, mj, bp, -1, r.u[i0*bp:], bp, r.ut[j0:], ld, r.p[i0*ld+j0:], ld)
-	case phaseHat:
-		r.hatRows(i)
 	case phaseMirror:
 		r.mirrorRows(i)
 	}
@@ -539,50 +535,12 @@ func (r *Ridge) PosteriorDiagTo(dst []float64) {
 // HatTraces returns tr(H) and tr(H²) of the ridge hat matrix of the weights,
 // Σ h_i and Σ h_i² with h_i = g_i/(g_i+λ) over the eigenvalues g_i of the
 // centred Gram matrix, from Q = the weights block of (Λ + ÃᵀÃ)⁻¹:
-// t1 = D − λ tr Q, t2 = D − 2λ tr Q + λ²‖Q‖_F².
-// It costs one pass over P on all cores.
+// t1 = D − λ tr Q, t2 = D − 2λ tr Q + λ²‖Q‖_F². They come from the pass
+// that gives the sampling diagonal (samplingDiagTraces), one pass over P on
+// all cores; an Update takes both from it at once.
 func (r *Ridge) HatTraces() (t1, t2 float64) {
-	if r.rows == 0 {
-		return 0, 0
+	if len(r.hatDiag) != r.dim {
+		r.hatDiag = make([]float64, r.dim)
 	}
-	r.job.phase = phaseHat
-	fastmat.Each(r.nt, &r.job)
-	// Q = P_ww + c p pᵀ: tr Q = tr P_ww + c‖p‖²,
-	// ‖Q‖_F² = ‖P_ww‖_F² + 2c pᵀP_ww p + c²‖p‖⁴.
-	var tr, fro, quad float64
-	for t := range r.nt {
-		tr += r.hatPart[3*t]
-		fro += r.hatPart[3*t+1]
-		quad += r.hatPart[3*t+2]
-	}
-	c, pe := r.interceptCorrection()
-	var pp float64
-	for _, x := range pe[:r.dim] {
-		pp += x * x
-	}
-	trQ := tr + c*pp
-	froQ := fro + 2*c*quad + c*c*pp*pp
-	d := float64(r.dim)
-	return d - r.lam*trQ, d - 2*r.lam*trQ + r.lam*r.lam*froQ
-}
-
-// hatRows sums, over the weight rows of tile t, tr P_ww, ‖P_ww‖_F² and
-// p_eᵀ P_ww p_e from the lower triangle.
-func (r *Ridge) hatRows(t int) {
-	lo, sz := r.tile(t)
-	pe := r.p[r.dim*r.ld : r.dim*r.ld+r.dim]
-	var tr, fro, quad float64
-	for i := lo; i < min(lo+sz, r.dim); i++ {
-		row := r.p[i*r.ld : i*r.ld+i]
-		var f, q float64
-		for j, x := range row {
-			f += x * x
-			q += x * pe[j]
-		}
-		d := r.p[i*r.ld+i]
-		tr += d
-		fro += 2*f + d*d
-		quad += pe[i] * (2*q + d*pe[i])
-	}
-	r.hatPart[3*t], r.hatPart[3*t+1], r.hatPart[3*t+2] = tr, fro, quad
+	return r.samplingDiagTraces(r.hatDiag)
 }

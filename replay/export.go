@@ -162,7 +162,7 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 		// refinement adds its own (the whole export stays within the
 		// reference workload's 400 MB).
 		f.Close()
-		f, col.mapper = nil, nil
+		col.mapper = nil
 		debug.FreeOSMemory()
 		fits, fails, out.Poisson = refinePoisson(col, final, finalBlock, opt)
 		col.store = nil // the bins are no longer needed

@@ -84,14 +84,15 @@ func NewLoop(opt Options) (*Loop, error) {
 	if err := opt.fill(); err != nil {
 		return nil, err
 	}
-	return newLoop(opt, opt.Pipelined), nil
+	return newLoop(opt, false), nil
 }
 
-// newLoop returns a Loop whose estimator runs inline, or on a goroutine of
-// its own when async: paced by the arrival clock when opt.Pipelined, by the
-// wall clock (a Rig's) otherwise.
-func newLoop(opt Options, async bool) *Loop {
-	c := &Loop{opt: opt, async: async, paced: async && opt.Pipelined, q: newEventQueue(),
+// newLoop returns a Loop whose estimator runs on a goroutine of its own
+// keeping wall-clock time (rig, a Rig's), or else inline, or with
+// opt.Pipelined on a goroutine of its own paced by the arrival clock.
+func newLoop(opt Options, rig bool) *Loop {
+	paced := !rig && opt.Pipelined
+	c := &Loop{opt: opt, async: rig || paced, paced: paced, q: newEventQueue(),
 		rejected: map[string]uint64{}, logged: map[string]time.Time{}}
 	c.n.init()
 	c.estimates.Store(&estimates{EstimateT: math.NaN(), Wait: math.NaN()})
@@ -99,7 +100,7 @@ func newLoop(opt Options, async bool) *Loop {
 	c.est.init(c)
 	c.fits.init(c)
 	c.ctx, c.stop = context.WithCancel(context.Background())
-	if async {
+	if c.async {
 		c.wg.Add(1)
 		go func() {
 			defer c.wg.Done()

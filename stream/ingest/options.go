@@ -121,7 +121,7 @@ type Options struct {
 	// this way.
 	OnBin func(block string, m *online.Mapper, frame []float64, counts []online.Count)
 
-	// Pipelined, for NewLoop, runs the estimator on a goroutine of its own
+	// Pipelined, for NewLoop (a Rig ignores it), runs the estimator on a goroutine of its own
 	// while the caller's Feed decodes and bins the next messages (replay
 	// at full speed, export). The estimator is still paced by the arrival
 	// times, so the estimates are those of the inline estimator, bit for
