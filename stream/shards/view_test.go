@@ -36,12 +36,19 @@ func TestViewMergesShards(t *testing.T) {
 	n := uint64(len(recs))
 	s0, s1, ref := settle(t, w0.rig, n), settle(t, w1.rig, n), settle(t, whole, n)
 
-	v := NewView(srv.Connect(t), "livefield."+rig, ViewOptions{Timeout: 10 * time.Second})
+	// Under the race detector on two busy cores the shards may answer the
+	// discovery round late: refresh until both are in (a minute at most).
+	v := NewView(srv.Connect(t), "livefield."+rig, ViewOptions{Timeout: time.Minute, DiscoverWait: time.Second})
 	ctx := context.Background()
-	v.Refresh(ctx)
-	m := v.Snapshot()
-	if m == nil {
-		t.Fatal("no merged snapshot")
+	var m *online.Snapshot
+	for deadline := time.Now().Add(time.Minute); ; {
+		v.Refresh(ctx)
+		if m = v.Snapshot(); m != nil && len(m.Units) == len(ref.Units) {
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatal("no merged snapshot of both shards within a minute")
+		}
 	}
 	// Every unit exactly once, from its own shard, equal to the unsharded
 	// worker's within 1e-12 (TestShards in stream/ingest: the shards' ridge
