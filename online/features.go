@@ -26,6 +26,10 @@ type FeatureFinder struct {
 	// of ±(3σ + 2) pixels around the earlier centre: the field moves little
 	// between updates. The moments still decide when the fit fails.
 	Warm *Features
+	// Fitted reports, after FeaturesTo, whether the centre and extent come
+	// from the Gaussian fit (false: from the moments, because the fit was
+	// skipped, failed or gave an unusable shape).
+	Fitted bool
 
 	width, height, lags int
 	period              float64
@@ -50,7 +54,7 @@ type FeatureFinder struct {
 // The least-squares 2-D Gaussian: parameters and iteration limits.
 const (
 	gaussParams   = 7  // amplitude, x0, y0, ln σ1, ln σ2, angle, offset
-	gaussMaxIter  = 60 // Levenberg–Marquardt steps at most
+	gaussMaxIter  = 30 // Levenberg–Marquardt steps at most
 	gaussWarmIter = 8  // steps at most from a warm start
 	// floorNoiseSD is the noise floor of the moments in robust standard
 	// deviations of the map (common practice, no source).
@@ -129,6 +133,7 @@ func FeaturesOf(est []float64, width, height, lags int, framePeriod float64, geo
 // extent and separability.
 func (f *FeatureFinder) FeaturesTo(dst *Features, est []float64) error {
 	p := f.width * f.height
+	f.Fitted = false
 	if len(est) != p*f.lags {
 		return fmt.Errorf("online: features: estimate has %d values, want %d (%d×%d pixels × %d lags)", len(est), p*f.lags, f.width, f.height, f.lags)
 	}
@@ -264,6 +269,7 @@ func (f *FeatureFinder) shape(m []float64, polarity float64) gauss {
 		f.pos[i] = polarity * v
 	}
 	mom := f.moments(m)
+	f.Fitted = false
 	if f.MomentsOnly {
 		return mom
 	}
@@ -277,6 +283,7 @@ func (f *FeatureFinder) shape(m []float64, polarity float64) gauss {
 	}
 	fit, ok := f.fit(start, steps)
 	if ok && f.usable(fit) {
+		f.Fitted = true
 		return fit
 	}
 	return mom
@@ -461,11 +468,11 @@ func (f *FeatureFinder) fit(start gauss, steps int) (gauss, bool) {
 				next[r] = q[r] + step[r]
 			}
 			if c := f.model(&next, f.resid, false); c < cost {
-				converged := cost-c <= 1e-12*cost
+				converged := cost-c <= 1e-8*cost
 				q, cost = next, c
 				mu = math.Max(mu/3, 1e-9)
 				improved = true
-				if converged {
+				if converged || f.hopeless(&q) {
 					return f.toGauss(q), true
 				}
 				break
@@ -478,6 +485,17 @@ func (f *FeatureFinder) fit(start gauss, steps int) (gauss, bool) {
 		cost = f.model(&q, f.trial, true)
 	}
 	return f.toGauss(q), true
+}
+
+// hopeless reports whether the fit has run into a shape that usable
+// refuses and that the remaining steps are not expected to leave: narrower
+// than a twentieth of a pixel, or centred a whole frame outside. Fits to a
+// noisy or non-Gaussian map tend to shrink onto one pixel step by step,
+// using every step they are allowed.
+func (f *FeatureFinder) hopeless(q *[gaussParams]float64) bool {
+	w, h := float64(f.width), float64(f.height)
+	return min(q[3], q[4]) < math.Log(0.05) ||
+		q[1] < -w || q[1] > 2*w || q[2] < -h || q[2] > 2*h
 }
 
 func (f *FeatureFinder) toGauss(q [gaussParams]float64) gauss {

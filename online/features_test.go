@@ -185,6 +185,47 @@ func TestFeaturesFitFallback(t *testing.T) {
 	}
 }
 
+// TestFeaturesFittedFlag: Fitted tells a Gaussian fit from the moments,
+// which the mapper uses to try failing fits less often (fitRetryEvery).
+func TestFeaturesFittedFlag(t *testing.T) {
+	r := rand.New(rand.NewPCG(8, 10))
+	noise := make([]float64, 100)
+	for i := range noise {
+		noise[i] = r.NormFloat64()
+	}
+	cases := []struct {
+		name        string
+		est         []float64
+		momentsOnly bool
+		want        bool
+	}{
+		{"a Gaussian field", gaussField(r, 10, 10, []float64{1}, 1, 4.5, 5, 2, 1.5, 0.3, 0.01), false, true},
+		{"the same, moments only", gaussField(r, 10, 10, []float64{1}, 1, 4.5, 5, 2, 1.5, 0.3, 0.01), true, false},
+		{"half a field off the frame (moments)", gaussField(r, 10, 10, []float64{1}, 1, -2.5, 5, 2, 2, 0, 0.01), false, false},
+	}
+	f, err := NewFeatureFinder(10, 10, 1, 0.01, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range cases {
+		f.MomentsOnly = c.momentsOnly
+		var got Features
+		if err := f.FeaturesTo(&got, c.est); err != nil {
+			t.Fatal(err)
+		}
+		if f.Fitted != c.want {
+			t.Errorf("%s: Fitted %v, want %v", c.name, f.Fitted, c.want)
+		}
+	}
+	// A failing unit is tried again on every 2nd, 4th, then every 8th turn
+	// (common practice for retries, no source: an exponential back-off).
+	for misses, want := range []int{1, 2, 4, 8, 8, 8} {
+		if got := fitRetryEvery(misses); got != want {
+			t.Errorf("fitRetryEvery(%d) = %d, want %d", misses, got, want)
+		}
+	}
+}
+
 func TestFeaturesSeparability(t *testing.T) {
 	// A product of a spatial map and a temporal profile has rank 1: index 1.
 	r := rand.New(rand.NewPCG(1, 1))

@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"math"
 	"strconv"
+	"unsafe"
 )
 
 // Float is a float64 that encodes NaN and ±Inf as JSON null, so that one
@@ -35,6 +36,24 @@ func (f *Float) UnmarshalJSON(b []byte) error {
 
 // Floats is a slice of Float for maps and profiles.
 type Floats []Float
+
+// newFloatArrays returns k new arrays of n zeros each, as Floats and as
+// []float64 over the same memory (Float is a float64), so that an update
+// computes each unit's estimates where the snapshot keeps them instead of
+// copying them there. The k arrays share one allocation.
+func newFloatArrays(k, n int) ([]Floats, [][]float64) {
+	all := make(Floats, k*n)
+	fs, vs := make([]Floats, k), make([][]float64, k)
+	for i := range k {
+		fs[i] = all[i*n : (i+1)*n : (i+1)*n]
+		if n > 0 {
+			vs[i] = unsafe.Slice((*float64)(unsafe.Pointer(&fs[i][0])), n)
+		} else {
+			vs[i] = []float64{}
+		}
+	}
+	return fs, vs
+}
 
 // FloatsOf copies a []float64 into Floats.
 func FloatsOf(v []float64) Floats {

@@ -338,22 +338,42 @@ func (p *priorProblem) kernelRoot(axis, n int, delta float64) error {
 func (p *priorProblem) kronRows(a []float64) {
 	k, w := p.k, p.win
 	buf := p.kronBuf()
-	mul := func(n int, root []float64, rows, cols int, src, dst []float64) {
-		clear(dst[:rows*cols])
-		p.buf.MulAdd(n, cols, n, 1, root, n, src, cols, dst, cols)
-	}
 	// x: blocks of NX consecutive rows.
 	for b := 0; b < k; b += w.NX {
-		mul(w.NX, p.root[0], w.NX, k, a[b*k:(b+w.NX)*k], buf[b*k:(b+w.NX)*k])
+		kronBlock(w.NX, p.root[0], k, a[b*k:(b+w.NX)*k], buf[b*k:(b+w.NX)*k])
 	}
 	// y: per lag, NY rows of NX·k values.
 	plane := w.NX * w.NY * k
 	for t := range w.NT {
-		mul(w.NY, p.root[1], w.NY, w.NX*k, buf[t*plane:(t+1)*plane], a[t*plane:(t+1)*plane])
+		kronBlock(w.NY, p.root[1], w.NX*k, buf[t*plane:(t+1)*plane], a[t*plane:(t+1)*plane])
 	}
 	// t: NT rows of NX·NY·k values.
-	mul(w.NT, p.root[2], w.NT, plane, a, buf)
+	kronBlock(w.NT, p.root[2], plane, a, buf)
 	copy(a, buf)
+}
+
+// kronBlock writes root·src into dst, src and dst being n rows of cols
+// values and root n×n: every row of dst is a combination of the n rows of
+// src, added four at a time by fastmat.AddScaled4. The roots are small (a
+// window's side), so a general matrix product would spend its time packing
+// src rather than multiplying.
+func kronBlock(n int, root []float64, cols int, src, dst []float64) {
+	var a [4]float64
+	var rows [4][]float64
+	for i := range n {
+		out := dst[i*cols : (i+1)*cols]
+		clear(out)
+		j := 0
+		for ; j+4 <= n; j += 4 {
+			for q := range 4 {
+				a[q], rows[q] = root[i*n+j+q], src[(j+q)*cols:(j+q+1)*cols]
+			}
+			fastmat.AddScaled4(out, &a, &rows)
+		}
+		for ; j < n; j++ {
+			fastmat.AddScaled(out, root[i*n+j], src[j*cols:(j+1)*cols])
+		}
+	}
 }
 
 // kronBuf is a second k×k scratch for kronRows.

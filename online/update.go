@@ -20,6 +20,8 @@ type ridgeCommon struct {
 
 // scratch is one worker's buffers for per-unit statistics.
 type scratch struct {
+	// w, sta and z are set by unitDetail to the arrays of the unit's
+	// snapshot; the others are reused from unit to unit.
 	w, wa, ha, hb, sta, cross, z []float64
 	white                        *WhiteTest
 	features                     *FeatureFinder
@@ -28,8 +30,7 @@ type scratch struct {
 func (m *Mapper) newScratch() *scratch {
 	d := m.dim
 	s := &scratch{
-		w: make([]float64, d), wa: make([]float64, d), ha: make([]float64, d), hb: make([]float64, d),
-		sta: make([]float64, d), cross: make([]float64, d), z: make([]float64, d),
+		wa: make([]float64, d), ha: make([]float64, d), hb: make([]float64, d), cross: make([]float64, d),
 		white: NewWhiteTest(m.pixels, m.cfg.Lags),
 	}
 	// The config was checked by NewMapper, so the finder cannot fail.
@@ -114,6 +115,11 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		Shape:       [3]int{cfg.Lags, cfg.Height, cfg.Width},
 		FramePeriod: Float(cfg.FramePeriod),
 	}
+	// The ridge, STA and z arrays of the snapshot are the scratch of this
+	// unit's computation (no copies).
+	arrays, views := newFloatArrays(3, m.dim)
+	d.Ridge, d.STA, d.Z = arrays[0], arrays[1], arrays[2]
+	s.w, s.sta, s.z = views[0], views[1], views[2]
 	d.ID = m.ids[u]
 	d.Spikes = m.received[u]
 	d.Flagged = m.flagged[u]
@@ -199,10 +205,18 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	m.checkDrift(d, u, significant, lo, hi, sh, s)
 
 	// The shape (centre, extent, separable profiles) is recomputed on the
-	// unit's turn or when its significance changed, else kept.
+	// unit's turn or when its significance changed, else kept. A unit whose
+	// Gaussian fits keep failing (a field no Gaussian describes, a noisy
+	// one) tries again only on every 2nd, 4th, then 8th turn, its moments
+	// shown in between: a failed fit runs all its steps, the costliest
+	// per-unit work of an update.
 	fit := &m.fits[u]
 	keep := fit.ok && !m.refit[u] && fit.significant == significant
 	gauss := significant && m.refit[u]
+	if gauss {
+		fit.turns++
+		gauss = fit.turns%fitRetryEvery(fit.misses) == 0
+	}
 	s.features.MomentsOnly = !gauss
 	s.features.KeepShape = keep
 	s.features.Warm = nil
@@ -213,7 +227,14 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	if keep {
 		fit.restore(&d.Features)
 	} else {
-		fit.save(&d.Features, significant, gauss)
+		misses := 0
+		switch {
+		case gauss && !s.features.Fitted:
+			misses = fit.misses + 1
+		case !gauss && significant:
+			misses = fit.misses // skipped: the count stands
+		}
+		fit.save(&d.Features, significant, s.features.Fitted, misses)
 	}
 	d.PeakLag = d.Features.PeakLag
 	d.LatencyMS = d.Features.LatencyMS
@@ -233,9 +254,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 			d.ETA = Float(eta)
 		}
 	}
-	d.STA = FloatsOf(s.sta)
-	d.Ridge = FloatsOf(s.w)
-	d.Z = FloatsOf(s.z)
+	s.w, s.sta, s.z = nil, nil, nil // the snapshot's now, not to be written again
 	return d
 }
 
@@ -294,20 +313,30 @@ func (m *Mapper) planRefits(n int) {
 
 // shapeFit is a unit's last shape (Gaussian fit or moments) and separable
 // approximation, shown until the next refresh; significant tells whether
-// the unit was significant then, gauss whether the shape is a fit (which a
-// later fit starts from). Spatial and Temporal are shared with earlier
-// snapshots, which never write them.
+// the unit was significant then, gauss whether the shape is a Gaussian fit
+// (which a later fit starts from). turns counts the unit's refresh turns
+// while significant, misses its Gaussian fits that failed in a row.
+// Spatial and Temporal are shared with earlier snapshots, which never
+// write them.
 type shapeFit struct {
 	ok, significant, gauss                    bool
+	turns, misses                             int
 	cx, cy, sx, sy, angle, cxd, cyd, sxd, syd Float
 	separability                              Float
 	spatial, temporal                         Floats
 }
 
-func (f *shapeFit) save(ft *Features, significant, gauss bool) {
-	*f = shapeFit{true, significant, gauss, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
+func (f *shapeFit) save(ft *Features, significant, gauss bool, misses int) {
+	*f = shapeFit{true, significant, gauss, f.turns, misses, ft.CentreX, ft.CentreY, ft.SigmaX, ft.SigmaY, ft.Angle,
 		ft.CentreXDeg, ft.CentreYDeg, ft.SigmaXDeg, ft.SigmaYDeg,
 		ft.Separability, ft.Spatial, ft.Temporal}
+}
+
+// fitRetryEvery is how many refresh turns apart a unit with misses failed
+// Gaussian fits in a row tries again: every turn, then every 2nd, 4th and
+// at most every 8th.
+func fitRetryEvery(misses int) int {
+	return 1 << min(misses, 3)
 }
 
 func (f *shapeFit) restore(ft *Features) {
