@@ -37,6 +37,30 @@ func (f *Float) UnmarshalJSON(b []byte) error {
 // Floats is a slice of Float for maps and profiles.
 type Floats []Float
 
+// MarshalJSON encodes the whole array at once, as the elements would be one
+// by one (null for a nil slice and for non-finite values): a snapshot holds
+// millions of floats, and a method call per element cost most of its
+// encoding.
+func (v Floats) MarshalJSON() ([]byte, error) {
+	if v == nil {
+		return []byte("null"), nil
+	}
+	b := make([]byte, 0, 2+len(v)*12)
+	b = append(b, '[')
+	for i, f := range v {
+		if i > 0 {
+			b = append(b, ',')
+		}
+		x := float64(f)
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			b = append(b, "null"...)
+			continue
+		}
+		b = strconv.AppendFloat(b, x, 'g', -1, 64)
+	}
+	return append(b, ']'), nil
+}
+
 // newFloatArrays returns k new arrays of n zeros each, as Floats and as
 // []float64 over the same memory (Float is a float64), so that an update
 // computes each unit's estimates where the snapshot keeps them instead of

@@ -9,8 +9,11 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime"
 	"runtime/debug"
 	"strings"
+	"sync"
+	"sync/atomic"
 	"time"
 
 	"livefield/display"
@@ -148,13 +151,6 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 	if err := os.MkdirAll(filepath.Join(dir, "units"), 0o755); err != nil {
 		return out, fmt.Errorf("replay: %w", err)
 	}
-	write := func(rel string, b []byte) error {
-		if err := os.WriteFile(filepath.Join(dir, rel), b, 0o644); err != nil {
-			return fmt.Errorf("replay: %w", err)
-		}
-		out.Files = append(out.Files, rel)
-		return nil
-	}
 	var fits map[string]online.PoissonFit
 	var fails map[string]error
 	if col != nil {
@@ -167,78 +163,131 @@ func Export(ctx context.Context, r *session.Reader, dir string, opt ExportOption
 		fits, fails, out.Poisson = refinePoisson(col, final, finalBlock, opt)
 		col.store = nil // the bins are no longer needed
 	}
+	// The units' files are encoded and written on all cores, the contact
+	// sheet and the summary beside them; the list of files keeps the units'
+	// order.
+	units := make([]writtenUnit, len(final.Units))
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range max(runtime.GOMAXPROCS(0), 1) {
+		wg.Go(func() {
+			var buf bytes.Buffer
+			for {
+				i := int(next.Add(1)) - 1
+				if i >= len(units) {
+					return
+				}
+				units[i] = writeUnit(dir, final, final.Units[i].ID, fits, fails, &buf)
+			}
+		})
+	}
+	var whole writtenUnit
+	wg.Go(func() { whole = writeWhole(dir, final) })
+	wg.Wait()
+	for _, w := range append(units, whole) {
+		out.Files = append(out.Files, w.files...)
+		if w.err != nil {
+			return out, w.err
+		}
+		if w.id != "" {
+			out.Units = append(out.Units, w.id)
+		}
+	}
+	return out, nil
+}
+
+// writtenUnit is what writeUnit wrote: the files (relative to the export
+// directory), the unit's ID ("" when it has no detail) or the error that
+// stopped it.
+type writtenUnit struct {
+	files []string
+	id    string
+	err   error
+}
+
+func (w *writtenUnit) write(dir, rel string, b []byte) error {
+	if err := os.WriteFile(filepath.Join(dir, rel), b, 0o644); err != nil {
+		w.err = fmt.Errorf("replay: %w", err)
+		return w.err
+	}
+	w.files = append(w.files, rel)
+	return nil
+}
+
+// writeUnit writes one unit's arrays as NPY and its summary as JSON; buf
+// is the caller's scratch.
+func writeUnit(dir string, final *online.Snapshot, id string, fits map[string]online.PoissonFit, fails map[string]error, buf *bytes.Buffer) (w writtenUnit) {
+	d, ok := final.Detail(id)
+	if !ok {
+		return w
+	}
+	name := "units/" + FileName(id)
+	uf := UnitFile{
+		UnitSummary: d.UnitSummary, Shape: d.Shape, FramePeriod: d.FramePeriod,
+		Intercept: d.Intercept, Features: d.Features,
+		Ridge: name + ".npy", STA: name + ".sta.npy",
+		PriorHyper: d.PriorHyper, PriorLogEvidence: d.PriorLogEvidence, PriorBins: d.PriorBins,
+		PriorReliability: d.PriorReliability, PriorWindow: d.PriorWindow,
+	}
+	type array struct {
+		rel string
+		v   online.Floats
+	}
+	arrays := []array{{uf.Ridge, d.Ridge}, {uf.STA, d.STA}}
+	if d.Prior != nil {
+		uf.Prior = name + ".prior.npy"
+		arrays = append(arrays, array{uf.Prior, d.Prior})
+	}
+	if fit, ok := fits[id]; ok {
+		uf.PoissonSummary = &PoissonSummary{
+			PoissonFile: name + ".poisson.npy", PoissonLogPosterior: online.Float(fit.LogPosterior),
+			PoissonIterations: fit.Iterations, PoissonConverged: fit.Converged, PoissonIntercept: online.Float(fit.Intercept),
+		}
+		arrays = append(arrays, array{uf.PoissonFile, online.FloatsOf(fit.Weights)})
+	} else if err, ok := fails[id]; ok {
+		nan := online.Float(math.NaN())
+		uf.PoissonSummary = &PoissonSummary{PoissonError: err.Error(), PoissonLogPosterior: nan, PoissonIntercept: nan}
+	}
+	shape := d.Shape[:]
+	for _, a := range arrays {
+		buf.Reset()
+		if err := npy.Write(buf, shape, floats64(a.v)); err != nil {
+			w.err = fmt.Errorf("replay: unit %q: %w", id, err)
+			return w
+		}
+		if w.write(dir, a.rel, buf.Bytes()) != nil {
+			return w
+		}
+	}
+	b, err := json.MarshalIndent(uf, "", "  ")
+	if err != nil {
+		w.err = fmt.Errorf("replay: unit %q: %w", id, err)
+		return w
+	}
+	if w.write(dir, name+".json", append(b, '\n')) != nil {
+		return w
+	}
+	w.id = id
+	return w
+}
+
+// writeWhole writes the contact sheet and the block's summary.
+func writeWhole(dir string, final *online.Snapshot) (w writtenUnit) {
 	var buf bytes.Buffer
-	for _, u := range final.Units {
-		d, ok := final.Detail(u.ID)
-		if !ok {
-			continue
-		}
-		name := "units/" + FileName(u.ID)
-		uf := UnitFile{
-			UnitSummary: d.UnitSummary, Shape: d.Shape, FramePeriod: d.FramePeriod,
-			Intercept: d.Intercept, Features: d.Features,
-			Ridge: name + ".npy", STA: name + ".sta.npy",
-			PriorHyper: d.PriorHyper, PriorLogEvidence: d.PriorLogEvidence, PriorBins: d.PriorBins,
-			PriorReliability: d.PriorReliability, PriorWindow: d.PriorWindow,
-		}
-		arrays := []struct {
-			rel string
-			v   online.Floats
-		}{{uf.Ridge, d.Ridge}, {uf.STA, d.STA}}
-		if d.Prior != nil {
-			uf.Prior = name + ".prior.npy"
-			arrays = append(arrays, struct {
-				rel string
-				v   online.Floats
-			}{uf.Prior, d.Prior})
-		}
-		if fit, ok := fits[u.ID]; ok {
-			uf.PoissonSummary = &PoissonSummary{
-				PoissonFile: name + ".poisson.npy", PoissonLogPosterior: online.Float(fit.LogPosterior),
-				PoissonIterations: fit.Iterations, PoissonConverged: fit.Converged, PoissonIntercept: online.Float(fit.Intercept),
-			}
-			arrays = append(arrays, struct {
-				rel string
-				v   online.Floats
-			}{uf.PoissonFile, online.FloatsOf(fit.Weights)})
-		} else if err, ok := fails[u.ID]; ok {
-			nan := online.Float(math.NaN())
-			uf.PoissonSummary = &PoissonSummary{PoissonError: err.Error(), PoissonLogPosterior: nan, PoissonIntercept: nan}
-		}
-		shape := d.Shape[:]
-		for _, a := range arrays {
-			buf.Reset()
-			if err := npy.Write(&buf, shape, floats64(a.v)); err != nil {
-				return out, fmt.Errorf("replay: unit %q: %w", u.ID, err)
-			}
-			if err := write(a.rel, buf.Bytes()); err != nil {
-				return out, err
-			}
-		}
-		b, err := json.MarshalIndent(uf, "", "  ")
-		if err != nil {
-			return out, fmt.Errorf("replay: unit %q: %w", u.ID, err)
-		}
-		if err := write(name+".json", append(b, '\n')); err != nil {
-			return out, err
-		}
-		out.Units = append(out.Units, u.ID)
-	}
-	buf.Reset()
 	if err := display.RenderOverview(&buf, final); err != nil {
-		return out, fmt.Errorf("replay: contact sheet: %w", err)
+		w.err = fmt.Errorf("replay: contact sheet: %w", err)
+		return w
 	}
-	if err := write("contact.png", buf.Bytes()); err != nil {
-		return out, err
+	if w.write(dir, "contact.png", buf.Bytes()) != nil {
+		return w
 	}
 	b, err := json.MarshalIndent(final, "", "  ")
 	if err != nil {
-		return out, fmt.Errorf("replay: summary: %w", err)
+		w.err = fmt.Errorf("replay: summary: %w", err)
+		return w
 	}
-	if err := write("summary.json", append(b, '\n')); err != nil {
-		return out, err
-	}
-	return out, nil
+	w.write(dir, "summary.json", append(b, '\n'))
+	return w
 }
 
 func floats64(v online.Floats) []float64 {
