@@ -1,6 +1,7 @@
 package online
 
 import (
+	"livefield/online/internal/fastmat"
 	"math"
 	"runtime"
 	"sync"
@@ -581,16 +582,31 @@ func (m *Mapper) priorJob(details []*UnitDetail) *priorJob {
 		}
 		return yy - sum*sum/float64(n)
 	}
-	for _, u := range units {
+	halves := make([]float64, 2*m.dim*len(units)) // one allocation for all
+	for i, u := range units {
 		d := details[u]
+		h := halves[2*i*m.dim : 2*(i+1)*m.dim]
 		in := priorInput{unit: u, emerging: d.Status == Emerging, spikes: m.spikes[u], sta: d.STA, ridge: d.Ridge,
 			yy:      centred(m.yy[u], m.spikes[u], m.used),
 			spikesA: m.spikesA[u], spikesB: m.spikes[u] - m.spikesA[u],
-			halfA: make([]float64, m.dim), halfB: make([]float64, m.dim)}
+			halfA: h[:m.dim:m.dim], halfB: h[m.dim:]}
 		in.yyA = centred(m.yyA[u], in.spikesA, m.usedA)
 		in.yyB = centred(m.yy[u]-m.yyA[u], in.spikesB, usedB)
-		m.sta.HalvesTo(in.halfA, in.halfB, u)
 		job.units = append(job.units, in)
 	}
+	// The split-half STAs on all cores (reads of the STA after the
+	// update's CacheMeans may run concurrently).
+	fastmat.Each(len(job.units), halvesTask{m.sta, job.units})
 	return job
+}
+
+// halvesTask writes the split-half STAs of the job's units.
+type halvesTask struct {
+	sta   *STA
+	units []priorInput
+}
+
+func (t halvesTask) Do(i, _ int) {
+	in := &t.units[i]
+	t.sta.HalvesTo(in.halfA, in.halfB, in.unit)
 }
