@@ -6,6 +6,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"os"
+	"strconv"
 	"testing"
 )
 
@@ -379,4 +380,67 @@ func ExampleFeaturesOf() {
 	// peak lag 2 (33.3 ms), polarity +1
 	// centre (4.00, 3.00) px, σ 1.50 px = 1.51 deg
 	// separability 1.000
+}
+
+// TestExportFitsEveryShape: a mapper in export mode (PriorInlineAll, one
+// update at the end) gives every unit with a field a Gaussian fit in that
+// one update; live, only the units whose turn it is are fitted
+// (planRefits). Units are simulated LNP cells with Gaussian fields on
+// binary noise (the linear–nonlinear–Poisson model, common practice, no
+// source).
+func TestExportFitsEveryShape(t *testing.T) {
+	const w, h, lags, units, bins = 10, 10, 3, 40, 20000
+	for _, c := range []struct {
+		name   string
+		inline int
+		want   int
+	}{{"export", PriorInlineAll, units}, {"live", 0, fitMin}} {
+		t.Run(c.name, func(t *testing.T) {
+			m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: true, PriorInline: c.inline})
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer m.Close()
+			r := rand.New(rand.NewPCG(21, 22))
+			fields := make([][]float64, units)
+			for u := range units {
+				m.Unit("u" + strconv.Itoa(u))
+				cx, cy := 2+6*r.Float64(), 2+6*r.Float64()
+				f := make([]float64, w*h)
+				for i := range f {
+					dx, dy := float64(i%w)-cx, float64(i/w)-cy
+					f[i] = 0.25 * math.Exp(-(dx*dx+dy*dy)/(2*1.5*1.5))
+				}
+				fields[u] = f
+			}
+			frame := make([]float64, w*h)
+			var counts []Count
+			for range bins {
+				for i := range frame {
+					frame[i] = float64(r.IntN(2)*2 - 1)
+				}
+				counts = counts[:0]
+				for u, f := range fields {
+					var drive float64
+					for i, v := range frame {
+						drive += f[i] * v
+					}
+					if n := poisson(r, 0.1*math.Exp(drive)); n > 0 {
+						counts = append(counts, Count{Unit: u, N: n})
+					}
+				}
+				m.AddBin(frame, counts)
+			}
+			m.Update()
+			fitted := 0
+			for u := range units {
+				if m.fits[u].gauss {
+					fitted++
+				}
+			}
+			if fitted != c.want {
+				t.Errorf("%d of %d units have a Gaussian fit after one update, want %d", fitted, units, c.want)
+			}
+		})
+	}
 }

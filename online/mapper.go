@@ -39,7 +39,8 @@ type Config struct {
 	// PriorInline > 0 runs that many units' smooth-local fits inside each
 	// Update instead of on a background worker, so that the estimates are
 	// reproducible (tests, replays); PriorInlineAll fits every significant
-	// unit in every Update (exports); 0 fits in the background.
+	// unit in every Update, and refreshes every unit's shape features
+	// (exports, which update once); 0 fits in the background.
 	PriorInline int
 	// PriorWorkers is the number of goroutines of the background prior
 	// fits, each with its share of the units (default: GOMAXPROCS).

@@ -173,8 +173,18 @@ func (t *WhiteTest) Unit(z []float64, s *STA, u int, variance float64) (Signific
 			t.pixels, t.lags, s.Dim(), s.Lags())
 	}
 	s.CrossTo(t.cross, u)
+	return t.UnitCross(z, t.cross, s, u, variance)
+}
+
+// UnitCross is Unit for a caller that has unit u's centred
+// cross-correlation at hand (STA.CrossTo).
+func (t *WhiteTest) UnitCross(z, cross []float64, s *STA, u int, variance float64) (Significance, error) {
+	if s.Dim() != len(t.cross) || s.Lags() != t.lags {
+		return Significance{}, fmt.Errorf("online: white test of %d×%d, STA of dimension %d with %d lags",
+			t.pixels, t.lags, s.Dim(), s.Lags())
+	}
 	s.AutocovTo(t.autocov, u)
-	return t.TestTo(z, t.cross, t.autocov, variance)
+	return t.TestTo(z, cross, t.autocov, variance)
 }
 
 // TestTo tests a centred cross-correlation cross (length D, lag-major) given

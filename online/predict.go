@@ -39,12 +39,17 @@ func predictiveR(a, b, ca, cb []float64, gaa, gbb float64, na, nb int64, va, vb 
 // unitPredictiveR computes unit u's PredictiveR from its half estimates
 // a and b (ridge half fits, or STA halves on white noise), using scratch
 // ca and cb for the half cross-correlations.
-func (m *Mapper) unitPredictiveR(u int, a, b, ca, cb []float64) float64 {
+func (m *Mapper) unitPredictiveR(u int, a, b, ca, cb []float64, staHalves bool) float64 {
 	na, nb := m.sta.HalfBins()
 	if na < 2 || nb < 2 {
 		return math.NaN()
 	}
-	m.sta.HalvesTo(ca, cb, u)
+	if staHalves { // a and b are the STA halves already
+		copy(ca, a)
+		copy(cb, b)
+	} else {
+		m.sta.HalvesTo(ca, cb, u)
+	}
 	ya, yb := m.sta.HalfSpikes(u)
 	for i := range ca {
 		ca[i] *= ya

@@ -23,6 +23,7 @@ type scratch struct {
 	// w, sta and z are set by unitDetail to the arrays of the unit's
 	// snapshot; the others are reused from unit to unit.
 	w, wa, ha, hb, sta, cross, z []float64
+	pa, pb                       []float64 // the predictive check's scratch
 	white                        *WhiteTest
 	features                     *FeatureFinder
 }
@@ -31,6 +32,7 @@ func (m *Mapper) newScratch() *scratch {
 	d := m.dim
 	s := &scratch{
 		wa: make([]float64, d), ha: make([]float64, d), hb: make([]float64, d), cross: make([]float64, d),
+		pa: make([]float64, d), pb: make([]float64, d),
 		white: NewWhiteTest(m.pixels, m.cfg.Lags),
 	}
 	// The config was checked by NewMapper, so the finder cannot fail.
@@ -162,7 +164,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		}
 	}
 	if cfg.White {
-		sig, err = s.white.Unit(nil, m.sta, u, cfg.PixelVariance)
+		sig, err = s.white.UnitCross(nil, s.cross, m.sta, u, cfg.PixelVariance)
 		corr = SpikeCorrelation{Mean: 1, Var: 1} // the white test whitens exactly
 	} else {
 		sig, err = PosteriorTestCorrected(s.w, s.cross, rss, m.used, sh.t1, sh.t2, corr)
@@ -200,8 +202,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		// as before (predict.go).
 		m.sta.HalvesTo(s.ha, s.hb, u)
 	}
-	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.sta, s.cross))
-	m.sta.STATo(s.sta, u) // the scratch is reused below
+	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.pa, s.pb, cfg.White))
 	m.checkDrift(d, u, significant, lo, hi, sh, s)
 
 	// The shape (centre, extent, separable profiles) is recomputed on the
@@ -305,6 +306,9 @@ func (m *Mapper) planRefits(n int) {
 		return
 	}
 	k := min(n, max(fitMin, (n+fitCycle-1)/fitCycle))
+	if m.cfg.PriorInline == PriorInlineAll {
+		k = n // an export's single update: every unit's shape is fitted
+	}
 	for i := range k {
 		m.refit[(m.fitTurn+i)%n] = true
 	}
