@@ -269,11 +269,20 @@ func (l *intake) onSpikes(m message) error {
 	sh := l.c.opt.Shard
 	clear(l.fresh)
 	have := len(l.ids)
+	// Each spike's unit is looked up once: l.units holds its index, or
+	// −1 for a unit new to the block, −2 for another shard's.
+	l.units = l.units[:0]
 	for _, id := range s.Unit {
-		if _, ok := l.fresh[id]; ok {
+		if u, ok := l.ids[id]; ok {
+			l.units = append(l.units, u)
 			continue
 		}
-		if _, ok := l.ids[id]; ok || !sh.Has(id) {
+		if !sh.Has(id) {
+			l.units = append(l.units, -2)
+			continue
+		}
+		l.units = append(l.units, -1)
+		if _, ok := l.fresh[id]; ok {
 			continue
 		}
 		l.fresh[id] = 0
@@ -282,29 +291,35 @@ func (l *intake) onSpikes(m message) error {
 		}
 	}
 	sharded := sh.Count > 1
-	l.units, l.times = l.units[:0], l.times[:0]
+	l.times = l.times[:0]
 	var other uint64
+	kept := 0
 	for i, id := range s.Unit {
-		u, ok := l.ids[id]
-		if !ok {
-			if sharded && !sh.Has(id) {
-				other++
-				continue
-			}
-			// The mapper numbers units in the order it meets them, as here.
-			u = len(l.ids)
-			l.ids[id] = u
-			l.q.push(event{kind: evUnit, at: m.at, id: id}, nil)
-			if l.stc[id] {
-				// Asked for in an earlier block, or before the unit fired.
-				l.q.push(event{kind: evFlag, at: m.at, id: id, on: true}, nil)
+		u := l.units[i]
+		switch u {
+		case -2:
+			other++
+			continue
+		case -1:
+			var ok bool
+			if u, ok = l.ids[id]; !ok { // not met earlier in this message
+				// The mapper numbers units in the order it meets them, as here.
+				u = len(l.ids)
+				l.ids[id] = u
+				l.q.push(event{kind: evUnit, at: m.at, id: id}, nil)
+				if l.stc[id] {
+					// Asked for in an earlier block, or before the unit fired.
+					l.q.push(event{kind: evFlag, at: m.at, id: id, on: true}, nil)
+				}
 			}
 		}
-		l.units = append(l.units, u)
+		l.units[kept] = u // kept ≤ i: the index list is compacted in place
+		kept++
 		if sharded {
 			l.times = append(l.times, s.T[i])
 		}
 	}
+	l.units = l.units[:kept]
 	ts := s.T
 	if sharded {
 		ts = l.times
