@@ -97,7 +97,7 @@ func (c Config) withDefaults() (Config, error) {
 		c.Prior.Evaluations = priorLiveEvaluations
 	}
 	if c.PriorWorkers <= 0 {
-		c.PriorWorkers = max(1, runtime.GOMAXPROCS(0)-1)
+		c.PriorWorkers = max(1, runtime.GOMAXPROCS(0))
 	}
 	if c.Prior.FirstEvaluations == 0 {
 		c.Prior.FirstEvaluations = priorLiveFirst

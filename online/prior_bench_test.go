@@ -2,7 +2,11 @@ package online
 
 import (
 	"math/rand/v2"
+	"os"
+	"slices"
+	"strconv"
 	"testing"
+	"time"
 )
 
 // BenchmarkPriorEvaluate is one evidence evaluation (posterior mean and
@@ -199,5 +203,78 @@ func BenchmarkPriorRound(b *testing.B) {
 			b.ReportMetric(float64(formed-formed0)/float64(b.N*len(units)), "M-formed/unit")
 			b.ReportMetric(perUnit*384/float64(cfg.PriorWorkers), "s-round-384")
 		})
+	}
+}
+
+// BenchmarkPriorLiveRefresh runs the reference workload (16×16 binary noise
+// at 60 Hz, 12 lags, 384 units at 10 spikes/s) with the background prior
+// fits on their default workers: first LIVEFIELD_REFRESH_START seconds of
+// data (default 120) as fast as they go, one update per second of data,
+// then LIVEFIELD_REFRESH_SECONDS (default 90) paced at real time, one
+// update per wall-clock second, as live. It measures how often each unit's
+// smooth-local fit is refreshed in the paced part: the wall-clock gap
+// between two updates that bring a newer fit of the unit (its PriorBins
+// changed), counted after its first 30 s (the workers catch up with the
+// fast part first). refresh-median-s, refresh-p90-s and refresh-max-s
+// summarise the gaps over all units; stale-units counts the fitted units
+// not refitted in the measured time. Run it by hand, -benchtime 1x.
+func BenchmarkPriorLiveRefresh(b *testing.B) {
+	seconds, warm, fast := 90, 30, 120
+	if s, err := strconv.Atoi(os.Getenv("LIVEFIELD_REFRESH_SECONDS")); err == nil && s > warm {
+		seconds = s
+	}
+	if s, err := strconv.Atoi(os.Getenv("LIVEFIELD_REFRESH_START")); err == nil && s >= 0 {
+		fast = s
+	}
+	for range b.N {
+		bw := newBenchWorkload(b, 16, 16, 12, 384, 10)
+		for range fast {
+			bw.second()
+			bw.m.Update()
+		}
+		type seen struct {
+			bins int64
+			at   time.Time
+		}
+		last := map[string]seen{}
+		var gaps []float64
+		refreshedLate := map[string]bool{}
+		start := time.Now()
+		for s := range seconds {
+			bw.second()
+			snap := bw.m.Update()
+			now := time.Now()
+			for _, u := range snap.Units {
+				d, ok := snap.Detail(u.ID)
+				if !ok || d.PriorHyper == nil {
+					continue
+				}
+				prev, had := last[u.ID]
+				if had && prev.bins == d.PriorBins {
+					continue
+				}
+				if had && s >= warm {
+					gaps = append(gaps, now.Sub(prev.at).Seconds())
+					refreshedLate[u.ID] = true
+				}
+				last[u.ID] = seen{d.PriorBins, now}
+			}
+			time.Sleep(time.Until(start.Add(time.Duration(s+1) * time.Second)))
+		}
+		stale := 0
+		for id := range last {
+			if !refreshedLate[id] {
+				stale++
+			}
+		}
+		if len(gaps) == 0 {
+			b.Fatalf("no unit's fit was refreshed after the first %d s (%d units fitted)", warm, len(last))
+		}
+		slices.Sort(gaps)
+		b.ReportMetric(gaps[len(gaps)/2], "refresh-median-s")
+		b.ReportMetric(gaps[len(gaps)*9/10], "refresh-p90-s")
+		b.ReportMetric(gaps[len(gaps)-1], "refresh-max-s")
+		b.ReportMetric(float64(stale), "stale-units")
+		b.ReportMetric(float64(len(last)), "fitted-units")
 	}
 }
