@@ -363,15 +363,15 @@ func kronBlock(n int, root []float64, cols int, src, dst []float64) {
 	for i := range n {
 		out := dst[i*cols : (i+1)*cols]
 		clear(out)
-		j := 0
-		for ; j+4 <= n; j += 4 {
+		for j := 0; j < n; j += 4 {
 			for q := range 4 {
-				a[q], rows[q] = root[i*n+j+q], src[(j+q)*cols:(j+q+1)*cols]
+				// Past the last row: a zero coefficient on row 0.
+				a[q], rows[q] = 0, src[:cols]
+				if j+q < n {
+					a[q], rows[q] = root[i*n+j+q], src[(j+q)*cols:(j+q+1)*cols]
+				}
 			}
 			fastmat.AddScaled4(out, &a, &rows)
-		}
-		for ; j < n; j++ {
-			fastmat.AddScaled(out, root[i*n+j], src[j*cols:(j+1)*cols])
 		}
 	}
 }

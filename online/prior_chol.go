@@ -18,10 +18,12 @@ const cholBlock = 16
 // calling goroutine. tr is scratch of at least cholBlock·k values. It
 // reports false when a pivot is not positive.
 func cholesky(a []float64, k int, tr []float64, buf *fastmat.Buf) bool {
+	var coef [4]float64
+	var rows [4][]float64
 	for j0 := 0; j0 < k; j0 += cholBlock {
 		jb := min(cholBlock, k-j0)
-		// The panel: columns j0…j0+jb−1, rows j0…k−1; earlier panels are
-		// already subtracted by the trailing updates.
+		// The diagonal block of the panel (columns j0…j0+jb−1; earlier
+		// panels are already subtracted by the trailing updates).
 		for j := j0; j < j0+jb; j++ {
 			n := j - j0 // columns of the panel left of j
 			rj := a[j*k+j0 : j*k+j+1]
@@ -32,35 +34,58 @@ func cholesky(a []float64, k int, tr []float64, buf *fastmat.Buf) bool {
 			if !(d > 0) {
 				return false
 			}
-			ljj := math.Sqrt(d)
-			rj[n] = ljj
-			inv := 1 / ljj
-			lj := rj[:n]
-			for i := j + 1; i < k; i++ {
+			rj[n] = math.Sqrt(d)
+			for i := j + 1; i < j0+jb; i++ {
 				ri := a[i*k+j0 : i*k+j+1]
-				s := ri[n]
+				x := ri[n]
 				for p, v := range ri[:n] {
-					s -= v * lj[p]
+					x -= v * rj[p]
 				}
-				ri[n] = s * inv
+				ri[n] = x / rj[n]
 			}
 		}
 		r := k - j0 - jb
 		if r == 0 {
 			break
 		}
-		// Trailing update: A22 −= L21·L21ᵀ, with L21 = rows j0+jb…, columns
-		// j0…j0+jb−1, and its transpose copied into tr (jb × r). Only the
-		// lower triangle is read later, so it is updated in strips of
-		// cholStrip rows, each up to its last column: about half the
-		// products of the full square.
+		// The rows below, L21 = A21·L11⁻ᵀ, solved on the transpose (tr, jb
+		// rows of r values) so that each step is a vector operation over
+		// all r rows: column n is (A21's column n − Σ_{p<n} L_np·column
+		// p) / L_nn.
 		s := j0 + jb
-		for p := range jb {
-			row := tr[p*r : (p+1)*r]
-			for i := range r {
-				row[i] = a[(s+i)*k+j0+p]
+		for i := range r {
+			row := a[(s+i)*k+j0 : (s+i)*k+j0+jb]
+			for p, v := range row {
+				tr[p*r+i] = v
 			}
 		}
+		for n := range jb {
+			col := tr[n*r : (n+1)*r]
+			ln := a[(j0+n)*k+j0 : (j0+n)*k+j0+n+1]
+			for p := 0; p < n; p += 4 {
+				for q := range 4 {
+					coef[q], rows[q] = 0, tr[:r] // past the last: a zero coefficient
+					if p+q < n {
+						coef[q], rows[q] = -ln[p+q], tr[(p+q)*r:(p+q+1)*r]
+					}
+				}
+				fastmat.AddScaled4(col, &coef, &rows)
+			}
+			inv := 1 / ln[n]
+			for i := range col {
+				col[i] *= inv
+			}
+		}
+		for i := range r {
+			row := a[(s+i)*k+j0 : (s+i)*k+j0+jb]
+			for p := range row {
+				row[p] = tr[p*r+i]
+			}
+		}
+		// Trailing update: A22 −= L21·L21ᵀ, L21ᵀ being tr (jb × r). Only
+		// the lower triangle is read later, so it is updated in strips of
+		// cholStrip rows, each up to its last column: about half the
+		// products of the full square.
 		for i0 := 0; i0 < r; i0 += cholStrip {
 			i1 := min(i0+cholStrip, r)
 			buf.MulAdd(i1-i0, i1, jb, -1, a[(s+i0)*k+j0:], k, tr, r, a[(s+i0)*k+s:], k)
