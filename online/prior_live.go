@@ -318,7 +318,10 @@ func (w *priorWorker) collect(dst map[int]priorResult) {
 }
 
 func (w *priorWorker) loop(runner *priorRunner, wake chan struct{}) {
-	var done *priorJob // the last job this goroutine finished
+	// The last job this goroutine finished, by its epoch and sequence
+	// (not a pointer, which would keep its Gram view and split-half STAs
+	// alive after the slot moved on).
+	doneEpoch, doneSeq := int64(-1), int64(-1)
 	for {
 		select {
 		case <-w.stop:
@@ -333,8 +336,8 @@ func (w *priorWorker) loop(runner *priorRunner, wake chan struct{}) {
 			i = runner.pick(job)
 		}
 		if i < 0 {
-			if job != nil && job != done {
-				done = job
+			if job != nil && (job.epoch != doneEpoch || job.seq != doneSeq) {
+				doneEpoch, doneSeq = job.epoch, job.seq
 				w.mu.Lock()
 				if w.job == job {
 					w.idle++
