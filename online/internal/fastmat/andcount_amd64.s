@@ -1,0 +1,101 @@
+#include "textflag.h"
+
+// Population counts of the nibbles 0…15, in both 128-bit lanes.
+DATA nibbleCount<>+0(SB)/8, $0x0302020102010100
+DATA nibbleCount<>+8(SB)/8, $0x0403030203020201
+DATA nibbleCount<>+16(SB)/8, $0x0302020102010100
+DATA nibbleCount<>+24(SB)/8, $0x0403030203020201
+GLOBL nibbleCount<>(SB), RODATA|NOPTR, $32
+
+// func andCount8(n int, dst *uint32, x *uint64, stride int, mask *uint64, nw int, shift uint)
+// dst[i] += Σ_{w<nw} popcount(x[w·stride+i] & mask[w]) << shift for i < n,
+// n a positive multiple of 8, nw positive; AVX-512 F and VPOPCNTDQ.
+TEXT ·andCount8(SB), NOSPLIT, $0-56
+	MOVQ n+0(FP), DX
+	MOVQ dst+8(FP), DI
+	MOVQ x+16(FP), SI
+	MOVQ stride+24(FP), R8
+	SHLQ $3, R8
+	MOVQ mask+32(FP), R9
+	MOVQ nw+40(FP), R10
+	MOVQ shift+48(FP), AX
+	MOVQ AX, X15
+
+strings8:
+	VPXORQ Z0, Z0, Z0
+	MOVQ SI, R11
+	MOVQ R9, R12
+	MOVQ R10, R13
+
+words8:
+	VMOVDQU64 (R11), Z1
+	VPANDQ.BCST (R12), Z1, Z1
+	VPOPCNTQ Z1, Z1
+	VPADDQ Z1, Z0, Z0
+	ADDQ R8, R11
+	ADDQ $8, R12
+	DECQ R13
+	JNZ  words8
+
+	VPSLLQ X15, Z0, Z0
+	VPMOVQD Z0, Y1
+	VPADDD (DI), Y1, Y1
+	VMOVDQU Y1, (DI)
+	ADDQ $64, SI
+	ADDQ $32, DI
+	SUBQ $8, DX
+	JNZ  strings8
+	VZEROUPPER
+	RET
+
+// func andCount4(n int, dst *uint32, x *uint64, stride int, mask *uint64, nw int, shift uint)
+// The same for n a positive multiple of 4 and nw in 1…31; AVX2.
+TEXT ·andCount4(SB), NOSPLIT, $0-56
+	MOVQ n+0(FP), DX
+	MOVQ dst+8(FP), DI
+	MOVQ x+16(FP), SI
+	MOVQ stride+24(FP), R8
+	SHLQ $3, R8
+	MOVQ mask+32(FP), R9
+	MOVQ nw+40(FP), R10
+	MOVQ shift+48(FP), AX
+	MOVQ AX, X13
+	VMOVDQU nibbleCount<>(SB), Y14
+	MOVL $0x0f0f0f0f, AX
+	MOVD AX, X15
+	VPBROADCASTD X15, Y15
+	VPXOR Y12, Y12, Y12
+
+strings4:
+	VPXOR Y0, Y0, Y0
+	MOVQ SI, R11
+	MOVQ R9, R12
+	MOVQ R10, R13
+
+words4:
+	VPBROADCASTQ (R12), Y2
+	VPAND (R11), Y2, Y1
+	VPAND Y15, Y1, Y3
+	VPSRLW $4, Y1, Y1
+	VPAND Y15, Y1, Y1
+	VPSHUFB Y3, Y14, Y3
+	VPSHUFB Y1, Y14, Y1
+	VPADDB Y3, Y0, Y0
+	VPADDB Y1, Y0, Y0
+	ADDQ R8, R11
+	ADDQ $8, R12
+	DECQ R13
+	JNZ  words4
+
+	VPSADBW Y12, Y0, Y0
+	VPSLLQ X13, Y0, Y0
+	VPSHUFD $0x08, Y0, Y0
+	VPERMQ $0x08, Y0, Y0
+	VPADDD (DI), X0, X0
+	VMOVDQU X0, (DI)
+	ADDQ $32, SI
+	ADDQ $16, DI
+	SUBQ $4, DX
+	JNZ  strings4
+	VZEROUPPER
+	RET
