@@ -189,11 +189,11 @@ type staFold struct {
 	order []int32 // spike indices grouped by unit, in bin order within a unit
 	busy  []int32 // units with spikes in this batch, in unit order
 
-	bits         staBits
-	work         []staWorker // per fastmat worker
-	minPlaneBits int         // fewest bins of a bit plane counted by bits (0: staMinPlaneBits)
-	floatOnly    bool        // every batch by multiply-adds (tests compare the routes)
-	batches      [2]int64    // batches folded by multiply-adds [0] and by bits [1]
+	bits      staBits
+	work      []staWorker // per fastmat worker
+	minBins   int         // fewest bins with spikes of a unit's half counted by bits (0: staMinBins)
+	floatOnly bool        // every batch by multiply-adds (tests compare the routes)
+	batches   [2]int64    // batches folded by multiply-adds [0] and by bits [1]
 }
 
 func (f *staFold) run(s *STA) {
@@ -226,9 +226,6 @@ func (f *staFold) run(s *STA) {
 	f.bits.ok = false
 	if !f.floatOnly {
 		f.bits.prepare(s)
-	}
-	if f.minPlaneBits == 0 {
-		f.minPlaneBits = staMinPlaneBits
 	}
 	if f.work == nil {
 		f.work = make([]staWorker, fastmat.Workers())
@@ -308,9 +305,11 @@ func (s *STA) startBatch(x []float64) {
 	if s.batchFrames == nil {
 		s.batchFrames = make([]float64, (L-1+s.batchCap)*P)
 	}
+	s.fold.bits.startRows(s)
 	for r := range L - 1 {
 		l := L - 1 - r
 		copy(s.batchFrames[r*P:(r+1)*P], x[l*P:(l+1)*P])
+		s.fold.bits.addRow(r, x[l*P:(l+1)*P])
 	}
 }
 
@@ -357,6 +356,7 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 		}
 		row := (s.lags - 1 + s.batchN) * s.pixels
 		copy(s.batchFrames[row:row+s.pixels], x[:s.pixels])
+		s.fold.bits.addRow(s.lags-1+s.batchN, x[:s.pixels])
 	}
 	j := s.batchN // row of this bin in the batch
 	for _, c := range counts {

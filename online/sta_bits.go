@@ -34,8 +34,8 @@ import (
 // in the last place of Σ|c_k·x|, see TestSTABitRoute).
 //
 // Counts that are not integers, and a bin's count of 2^staPlanes or more,
-// take the float route, as do the bins of a sparse bit plane (fewer than
-// minPlaneBits bins: cheaper as multiply-adds) and whole batches with a
+// take the float route, as do the spikes of a unit's half with spikes in
+// fewer than minBins bins (cheaper as multiply-adds) and whole batches with a
 // third level or a non-finite value. The levels are found per batch; a
 // batch with other levels than those of the integer sums first drains them,
 // so a stimulus that changes its levels (a grey pause before the noise)
@@ -45,28 +45,37 @@ import (
 // counted by bits.
 const staPlanes = 8
 
-// staMinPlaneBits is the default of staFold.minPlaneBits: the fewest bins
-// of a bit plane for which counting the plane against all D lagged strings
-// is cheaper than a multiply-add pass per bin. With the Go loop a plane
-// costs about as much as 8 spikes on the float route at 256 bins; with
-// AVX-512 VPOPCNTQ about as much as 2.
-var staMinPlaneBits = func() int {
+// staMinBins is the default of staFold.minBins for lagged strings of
+// words words: the fewest bins with spikes of a unit's half for which one
+// pass of fastmat.AndCount over the D lagged strings (all bit planes at
+// once) costs less than a multiply-add pass per bin (BenchmarkSTAFold, at
+// 256 bins: a pass costs about as much as 6 spikes with AVX-512 VPOPCNTQ,
+// 12 with AVX2 and 32 in Go).
+func staMinBins(words int) int {
 	switch fastmat.AndCountClass() {
 	case 2:
-		return 2
+		return (3*words + 1) / 2
 	case 1:
-		return 4
+		return 3 * words
 	}
-	return 8
-}()
+	return 8 * words
+}
 
 // staBits is a batch's two-level description: its levels and the lagged
 // bit strings of its pixels.
 type staBits struct {
-	ok     bool     // every row of the batch is two-level and finite
-	lo, hi float64  // the levels (those of the integer sums)
-	words  int      // words per lagged string: ⌈bins/64⌉
-	raw    []uint64 // per pixel, bit r: row r of the batch is at hi
+	ok     bool    // every row of the batch is two-level and finite
+	lo, hi float64 // the levels (those of the integer sums)
+	words  int     // words per lagged string: ⌈bins/64⌉
+
+	// The rows as AddBin copies them: whether they are still two-level,
+	// how many levels they showed (0, 1, 2), which, and per pixel the rows
+	// at the second level (bit r of raw[p·stride:]).
+	rowsOK       bool
+	levels       int
+	rowLo, rowHi float64
+	stride       int
+	raw          []uint64
 	// lagged holds word w of the string of lag l and pixel p at
 	// lagged[w·D + l·P + p]: bit j is set when bin 64w+j's frame l bins
 	// earlier has pixel p at hi.
@@ -79,39 +88,77 @@ type staWorker struct {
 	planes []uint64     // [half][plane][word]: the bins' counts bit by bit
 }
 
-// prepare looks at the batch's rows: when they are two-level it agrees the
+// startRows begins the rows of a new batch.
+func (b *staBits) startRows(s *STA) {
+	if b.raw == nil {
+		b.stride = (s.lags - 1 + s.batchCap + 63) / 64
+		b.raw = make([]uint64, s.pixels*b.stride)
+		b.lagged = make([]uint64, s.dim*((s.batchCap+63)/64))
+	}
+	clear(b.raw)
+	b.rowsOK, b.levels = true, 0
+}
+
+// addRow looks at row r of the batch as AddBin copies it (while it is in
+// cache): it keeps the batch's levels, sets the row's bits at the second
+// level, and gives up on a third level or a non-finite value.
+func (b *staBits) addRow(r int, row []float64) {
+	if !b.rowsOK {
+		return
+	}
+	bit, w := uint64(1)<<(r&63), r>>6
+	for p, v := range row {
+		switch {
+		case b.levels > 0 && v == b.rowLo:
+			continue
+		case b.levels == 2 && v == b.rowHi:
+		case v-v != 0 || b.levels == 2: // NaN or ±Inf, or a third level
+			b.rowsOK = false
+			return
+		case b.levels == 0:
+			b.rowLo, b.levels = v, 1
+			continue
+		default:
+			b.rowHi, b.levels = v, 2
+		}
+		b.raw[p*b.stride+w] |= bit
+	}
+}
+
+// prepare ends the batch's rows: when they are two-level it agrees the
 // levels with the integer sums (draining them if they differ), builds the
 // lagged strings and sets ok.
 func (b *staBits) prepare(s *STA) {
 	P, L, N, D := s.pixels, s.lags, s.batchN, s.dim
 	rows := L - 1 + N
 	b.ok = false
-	frames := s.batchFrames[:rows*P]
-	lo, hi, ok := twoLevels(frames)
-	if !ok {
+	if !b.rowsOK || b.levels == 0 {
 		return
 	}
-	s.bitSums.agree(s, lo, hi)
-	b.lo, b.hi = s.bitSums.lo, s.bitSums.hi
-	if b.raw == nil {
-		b.raw = make([]uint64, P*((L-1+s.batchCap+63)/64))
-		b.lagged = make([]uint64, D*((s.batchCap+63)/64))
+	lo, hi := b.rowLo, b.rowLo
+	if b.levels == 2 {
+		hi = b.rowHi
 	}
+	sums := &s.bitSums
+	sums.agree(s, lo, hi)
+	b.lo, b.hi = sums.lo, sums.hi
 	rw := (rows + 63) / 64
-	raw := b.raw[:P*rw]
-	clear(raw)
-	if b.hi != b.lo {
-		for r := range rows {
-			bit, w := uint64(1)<<(r&63), r>>6
-			for p, v := range frames[r*P : (r+1)*P] {
-				if v == b.hi {
-					raw[p*rw+w] |= bit
+	if lo == b.hi && b.hi != b.lo {
+		// The row bits mark the batch's second level, which is the sums'
+		// lo: mark the sums' hi instead.
+		for p := range P {
+			src := b.raw[p*b.stride : p*b.stride+rw]
+			for w := range src {
+				valid := ^uint64(0)
+				if left := rows - 64*w; left < 64 {
+					valid = 1<<left - 1
 				}
+				src[w] ^= valid
 			}
 		}
 	}
 	b.words = (N + 63) / 64
-	// Bin j's lag l is row L−1+j−l: string (l, p) is pixel p's raw bits
+	// Bin j's lag l is row L−1+j−l: string (l, p) is pixel p's row bits
 	// from row L−1−l on.
 	for w := range b.words {
 		out := b.lagged[w*D : (w+1)*D]
@@ -119,7 +166,7 @@ func (b *staBits) prepare(s *STA) {
 			off := L - 1 - l + 64*w
 			i, sh := off>>6, uint(off&63)
 			for p := range P {
-				src := raw[p*rw : (p+1)*rw]
+				src := b.raw[p*b.stride : p*b.stride+rw]
 				v := src[i] >> sh
 				if sh != 0 && i+1 < rw {
 					v |= src[i+1] << (64 - sh)
@@ -129,27 +176,6 @@ func (b *staBits) prepare(s *STA) {
 		}
 	}
 	b.ok = true
-}
-
-// twoLevels reports whether the values take at most two levels, all
-// finite, and returns them: lo is the first value, hi the other (hi = lo
-// when there is only one).
-func twoLevels(v []float64) (lo, hi float64, ok bool) {
-	if len(v) == 0 || v[0]-v[0] != 0 { // NaN or ±Inf
-		return 0, 0, false
-	}
-	lo, hi = v[0], v[0]
-	seen := false
-	for _, x := range v {
-		if x == lo || x == hi {
-			continue
-		}
-		if seen || x-x != 0 {
-			return 0, 0, false // a third level or a non-finite value
-		}
-		hi, seen = x, true
-	}
-	return lo, hi, true
 }
 
 // grow sizes a worker's scratch for an STA.
@@ -195,27 +221,50 @@ func (f *staFold) addBits(u int, spikes []int32, wk *staWorker, terms []batchSpi
 		}
 	}
 	sums := &s.bitSums
+	minBins := f.minBins
+	if minBins == 0 {
+		minBins = staMinBins(W)
+	}
 	for h := range 2 {
-		var total int64 // C of the batch: Σ_m 2^m · bins of the counted planes
+		half := planes[h*staPlanes*W : (h+1)*staPlanes*W]
+		var total int64 // C of the batch: Σ_m 2^m · bins of plane m
+		top, bins := 0, 0
 		for m := range staPlanes {
-			plane := planes[(h*staPlanes+m)*W : (h*staPlanes+m+1)*W]
 			nb := 0
-			for _, x := range plane {
+			for _, x := range half[m*W : (m+1)*W] {
 				nb += bits.OnesCount64(x)
 			}
-			if nb == 0 || nb >= f.minPlaneBits {
+			if nb > 0 {
 				total += int64(nb) << m
-				continue
+				top = m + 1
 			}
-			for w, x := range plane {
-				for ; x != 0; x &= x - 1 {
-					j := w*64 + bits.TrailingZeros64(x)
-					terms = append(terms, batchSpike{unit: int32(u), bin: int32(j), half: int32(h), n: float64(int(1) << m)})
-				}
-			}
-			clear(plane)
 		}
 		if total == 0 {
+			continue
+		}
+		for w := range W {
+			var any uint64
+			for m := range top {
+				any |= half[m*W+w]
+			}
+			bins += bits.OnesCount64(any)
+		}
+		if bins < minBins {
+			// Few spikes: cheaper as multiply-adds.
+			for w := range W {
+				var any uint64
+				for m := range top {
+					any |= half[m*W+w]
+				}
+				for ; any != 0; any &= any - 1 {
+					bit := bits.TrailingZeros64(any)
+					c := 0
+					for m := range top {
+						c |= int(half[m*W+w]>>bit&1) << m
+					}
+					terms = append(terms, batchSpike{unit: int32(u), bin: int32(w*64 + bit), half: int32(h), n: float64(c)})
+				}
+			}
 			continue
 		}
 		if sums.c[u][h]+total > math.MaxUint32 {
@@ -223,23 +272,9 @@ func (f *staFold) addBits(u int, spikes []int32, wk *staWorker, terms []batchSpi
 		}
 		sums.c[u][h] += total
 		sums.pending = true
-		t := sums.t[(2*u+h)*D : (2*u+h+1)*D]
-		for m := range staPlanes {
-			if plane := planes[(h*staPlanes+m)*W : (h*staPlanes+m+1)*W]; !allZero(plane) {
-				fastmat.AndCount(t, b.lagged[:W*D], plane, uint(m))
-			}
-		}
+		fastmat.AndCount(sums.t[(2*u+h)*D:(2*u+h+1)*D], b.lagged[:W*D], half[:top*W], W)
 	}
 	return terms
-}
-
-func allZero(w []uint64) bool {
-	for _, x := range w {
-		if x != 0 {
-			return false
-		}
-	}
-	return true
 }
 
 // staBitSums is the bit route's part of the cross sums, kept as integers

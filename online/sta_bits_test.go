@@ -134,8 +134,8 @@ func (st *staRouteStream) exact() (sum, size [][2][]float64, entries [][2]int) {
 	return sum, size, entries
 }
 
-// TestSTABitRoute feeds the same bins through the bit route (every bit
-// plane counted by bits, and with the default choice of planes) and through
+// TestSTABitRoute feeds the same bins through the bit route (every spike
+// counted by bits, and with the default choice of route) and through
 // the float route, and compares the cross sums with each other and with
 // their exact values. For ±1 and 0/1 levels and integer counts every sum is
 // an integer below 2⁵³ and both routes must give it exactly, bit for bit.
@@ -164,14 +164,14 @@ func TestSTABitRoute(t *testing.T) {
 		for _, batch := range []int{staBatchBins, 100} {
 			t.Run(fmt.Sprintf("%s/batch %d", tc.name, batch), func(t *testing.T) {
 				routes := map[string]*STA{}
-				for _, r := range []string{"float", "bits, every plane", "bits, default planes"} {
+				for _, r := range []string{"float", "bits, every spike", "bits, default choice"} {
 					s := NewSTA(st.pixels, st.lags)
 					s.batchCap = batch
 					switch r {
 					case "float":
 						s.fold.floatOnly = true
-					case "bits, every plane":
-						s.fold.minPlaneBits = 1
+					case "bits, every spike":
+						s.fold.minBins = 1
 					}
 					st.feed(s, 500)
 					routes[r] = s

@@ -63,7 +63,7 @@ func staCloseTo(t *testing.T, what string, got, want []float64, tol float64) {
 // batches of 16 and of 1 bin, and fold a partial batch by a read in the
 // middle of the stream. The frames are two-level (0.75 and −0.25): the
 // cases run with the default choice of the fold's route and with every
-// count's bit plane counted by bits (minPlaneBits 1).
+// unit's spikes counted by bits (minBins 1).
 func TestSTAGolden(t *testing.T) {
 	for _, tc := range []struct {
 		name   string
@@ -75,9 +75,9 @@ func TestSTAGolden(t *testing.T) {
 		{"batches of 16, read at bin 41", 16, 41},
 		{"bin by bin", 1, -1},
 	} {
-		for _, planeBits := range []int{0, 1} {
-			t.Run(fmt.Sprintf("%s/minPlaneBits %d", tc.name, planeBits), func(t *testing.T) {
-				staGoldenCase(t, tc.batch, tc.readAt, planeBits)
+		for _, minBins := range []int{0, 1} {
+			t.Run(fmt.Sprintf("%s/minBins %d", tc.name, minBins), func(t *testing.T) {
+				staGoldenCase(t, tc.batch, tc.readAt, minBins)
 			})
 		}
 	}
@@ -88,16 +88,16 @@ func TestSTAGolden(t *testing.T) {
 // testdata/golden/sta_golden.py still hold), and no bin's lagged row is the
 // shift of the one before, so every bin starts a new batch of the fold.
 func TestSTAGoldenAnyOrder(t *testing.T) {
-	for _, planeBits := range []int{0, 1} {
-		t.Run(fmt.Sprintf("minPlaneBits %d", planeBits), func(t *testing.T) { staGoldenAnyOrder(t, planeBits) })
+	for _, minBins := range []int{0, 1} {
+		t.Run(fmt.Sprintf("minBins %d", minBins), func(t *testing.T) { staGoldenAnyOrder(t, minBins) })
 	}
 }
 
-func staGoldenAnyOrder(t *testing.T, minPlaneBits int) {
+func staGoldenAnyOrder(t *testing.T, minBins int) {
 	var g staGoldenFile
 	staLoadJSON(t, "sta_golden.json", &g)
 	s := NewSTA(g.Pixels, g.Lags)
-	s.fold.minPlaneBits = minPlaneBits
+	s.fold.minBins = minBins
 	D := g.Pixels * g.Lags
 	x := make([]float64, D)
 	order := rand.New(rand.NewPCG(3, 4)).Perm(len(g.HalfA))
@@ -121,12 +121,12 @@ func staGoldenAnyOrder(t *testing.T, minPlaneBits int) {
 	}
 }
 
-func staGoldenCase(t *testing.T, batch, readAt, minPlaneBits int) {
+func staGoldenCase(t *testing.T, batch, readAt, minBins int) {
 	var g staGoldenFile
 	staLoadJSON(t, "sta_golden.json", &g)
 	s := NewSTA(g.Pixels, g.Lags)
 	s.batchCap = batch
-	s.fold.minPlaneBits = minPlaneBits
+	s.fold.minBins = minBins
 	D := g.Pixels * g.Lags
 	x := make([]float64, D)
 	var counts []Count

@@ -5,61 +5,48 @@ import (
 	"math/bits"
 )
 
-// AndCount adds to every dst[i] the number of bits set both in mask and in
-// the bit string i of x, shifted left by shift:
+// AndCount adds to every dst[i] the weighted count of the bits set both in
+// the bit string i of x and in the masks of a number of bit planes:
 //
-//	dst[i] += Σ_w popcount(x[w·n + i] & mask[w]) << shift,  n = len(dst),
+//	dst[i] += Σ_m 2^m · Σ_w popcount(x[w·n + i] & masks[m·nw + w]),
 //
-// the words w < len(mask) of string i lying len(dst) values apart (x holds
-// word 0 of every string, then word 1, …). It counts one bit plane of spike
-// masks against many lagged pixel bit strings at once. The caller keeps the
-// sums below 2³²; x shorter than len(mask)·len(dst) panics. On CPUs with
+// n = len(dst), w < nw words per string, m < len(masks)/nw planes. The
+// words of string i lie len(dst) values apart (x holds word 0 of every
+// string, then word 1, …). It counts the bit planes of a unit's spike
+// counts against many lagged pixel bit strings at once, each string read
+// once for all planes. The caller keeps the sums below 2³²; x shorter than
+// nw·len(dst), or masks not a whole number of planes, panics. On CPUs with
 // AVX-512 VPOPCNTQ eight strings at a time run in assembly, with AVX2 four
 // (nibble table look-ups), the rest in Go with math/bits.
-func AndCount(dst []uint32, x []uint64, mask []uint64, shift uint) {
-	n, nw := len(dst), len(mask)
-	if len(x) < nw*n {
-		panic(fmt.Sprintf("fastmat: AndCount: len(x) = %d < %d·%d", len(x), nw, n))
+func AndCount(dst []uint32, x []uint64, masks []uint64, nw int) {
+	n := len(dst)
+	if nw <= 0 || len(masks)%nw != 0 || len(x) < nw*n {
+		panic(fmt.Sprintf("fastmat: AndCount: %d strings of %d words in %d, %d masks", n, nw, len(x), len(masks)))
 	}
-	if n == 0 || nw == 0 {
+	planes := len(masks) / nw
+	if n == 0 || planes == 0 {
 		return
 	}
 	done := 0
 	switch {
 	case hasAndCount8:
 		if done = n &^ 7; done > 0 {
-			andCount8(done, &dst[0], &x[0], n, &mask[0], nw, shift)
+			andCount8(done, &dst[0], &x[0], n, &masks[0], nw, planes)
 		}
 	case hasAndCount4 && nw <= 31:
 		if done = n &^ 3; done > 0 {
-			andCount4(done, &dst[0], &x[0], n, &mask[0], nw, shift)
+			andCount4(done, &dst[0], &x[0], n, &masks[0], nw, planes)
 		}
-	}
-	if done == n {
-		return
-	}
-	if nw == 4 {
-		andCountGo4(dst[done:], x[done:n], x[n+done:2*n], x[2*n+done:3*n], x[3*n+done:4*n], (*[4]uint64)(mask), shift)
-		return
 	}
 	for i := done; i < n; i++ {
 		c := 0
-		for w, m := range mask {
-			c += bits.OnesCount64(x[w*n+i] & m)
+		for m := planes - 1; m >= 0; m-- { // Horner's scheme over the planes
+			c <<= 1
+			for w, mask := range masks[m*nw : (m+1)*nw] {
+				c += bits.OnesCount64(x[w*n+i] & mask)
+			}
 		}
-		dst[i] += uint32(c) << shift
-	}
-}
-
-// andCountGo4 is AndCount's Go loop for strings of four words (a batch of
-// 256 bins), with the mask in registers.
-func andCountGo4(dst []uint32, x0, x1, x2, x3 []uint64, m *[4]uint64, shift uint) {
-	m0, m1, m2, m3 := m[0], m[1], m[2], m[3]
-	x0, x1, x2, x3 = x0[:len(dst)], x1[:len(dst)], x2[:len(dst)], x3[:len(dst)]
-	for i := range dst {
-		c := bits.OnesCount64(x0[i]&m0) + bits.OnesCount64(x1[i]&m1) +
-			bits.OnesCount64(x2[i]&m2) + bits.OnesCount64(x3[i]&m3)
-		dst[i] += uint32(c) << shift
+		dst[i] += uint32(c)
 	}
 }
 

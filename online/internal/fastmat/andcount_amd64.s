@@ -7,24 +7,35 @@ DATA nibbleCount<>+16(SB)/8, $0x0302020102010100
 DATA nibbleCount<>+24(SB)/8, $0x0403030203020201
 GLOBL nibbleCount<>(SB), RODATA|NOPTR, $32
 
-// func andCount8(n int, dst *uint32, x *uint64, stride int, mask *uint64, nw int, shift uint)
-// dst[i] += Σ_{w<nw} popcount(x[w·stride+i] & mask[w]) << shift for i < n,
-// n a positive multiple of 8, nw positive; AVX-512 F and VPOPCNTDQ.
+// func andCount8(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
+// dst[i] += Σ_{m<planes} 2^m Σ_{w<nw} popcount(x[w·stride+i] & masks[m·nw+w])
+// for i < n, n a positive multiple of 8, nw and planes positive; the planes
+// by Horner's scheme from the highest down. AVX-512 F and VPOPCNTDQ.
 TEXT ·andCount8(SB), NOSPLIT, $0-56
 	MOVQ n+0(FP), DX
 	MOVQ dst+8(FP), DI
 	MOVQ x+16(FP), SI
 	MOVQ stride+24(FP), R8
 	SHLQ $3, R8
-	MOVQ mask+32(FP), R9
 	MOVQ nw+40(FP), R10
-	MOVQ shift+48(FP), AX
-	MOVQ AX, X15
+	MOVQ planes+48(FP), R14
+	MOVQ R10, BX
+	SHLQ $4, BX             // two planes of masks, in bytes
+	MOVQ R14, AX
+	DECQ AX
+	IMULQ R10, AX
+	SHLQ $3, AX
+	MOVQ masks+32(FP), R9
+	ADDQ AX, R9             // the highest plane's masks
 
 strings8:
 	VPXORQ Z0, Z0, Z0
-	MOVQ SI, R11
 	MOVQ R9, R12
+	MOVQ R14, R15
+
+planes8:
+	VPADDQ Z0, Z0, Z0
+	MOVQ SI, R11
 	MOVQ R10, R13
 
 words8:
@@ -37,7 +48,10 @@ words8:
 	DECQ R13
 	JNZ  words8
 
-	VPSLLQ X15, Z0, Z0
+	SUBQ BX, R12
+	DECQ R15
+	JNZ  planes8
+
 	VPMOVQD Z0, Y1
 	VPADDD (DI), Y1, Y1
 	VMOVDQU Y1, (DI)
@@ -48,18 +62,26 @@ words8:
 	VZEROUPPER
 	RET
 
-// func andCount4(n int, dst *uint32, x *uint64, stride int, mask *uint64, nw int, shift uint)
-// The same for n a positive multiple of 4 and nw in 1…31; AVX2.
+// func andCount4(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
+// The same for n a positive multiple of 4 and nw in 1…31 (a byte sums
+// 8·nw bits of a plane), four strings at a time: nibbles counted by table
+// look-up (VPSHUFB), bytes summed by VPSADBW. AVX2.
 TEXT ·andCount4(SB), NOSPLIT, $0-56
 	MOVQ n+0(FP), DX
 	MOVQ dst+8(FP), DI
 	MOVQ x+16(FP), SI
 	MOVQ stride+24(FP), R8
 	SHLQ $3, R8
-	MOVQ mask+32(FP), R9
 	MOVQ nw+40(FP), R10
-	MOVQ shift+48(FP), AX
-	MOVQ AX, X13
+	MOVQ planes+48(FP), R14
+	MOVQ R10, BX
+	SHLQ $4, BX
+	MOVQ R14, AX
+	DECQ AX
+	IMULQ R10, AX
+	SHLQ $3, AX
+	MOVQ masks+32(FP), R9
+	ADDQ AX, R9
 	VMOVDQU nibbleCount<>(SB), Y14
 	MOVL $0x0f0f0f0f, AX
 	MOVD AX, X15
@@ -68,8 +90,13 @@ TEXT ·andCount4(SB), NOSPLIT, $0-56
 
 strings4:
 	VPXOR Y0, Y0, Y0
-	MOVQ SI, R11
 	MOVQ R9, R12
+	MOVQ R14, R15
+
+planes4:
+	VPADDQ Y0, Y0, Y0
+	VPXOR Y4, Y4, Y4
+	MOVQ SI, R11
 	MOVQ R10, R13
 
 words4:
@@ -80,15 +107,19 @@ words4:
 	VPAND Y15, Y1, Y1
 	VPSHUFB Y3, Y14, Y3
 	VPSHUFB Y1, Y14, Y1
-	VPADDB Y3, Y0, Y0
-	VPADDB Y1, Y0, Y0
+	VPADDB Y3, Y4, Y4
+	VPADDB Y1, Y4, Y4
 	ADDQ R8, R11
 	ADDQ $8, R12
 	DECQ R13
 	JNZ  words4
 
-	VPSADBW Y12, Y0, Y0
-	VPSLLQ X13, Y0, Y0
+	VPSADBW Y12, Y4, Y4
+	VPADDQ Y4, Y0, Y0
+	SUBQ BX, R12
+	DECQ R15
+	JNZ  planes4
+
 	VPSHUFD $0x08, Y0, Y0
 	VPERMQ $0x08, Y0, Y0
 	VPADDD (DI), X0, X0

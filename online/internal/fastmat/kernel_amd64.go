@@ -45,18 +45,19 @@ func axpy4x16(n int, a *[4]float64, x0, x1, x2, x3 *float64, y *float64)
 var hasAndCount8 = cpu.X86.HasAVX512F && cpu.X86.HasAVX512VPOPCNTDQ
 
 // andCount8 adds to dst[i], for i < n (a positive multiple of 8),
-// Σ_{w<nw} popcount(x[w·stride+i] & mask[w]) << shift, eight strings at a
-// time with AVX-512 VPOPCNTQ. nw must be positive.
+// Σ_{m<planes} 2^m Σ_{w<nw} popcount(x[w·stride+i] & masks[m·nw+w]), eight
+// strings at a time with AVX-512 VPOPCNTQ. nw and planes must be positive.
 //
 //go:noescape
-func andCount8(n int, dst *uint32, x *uint64, stride int, mask *uint64, nw int, shift uint)
+func andCount8(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
 
 // hasAndCount4 tells whether andCount4 can run (AVX2).
 var hasAndCount4 = cpu.X86.HasAVX2
 
 // andCount4 is andCount8 for n a positive multiple of 4, four strings at a
 // time with AVX2 (population counts of nibbles by table look-up, bytes
-// summed by VPSADBW). nw must be 1…31 (a byte holds the sum of 8·nw bits).
+// summed by VPSADBW). nw must be 1…31 (a byte holds the sum of 8·nw bits)
+// and planes positive.
 //
 //go:noescape
-func andCount4(n int, dst *uint32, x *uint64, stride int, mask *uint64, nw int, shift uint)
+func andCount4(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
