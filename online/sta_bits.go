@@ -106,22 +106,44 @@ func (b *staBits) addRow(r int, row []float64) {
 	if !b.rowsOK {
 		return
 	}
-	bit, w := uint64(1)<<(r&63), r>>6
-	for p, v := range row {
-		switch {
-		case b.levels > 0 && v == b.rowLo:
-			continue
-		case b.levels == 2 && v == b.rowHi:
-		case v-v != 0 || b.levels == 2: // NaN or ±Inf, or a third level
-			b.rowsOK = false
-			return
-		case b.levels == 0:
-			b.rowLo, b.levels = v, 1
-			continue
-		default:
-			b.rowHi, b.levels = v, 2
+	if b.levels < 2 {
+		for _, v := range row {
+			switch {
+			case v-v != 0: // NaN or ±Inf
+				b.rowsOK = false
+				return
+			case b.levels == 0:
+				b.rowLo, b.levels = v, 1
+			case v != b.rowLo:
+				b.rowHi, b.levels = v, 2
+			}
+			if b.levels == 2 {
+				break
+			}
 		}
-		b.raw[p*b.stride+w] |= bit
+		if b.levels < 2 {
+			return // one level so far: no bits to set
+		}
+	}
+	lo, hi := b.rowLo, b.rowHi
+	bit, w := uint64(1)<<(r&63), r>>6
+	raw := b.raw[w:]
+	fits := 0 // values at lo or hi
+	for p, v := range row {
+		// Conditional moves, no branches: noise is unpredictable.
+		var m uint64
+		atHi, atLo := 0, 0
+		if v == hi {
+			m, atHi = bit, 1
+		}
+		if v == lo {
+			atLo = 1
+		}
+		raw[p*b.stride] |= m
+		fits += atHi | atLo
+	}
+	if fits != len(row) {
+		b.rowsOK = false // a third level or a non-finite value
 	}
 }
 
