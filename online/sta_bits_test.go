@@ -135,9 +135,9 @@ func (st *staRouteStream) exact() (sum, size [][2][]float64, entries [][2]int) {
 }
 
 // TestSTABitRoute feeds the same bins through the bit route (every spike
-// counted by bits, and with the default choice of route) and through
-// the float route, and compares the cross sums with each other and with
-// their exact values. For ±1 and 0/1 levels and integer counts every sum is
+// counted by bits; a unit's half with spikes in fewer than 5 bins of a
+// batch by multiply-adds; the default choice) and through the float route,
+// and compares the cross sums with each other and with their exact values. For ±1 and 0/1 levels and integer counts every sum is
 // an integer below 2⁵³ and both routes must give it exactly, bit for bit.
 // For other levels (−0.3/0.7) or non-integer counts the routes round
 // differently; each must lie within (n + 16)·u·Σ|c_k·x_k| of the exact sum,
@@ -164,7 +164,7 @@ func TestSTABitRoute(t *testing.T) {
 		for _, batch := range []int{staBatchBins, 100} {
 			t.Run(fmt.Sprintf("%s/batch %d", tc.name, batch), func(t *testing.T) {
 				routes := map[string]*STA{}
-				for _, r := range []string{"float", "bits, every spike", "bits, default choice"} {
+				for _, r := range []string{"float", "bits, every spike", "bits, halves with spikes in 5 bins or more", "bits, default choice"} {
 					s := NewSTA(st.pixels, st.lags)
 					s.batchCap = batch
 					switch r {
@@ -172,6 +172,8 @@ func TestSTABitRoute(t *testing.T) {
 						s.fold.floatOnly = true
 					case "bits, every spike":
 						s.fold.minBins = 1
+					case "bits, halves with spikes in 5 bins or more":
+						s.fold.minBins = 5
 					}
 					st.feed(s, 500)
 					routes[r] = s
