@@ -16,8 +16,8 @@ import (
 // counts against many lagged pixel bit strings at once, each string read
 // once for all planes. The caller keeps the sums below 2³²; x shorter than
 // nw·len(dst), or masks not a whole number of planes, panics. On CPUs with
-// AVX-512 VPOPCNTQ eight strings at a time run in assembly, with AVX2 four
-// (nibble table look-ups), the rest in Go with math/bits.
+// AVX-512 VPOPCNTQ eight strings at a time run in assembly, with AVX2 eight
+// too (nibble table look-ups), the rest in Go with math/bits.
 func AndCount(dst []uint32, x []uint64, masks []uint64, nw int) {
 	n := len(dst)
 	if nw <= 0 || len(masks)%nw != 0 || len(x) < nw*n {
@@ -34,7 +34,7 @@ func AndCount(dst []uint32, x []uint64, masks []uint64, nw int) {
 			andCount8(done, &dst[0], &x[0], n, &masks[0], nw, planes)
 		}
 	case hasAndCount4 && nw <= 31:
-		if done = n &^ 3; done > 0 {
+		if done = n &^ 7; done > 0 {
 			andCount4(done, &dst[0], &x[0], n, &masks[0], nw, planes)
 		}
 	}

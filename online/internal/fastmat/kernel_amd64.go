@@ -54,8 +54,8 @@ func andCount8(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, pla
 // hasAndCount4 tells whether andCount4 can run (AVX2).
 var hasAndCount4 = cpu.X86.HasAVX2
 
-// andCount4 is andCount8 for n a positive multiple of 4, four strings at a
-// time with AVX2 (population counts of nibbles by table look-up, bytes
+// andCount4 is andCount8 with AVX2, eight strings at a time as two sets of
+// four (population counts of nibbles by table look-up, bytes
 // summed by VPSADBW). nw must be 1…31 (a byte holds the sum of 8·nw bits)
 // and planes positive.
 //
