@@ -236,6 +236,7 @@ func (f *staFold) run(s *STA) {
 			f.work[w].grow(s)
 		}
 		s.bitSums.grow(s)
+		s.bitSums.pending = true // before the workers: they only add to the sums
 	} else {
 		f.batches[0]++
 	}

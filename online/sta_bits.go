@@ -292,8 +292,7 @@ func (f *staFold) addBits(u int, spikes []int32, wk *staWorker, terms []batchSpi
 		if sums.c[u][h]+total > math.MaxUint32 {
 			sums.drainUnit(s, u, h) // T ≤ C: the counts stay in 32 bits
 		}
-		sums.c[u][h] += total
-		sums.pending = true
+		sums.c[u][h] += total // sums.pending was set by the fold
 		fastmat.AndCount(sums.t[(2*u+h)*D:(2*u+h+1)*D], b.lagged[:W*D], half[:top*W], W)
 	}
 	return terms
@@ -307,7 +306,7 @@ type staBitSums struct {
 	lo, hi  float64
 	t       []uint32   // units × 2 × D
 	c       [][2]int64 // per unit and half
-	pending bool       // some C is not zero
+	pending bool       // some C may not be zero
 	drainer staDrain
 }
 
