@@ -204,3 +204,58 @@ func TestSTABitRoute(t *testing.T) {
 		}
 	}
 }
+
+// TestSTABitRouteShapes compares the bit route (every spike by bits) with
+// the float route on ±1 frames and integer counts, where both must be
+// exact, for shapes at the edges of the lagged strings: one pixel, one lag
+// (no history rows), and 65 or 70 lags (the history alone fills more than
+// a 64-bit word, so a lag's string starts words into the pixel's bits),
+// with batches of 256 bins and of 70 (two words, the second part-filled).
+func TestSTABitRouteShapes(t *testing.T) {
+	for _, sh := range []struct{ pixels, lags, batch int }{
+		{1, 1, 256}, {3, 1, 70}, {1, 70, 256}, {5, 65, 70}, {2, 64, 256},
+	} {
+		t.Run(fmt.Sprintf("pixels %d lags %d batch %d", sh.pixels, sh.lags, sh.batch), func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(uint64(sh.pixels), uint64(sh.lags)))
+			frames := make([][]float64, 600)
+			for m := range frames {
+				frames[m] = make([]float64, sh.pixels)
+				for p := range frames[m] {
+					frames[m][p] = float64(2*rng.IntN(2) - 1)
+				}
+			}
+			bits, float := NewSTA(sh.pixels, sh.lags), NewSTA(sh.pixels, sh.lags)
+			bits.batchCap, float.batchCap = sh.batch, sh.batch
+			bits.fold.minBins = 1
+			float.fold.floatOnly = true
+			x := make([]float64, sh.pixels*sh.lags)
+			for k := sh.lags - 1; k < len(frames); k++ {
+				staLagged(x, frames, k, sh.lags)
+				var c []Count
+				for u := range 3 {
+					if rng.IntN(3) == 0 {
+						c = append(c, Count{Unit: u, N: float64(1 + rng.IntN(3))})
+					}
+				}
+				half := (k/50)%2 == 0
+				bits.AddBin(x, half, c)
+				float.AddBin(x, half, c)
+			}
+			bits.Flush()
+			float.Flush()
+			if bits.fold.batches[1] == 0 {
+				t.Fatal("no batch went by bits")
+			}
+			for u := range 3 {
+				for h := range 2 {
+					got, want := bits.block(u, staA+h), float.block(u, staA+h)
+					for i := range got {
+						if got[i] != want[i] {
+							t.Fatalf("unit %d half %d sum %d: bits %v, float %v", u, h, i, got[i], want[i])
+						}
+					}
+				}
+			}
+		})
+	}
+}
