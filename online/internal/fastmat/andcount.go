@@ -30,8 +30,12 @@ func AndCount(dst []uint32, x []uint64, masks []uint64, nw int) {
 	done := 0
 	switch {
 	case hasAndCount8:
-		if done = n &^ 7; done > 0 {
-			andCount8(done, &dst[0], &x[0], n, &masks[0], nw, planes)
+		if done = n &^ 15; done > 0 {
+			andCount16(done, &dst[0], &x[0], n, &masks[0], nw, planes)
+		}
+		if n-done >= 8 {
+			andCount8(8, &dst[done], &x[done], n, &masks[0], nw, planes)
+			done += 8
 		}
 	case hasAndCount4 && nw <= 31:
 		if done = n &^ 7; done > 0 {

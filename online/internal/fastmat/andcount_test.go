@@ -39,6 +39,11 @@ func TestAndCount(t *testing.T) {
 			andCount8(len(dst), &dst[0], &x[0], len(dst), &masks[0], nw, len(masks)/nw)
 		}, 8})
 	}
+	if hasAndCount8 {
+		kernels = append(kernels, kernel{"avx512x16", func(dst []uint32, x, masks []uint64, nw int) {
+			andCount16(len(dst), &dst[0], &x[0], len(dst), &masks[0], nw, len(masks)/nw)
+		}, 16})
+	}
 	if hasAndCount4 {
 		kernels = append(kernels, kernel{"avx2", func(dst []uint32, x, masks []uint64, nw int) {
 			andCount4(len(dst), &dst[0], &x[0], len(dst), &masks[0], nw, len(masks)/nw)

@@ -51,6 +51,12 @@ var hasAndCount8 = cpu.X86.HasAVX512F && cpu.X86.HasAVX512VPOPCNTDQ
 //go:noescape
 func andCount8(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
 
+// andCount16 is andCount8 for n a positive multiple of 16, sixteen strings
+// at a time as two independent sets of eight.
+//
+//go:noescape
+func andCount16(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
+
 // hasAndCount4 tells whether andCount4 can run (AVX2).
 var hasAndCount4 = cpu.X86.HasAVX2
 

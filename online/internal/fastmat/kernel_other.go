@@ -24,3 +24,7 @@ func andCount8(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, pla
 func andCount4(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int) {
 	panic("fastmat: andCount4 without assembly")
 }
+
+func andCount16(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int) {
+	panic("fastmat: andCount16 without assembly")
+}
