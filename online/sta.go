@@ -24,11 +24,15 @@ import (
 // in cache. The work is proportional to the spikes (spikes·D additions), not
 // to units·bins as a dense product of counts and rows would be: at the
 // reference workload (10 spikes/s in 60 Hz bins) about one count in six is
-// non-zero. Units are spread
+// non-zero. A batch of two-level frames (binary noise) is folded by bit
+// counts instead: per unit, each bit plane of its counts against the
+// batch's lagged pixel bit strings, into integer sums that reads drain into
+// the float sums (sta_bits.go); the sums are the same, exactly so for ±1 or
+// 0/1 levels and integer counts. Units are spread
 // over the cores by fastmat.Each. A bin whose lagged row is not the shift of
 // the previous bin's (a restarted lag history) starts a new batch. Per bin
-// AddBin costs a copy of one frame, D comparisons and D additions for the
-// stimulus sums. Units are indices 0…Units()−1 and grow when a larger index
+// AddBin costs a copy of one frame, D comparisons, D additions for the
+// stimulus sums and P comparisons for the two-level check. Units are indices 0…Units()−1 and grow when a larger index
 // arrives (a new unit's earlier counts are zero). An STA is not safe for
 // concurrent use, except for reads from several goroutines after
 // CacheMeans.
@@ -59,6 +63,7 @@ type STA struct {
 	batchN      int
 	batchSpikes []batchSpike
 	fold        staFold
+	bitSums     staBitSums // the bit route's integer part of the cross sums
 }
 
 // staBatchBins is the number of bins folded into the cross sums at once:
@@ -153,10 +158,17 @@ func (s *STA) Grow(units int) {
 	s.units = units
 }
 
-// Flush folds the batched bins into the cross sums. Reads call it
-// themselves; CacheMeans too, so that reads from several goroutines after it
+// Flush folds the batched bins into the cross sums and drains the bit
+// route's integer sums into them. Reads call it themselves; CacheMeans too, so that reads from several goroutines after it
 // find nothing to fold.
 func (s *STA) Flush() {
+	s.foldBatch()
+	s.bitSums.drain(s)
+}
+
+// foldBatch folds the batched bins into the cross sums (the bit route's
+// part into its integer sums, see sta_bits.go) and empties the batch.
+func (s *STA) foldBatch() {
 	if s.batchN == 0 {
 		return // nothing to fold, and nothing written: reads may run concurrently
 	}
@@ -169,12 +181,19 @@ func (s *STA) Flush() {
 
 // staFold adds a batch's spikes to the cross sums, the units spread over
 // the cores (fastmat.Each): the spikes are grouped by unit (a counting
-// sort), and a piece of work is one unit.
+// sort), and a piece of work is one unit. A batch of two-level frames goes
+// by bit counts (sta_bits.go), others by multiply-adds (addFloat).
 type staFold struct {
 	s     *STA
 	first []int32 // per unit, its first spike in order; len units+1
 	order []int32 // spike indices grouped by unit, in bin order within a unit
 	busy  []int32 // units with spikes in this batch, in unit order
+
+	bits      staBits
+	work      []staWorker // per fastmat worker
+	minBins   int         // fewest bins with spikes of a unit's half counted by bits (0: staMinBins)
+	floatOnly bool        // every batch by multiply-adds (tests compare the routes)
+	batches   [2]int64    // batches folded by multiply-adds [0] and by bits [1]
 }
 
 func (f *staFold) run(s *STA) {
@@ -204,28 +223,65 @@ func (f *staFold) run(s *STA) {
 		f.first[u] = f.first[u-1]
 	}
 	f.first[0] = 0
+	f.bits.ok = false
+	if !f.floatOnly {
+		f.bits.prepare(s)
+	}
+	if f.work == nil {
+		f.work = make([]staWorker, fastmat.Workers())
+	}
+	if f.bits.ok {
+		f.batches[1]++
+		for w := range f.work {
+			f.work[w].grow(s)
+		}
+		s.bitSums.grow(s)
+		s.bitSums.pending = true // before the workers: they only add to the sums
+	} else {
+		f.batches[0]++
+	}
 	fastmat.Each(len(f.busy), f)
 	f.s = nil
 }
 
-// Do adds the batch's spikes of the i-th busy unit to its sums: per half
-// and lag, the counts times the frame lag bins earlier, four spikes at a
-// time (fastmat.AddScaled4), so that one lag's P sums are loaded and
-// stored once per four spikes.
-func (f *staFold) Do(i, _ int) {
+// Do adds the batch's spikes of the i-th busy unit to its sums, on
+// worker w: by bit counts when the batch is two-level, the spikes left
+// over (and all of a batch with more levels) by multiply-adds.
+func (f *staFold) Do(i, w int) {
 	s := f.s
 	u := int(f.busy[i])
+	spikes := f.order[f.first[u]:f.first[u+1]]
+	wk := &f.work[w]
+	terms := wk.terms[:0]
+	if f.bits.ok {
+		terms = f.addBits(u, spikes, wk, terms)
+	} else {
+		for _, k := range spikes {
+			terms = append(terms, s.batchSpikes[k])
+		}
+	}
+	s.addFloat(u, terms)
+	wk.terms = terms[:0]
+}
+
+// addFloat adds the spikes (all of unit u) to u's sums: per half and lag,
+// the counts times the frame lag bins earlier, four spikes at a time
+// (fastmat.AddScaled4), so that one lag's P sums are loaded and stored
+// once per four spikes.
+func (s *STA) addFloat(u int, spikes []batchSpike) {
+	if len(spikes) == 0 {
+		return
+	}
 	P, L, d := s.pixels, s.lags, s.dim
 	base := u * s.stride
-	spikes := f.order[f.first[u]:f.first[u+1]]
 	var a [4]float64
 	var rows [4][]float64
 	for h := range int32(2) {
 		for l := range L {
 			dst := s.data[base+int(h)*d+l*P : base+int(h)*d+(l+1)*P]
 			n := 0 // spikes gathered in a and rows
-			for _, k := range spikes {
-				sp := &s.batchSpikes[k]
+			for k := range spikes {
+				sp := &spikes[k]
 				if sp.half != h {
 					continue
 				}
@@ -250,9 +306,11 @@ func (s *STA) startBatch(x []float64) {
 	if s.batchFrames == nil {
 		s.batchFrames = make([]float64, (L-1+s.batchCap)*P)
 	}
+	s.fold.bits.startRows(s)
 	for r := range L - 1 {
 		l := L - 1 - r
 		copy(s.batchFrames[r*P:(r+1)*P], x[l*P:(l+1)*P])
+		s.fold.bits.addRow(r, x[l*P:(l+1)*P])
 	}
 }
 
@@ -292,13 +350,14 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 	gfloats.Add(s.sumX[h][:len(x)], x) // gonum's vector kernels: this is the message path
 	if s.dim > 0 {
 		if s.batchN > 0 && !s.continues(x) {
-			s.Flush()
+			s.foldBatch()
 		}
 		if s.batchN == 0 {
 			s.startBatch(x)
 		}
 		row := (s.lags - 1 + s.batchN) * s.pixels
 		copy(s.batchFrames[row:row+s.pixels], x[:s.pixels])
+		s.fold.bits.addRow(s.lags-1+s.batchN, x[:s.pixels])
 	}
 	j := s.batchN // row of this bin in the batch
 	for _, c := range counts {
@@ -322,7 +381,7 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 	}
 	s.n[h]++
 	if s.batchN++; s.batchN == s.batchCap {
-		s.Flush()
+		s.foldBatch()
 	}
 }
 
@@ -463,6 +522,7 @@ func (s *STA) Reset() {
 		s.counts.reset()
 	}
 	clear(s.sy)
+	s.bitSums.reset()
 	s.batchSpikes = s.batchSpikes[:0]
 	s.batchN = 0
 	s.rejected = 0

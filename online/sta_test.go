@@ -61,7 +61,9 @@ func staCloseTo(t *testing.T, what string, got, want []float64, tol float64) {
 // entries per bin, units in reverse order, to check that counts add. The
 // 78 bins fit in one batch of the cross sums; the other cases cut them into
 // batches of 16 and of 1 bin, and fold a partial batch by a read in the
-// middle of the stream.
+// middle of the stream. The frames are two-level (0.75 and −0.25): the
+// cases run with the default choice of the fold's route and with every
+// unit's spikes counted by bits (minBins 1).
 func TestSTAGolden(t *testing.T) {
 	for _, tc := range []struct {
 		name   string
@@ -73,7 +75,11 @@ func TestSTAGolden(t *testing.T) {
 		{"batches of 16, read at bin 41", 16, 41},
 		{"bin by bin", 1, -1},
 	} {
-		t.Run(tc.name, func(t *testing.T) { staGoldenCase(t, tc.batch, tc.readAt) })
+		for _, minBins := range []int{0, 1} {
+			t.Run(fmt.Sprintf("%s/minBins %d", tc.name, minBins), func(t *testing.T) {
+				staGoldenCase(t, tc.batch, tc.readAt, minBins)
+			})
+		}
 	}
 }
 
@@ -82,9 +88,16 @@ func TestSTAGolden(t *testing.T) {
 // testdata/golden/sta_golden.py still hold), and no bin's lagged row is the
 // shift of the one before, so every bin starts a new batch of the fold.
 func TestSTAGoldenAnyOrder(t *testing.T) {
+	for _, minBins := range []int{0, 1} {
+		t.Run(fmt.Sprintf("minBins %d", minBins), func(t *testing.T) { staGoldenAnyOrder(t, minBins) })
+	}
+}
+
+func staGoldenAnyOrder(t *testing.T, minBins int) {
 	var g staGoldenFile
 	staLoadJSON(t, "sta_golden.json", &g)
 	s := NewSTA(g.Pixels, g.Lags)
+	s.fold.minBins = minBins
 	D := g.Pixels * g.Lags
 	x := make([]float64, D)
 	order := rand.New(rand.NewPCG(3, 4)).Perm(len(g.HalfA))
@@ -108,11 +121,12 @@ func TestSTAGoldenAnyOrder(t *testing.T) {
 	}
 }
 
-func staGoldenCase(t *testing.T, batch, readAt int) {
+func staGoldenCase(t *testing.T, batch, readAt, minBins int) {
 	var g staGoldenFile
 	staLoadJSON(t, "sta_golden.json", &g)
 	s := NewSTA(g.Pixels, g.Lags)
 	s.batchCap = batch
+	s.fold.minBins = minBins
 	D := g.Pixels * g.Lags
 	x := make([]float64, D)
 	var counts []Count

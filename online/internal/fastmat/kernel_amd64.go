@@ -40,3 +40,30 @@ func axpy16(n int, alpha float64, x *float64, y *float64)
 //
 //go:noescape
 func axpy4x16(n int, a *[4]float64, x0, x1, x2, x3 *float64, y *float64)
+
+// hasAndCount8 tells whether andCount8 can run (AVX-512 with VPOPCNTQ).
+var hasAndCount8 = cpu.X86.HasAVX512F && cpu.X86.HasAVX512VPOPCNTDQ
+
+// andCount8 adds to dst[i], for i < n (a positive multiple of 8),
+// Σ_{m<planes} 2^m Σ_{w<nw} popcount(x[w·stride+i] & masks[m·nw+w]), eight
+// strings at a time with AVX-512 VPOPCNTQ. nw and planes must be positive.
+//
+//go:noescape
+func andCount8(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
+
+// andCount16 is andCount8 for n a positive multiple of 16, sixteen strings
+// at a time as two independent sets of eight.
+//
+//go:noescape
+func andCount16(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
+
+// hasAndCount4 tells whether andCount4 can run (AVX2).
+var hasAndCount4 = cpu.X86.HasAVX2
+
+// andCount4 is andCount8 with AVX2, eight strings at a time as two sets of
+// four (population counts of nibbles by table look-up, bytes
+// summed by VPSADBW). nw must be 1…31 (a byte holds the sum of 8·nw bits)
+// and planes positive.
+//
+//go:noescape
+func andCount4(n int, dst *uint32, x *uint64, stride int, masks *uint64, nw, planes int)
