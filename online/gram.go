@@ -220,10 +220,27 @@ func (g *LagGram) AddFrame(s []float64) error {
 }
 
 // fitsLevels reports whether s takes at most the two levels seen so far,
-// fixing the levels on first sight.
+// fixing the levels on first sight. Once both levels are known the check
+// counts matches with conditional moves instead of branching on each value
+// (binary noise makes every other branch a misprediction).
 func (g *LagGram) fitsLevels(s []float64) bool {
 	if g.n == 0 && !g.hasHi {
 		g.lo = s[0]
+	}
+	if g.hasHi {
+		lo, hi := g.lo, g.hi
+		fits := 0
+		for _, v := range s {
+			atLo, atHi := 0, 0
+			if v == lo {
+				atLo = 1
+			}
+			if v == hi {
+				atHi = 1
+			}
+			fits += atLo | atHi
+		}
+		return fits == len(s)
 	}
 	lo, hi, has := g.lo, g.hi, g.hasHi
 	for _, v := range s {
@@ -242,11 +259,14 @@ func (g *LagGram) fitsLevels(s []float64) bool {
 func (g *LagGram) addBits(s []float64) {
 	w, b := 1+g.wordBits/64, uint(g.wordBits%64)
 	if g.hasHi {
+		hi := g.hi
 		for p, v := range s {
-			if v == g.hi {
-				g.words[p][w] |= 1 << b
-				g.ones[p]++
+			var one uint64 // conditional moves, as in fitsLevels
+			if v == hi {
+				one = 1
 			}
+			g.words[p][w] |= one << b
+			g.ones[p] += int64(one)
 		}
 	}
 	g.wordBits++
