@@ -20,7 +20,7 @@ type benchWorkload struct {
 }
 
 func newBenchWorkload(b *testing.B, w, h, lags, units int, rate float64) *benchWorkload {
-	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: benchNoPrior})
+	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: benchNoPrior, PriorWorkers: benchPriorWorkers})
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -203,3 +203,7 @@ func BenchmarkReferenceCatchUp(b *testing.B) {
 }
 
 var benchNoPrior = os.Getenv("NOPRIOR") != ""
+
+// benchPriorWorkers sets Config.PriorWorkers from PRIORWORKERS (0, the
+// default, when unset).
+var benchPriorWorkers, _ = strconv.Atoi(os.Getenv("PRIORWORKERS"))
