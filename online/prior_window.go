@@ -74,7 +74,13 @@ type priorUnit struct {
 	peak       [3]float64 // the seed's energy peak (x, y, lag)
 	search     *compass
 	reopenedAt int // bins when the search was last reopened
-	last       PriorFit
+	// last is the latest fit without its weights, which are kept for
+	// the window only (lastMu, in the order of Window.Indices): a unit's
+	// D weights are zero outside its window, and 384 units' full arrays
+	// per fitter would take 9 MB.
+	last   PriorFit
+	lastMu []float64
+	fitted bool
 }
 
 // NewPriorFitter returns a fitter for frames of width×height pixels and lags
@@ -113,10 +119,15 @@ func (f *PriorFitter) guarded(step func() error) error {
 // Last returns the unit's latest fit.
 func (f *PriorFitter) Last(unit int) (PriorFit, bool) {
 	u, ok := f.units[unit]
-	if !ok || u.last.Weights == nil {
+	if !ok || !u.fitted {
 		return PriorFit{}, false
 	}
-	return u.last, true
+	fit := u.last
+	fit.Weights = make([]float64, f.width*f.height*f.lags)
+	for i, a := range fit.Window.Indices(f.width, f.height) {
+		fit.Weights[a] = u.lastMu[i]
+	}
+	return fit, true
 }
 
 // Forget drops the unit's state; its next Refit starts cold.
@@ -245,7 +256,9 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 	for i, a := range f.idx {
 		fit.Weights[a] = bestMu[i]
 	}
-	u.last = fit
+	u.last, u.fitted = fit, true
+	u.last.Weights = nil
+	u.lastMu = append(u.lastMu[:0], bestMu[:len(f.idx)]...)
 	return fit, nil
 }
 

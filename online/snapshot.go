@@ -1,5 +1,7 @@
 package online
 
+import "math"
+
 // Features summarise one unit's estimated field.
 type Features struct {
 	PeakLag   int   `json:"peak_lag"`   // lag index (0 = frame on screen during the bin) with the largest energy
@@ -109,7 +111,9 @@ type UnitDetail struct {
 	Ridge       Floats `json:"ridge"` // the exact ridge weights, same layout
 	Intercept   Float  `json:"intercept"`
 	// Z is each ridge weight over its sampling standard deviation under the
-	// null (mean z² ≈ 1 without a field; see zscore.go).
+	// null (mean z² ≈ 1 without a field; see zscore.go). A snapshot's
+	// Detail computes it when asked (from zScale and zDiag), so that the
+	// updates do not keep a third array per unit.
 	Z Floats `json:"z"`
 	// Prior is the smooth-local estimate (posterior mean under the
 	// evidence-optimised smoothness-and-locality prior), same layout as
@@ -136,6 +140,11 @@ type UnitDetail struct {
 	STCState string `json:"stc_state,omitempty"`
 	// History of reliability over the block, one point per update.
 	History []HistoryPoint `json:"history"`
+
+	// The z scores' ingredients: σ² times the spike-train correction, and
+	// the update's sampling variance of each weight (shared by its units).
+	zScale float64
+	zDiag  []float64
 }
 
 // HistoryPoint is one past value of a unit's reliability.
@@ -195,5 +204,23 @@ func (s *Snapshot) Detail(id string) (*UnitDetail, bool) {
 		return nil, false
 	}
 	d, ok := s.details[id]
+	if ok && d.Z == nil && d.zDiag != nil {
+		c := *d // the snapshot's own stays as it is: concurrent reads
+		c.Z = zScores(d.Ridge, d.zScale, d.zDiag)
+		return &c, true
+	}
 	return d, ok
+}
+
+// zScores is w_i / √(scale·diag_i), 0 where that is not finite.
+func zScores(w Floats, scale float64, diag []float64) Floats {
+	z := make(Floats, len(w))
+	for i, v := range w {
+		x := float64(v) / math.Sqrt(scale*diag[i])
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			x = 0
+		}
+		z[i] = Float(x)
+	}
+	return z
 }

@@ -14,18 +14,19 @@ import (
 type ridgeCommon struct {
 	wh     []float64  // ridge weights of the half indicator
 	pdiag  []float64  // sampling variance of each weight per unit σ² (zscore.go)
+	zdiag  []float64  // a copy of pdiag for this update's snapshot (its z scores)
 	t1, t2 float64    // hat-matrix traces
 	lag    *lagShared // stimulus lag correlation, for the correlated-stimulus test
 }
 
 // scratch is one worker's buffers for per-unit statistics.
 type scratch struct {
-	// w, sta and z are set by unitDetail to the arrays of the unit's
+	// w and sta are set by unitDetail to the arrays of the unit's
 	// snapshot; the others are reused from unit to unit.
-	w, wa, ha, hb, sta, cross, z []float64
-	pa, pb                       []float64 // the predictive check's scratch
-	white                        *WhiteTest
-	features                     *FeatureFinder
+	w, wa, ha, hb, sta, cross []float64
+	pa, pb                    []float64 // the predictive check's scratch
+	white                     *WhiteTest
+	features                  *FeatureFinder
 }
 
 func (m *Mapper) newScratch() *scratch {
@@ -64,6 +65,7 @@ func (m *Mapper) Update() *Snapshot {
 		sh.t1, sh.t2 = m.ridge.samplingDiagTraces(sh.pdiag)
 		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda, m.ridge)
 	}
+	sh.zdiag = slices.Clone(sh.pdiag)
 	m.sta.CacheMeans()
 	n := len(m.ids)
 	details := make([]*UnitDetail, n)
@@ -119,9 +121,9 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	}
 	// The ridge, STA and z arrays of the snapshot are the scratch of this
 	// unit's computation (no copies).
-	arrays, views := newFloatArrays(3, m.dim)
-	d.Ridge, d.STA, d.Z = arrays[0], arrays[1], arrays[2]
-	s.w, s.sta, s.z = views[0], views[1], views[2]
+	arrays, views := newFloatArrays(2, m.dim)
+	d.Ridge, d.STA = arrays[0], arrays[1]
+	s.w, s.sta = views[0], views[1]
 	d.ID = m.ids[u]
 	d.Spikes = m.received[u]
 	d.Flagged = m.flagged[u]
@@ -157,12 +159,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	var sig Significance
 	var err error
 	corr, perSpike := m.cal.correction(sh.lag, cfg.Lags, u, m.used, m.spikes[u])
-	for i := range s.z {
-		s.z[i] = s.w[i] / math.Sqrt(sigma2*corr.Mean*sh.pdiag[i])
-		if math.IsNaN(s.z[i]) || math.IsInf(s.z[i], 0) {
-			s.z[i] = 0
-		}
-	}
+	d.zScale, d.zDiag = sigma2*corr.Mean, sh.zdiag // z, when asked (Snapshot.Detail)
 	if cfg.White {
 		sig, err = s.white.UnitCross(nil, s.cross, m.sta, u, cfg.PixelVariance)
 		corr = SpikeCorrelation{Mean: 1, Var: 1} // the white test whitens exactly
@@ -255,7 +252,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 			d.ETA = Float(eta)
 		}
 	}
-	s.w, s.sta, s.z = nil, nil, nil // the snapshot's now, not to be written again
+	s.w, s.sta = nil, nil // the snapshot's now, not to be written again
 	return d
 }
 

@@ -3,6 +3,7 @@ package online
 import (
 	"math"
 	"math/rand/v2"
+	"sync"
 	"testing"
 
 	"gonum.org/v1/gonum/mat"
@@ -107,4 +108,41 @@ func TestZNullMean(t *testing.T) {
 			}
 		})
 	}
+}
+
+// TestDetailZConcurrent: the z scores a snapshot computes when asked are the
+// same on every call and from several goroutines at once (run under -race:
+// Detail must not write the snapshot's shared state).
+func TestDetailZConcurrent(t *testing.T) {
+	m, err := NewMapper(Config{Width: 4, Height: 3, Lags: 2, White: true, PixelVariance: 1, NoPrior: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer m.Close()
+	rng := rand.New(rand.NewPCG(5, 5))
+	m.Unit("a")
+	frame := make([]float64, 12)
+	for range 2000 {
+		for i := range frame {
+			frame[i] = float64(rng.IntN(2)*2 - 1)
+		}
+		m.AddBin(frame, []Count{{Unit: 0, N: float64(rng.IntN(3))}})
+	}
+	s := m.Update()
+	first, _ := s.Detail("a")
+	if len(first.Z) != 24 {
+		t.Fatalf("%d z scores, want 24", len(first.Z))
+	}
+	var wg sync.WaitGroup
+	for range 4 {
+		wg.Go(func() {
+			d, _ := s.Detail("a")
+			for i, z := range d.Z {
+				if z != first.Z[i] {
+					t.Errorf("z[%d] = %v, first call %v", i, z, first.Z[i])
+				}
+			}
+		})
+	}
+	wg.Wait()
 }
