@@ -272,7 +272,12 @@ func (d *durable) admit(m message) bool {
 		d.fresh = false
 		return true
 	case m.seq <= d.last:
+		// Processed before: its acknowledgement was lost. Acknowledging it
+		// now (all up to it) ends its redeliveries.
 		d.dups.Add(1)
+		if m.js != nil {
+			_ = m.js.Ack()
+		}
 		return false
 	}
 	d.needResync = true
@@ -291,11 +296,12 @@ func (d *durable) processed(m message) {
 	}
 }
 
-// ack acknowledges every message processed so far (AckAll). A lost
-// acknowledgement only means a redelivery, which admit skips.
+// ack acknowledges every message processed so far (AckAll); one that
+// could not be sent is tried again on the next tick. One lost on the way
+// only means a redelivery after the consumer's ack wait, which admit skips
+// and acknowledges.
 func (d *durable) ack() {
-	if d.unacked != nil {
-		_ = d.unacked.Ack()
+	if d.unacked != nil && d.unacked.Ack() == nil {
 		d.unacked, d.nUnacked = nil, 0
 	}
 }

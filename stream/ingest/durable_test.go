@@ -167,12 +167,13 @@ func TestDurableServerRestart(t *testing.T) {
 	t.Logf("server restarted: %d spikes in %d messages, none lost; %d redeliveries skipped, %d consumer recreations",
 		total, p.n, h.Duplicates, h.Resyncs)
 	// Every processed message is acknowledged: the consumer's floor is the
-	// block end.
+	// block end, at the latest after one ack wait (an acknowledgement lost
+	// around the restart brings a redelivery, which is acknowledged).
 	cons, err := jetstream.New(js.Connect(t))
 	if err != nil {
 		t.Fatal(err)
 	}
-	deadline := time.Now().Add(20 * time.Second)
+	deadline := time.Now().Add(consumerAckWait + 20*time.Second)
 	for {
 		c, err := cons.Consumer(context.Background(), h.Stream, h.Consumer)
 		if err != nil {
