@@ -360,7 +360,9 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 		m.usedA++
 	}
 	m.growColumns()
-	m.sta.AddBin(m.x, halfA, counts)
+	// x is the shift of the previous bin's row unless this is the first
+	// bin with a full history since the lags (re)started.
+	m.sta.addBin(m.x, halfA, counts, m.added > int64(m.cfg.Lags))
 	m.log.addBin(halfA, counts)
 	m.cal.addCounts(m.used-1, halfA, counts)
 	for _, c := range counts {

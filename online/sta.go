@@ -339,6 +339,13 @@ func (s *STA) block(u, part int) []float64 {
 // counts add). A wrong length of x is a programming error and panics.
 // AddBin does not allocate unless a new unit index arrives.
 func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
+	s.addBin(x, halfA, counts, false)
+}
+
+// addBin is AddBin for a caller that knows whether x is the shift of the
+// previous bin's lagged row (the Mapper, which builds x from its ring of
+// frames): shifted skips the comparison of the lags, D values per bin.
+func (s *STA) addBin(x []float64, halfA bool, counts []Count, shifted bool) {
 	if len(x) != s.dim {
 		panic(fmt.Sprintf("online: STA.AddBin: len(x) = %d, want %d", len(x), s.dim))
 	}
@@ -349,7 +356,7 @@ func (s *STA) AddBin(x []float64, halfA bool, counts []Count) {
 	k := s.n[0] + s.n[1]               // index of this bin
 	gfloats.Add(s.sumX[h][:len(x)], x) // gonum's vector kernels: this is the message path
 	if s.dim > 0 {
-		if s.batchN > 0 && !s.continues(x) {
+		if s.batchN > 0 && !shifted && !s.continues(x) {
 			s.foldBatch()
 		}
 		if s.batchN == 0 {

@@ -6,6 +6,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"os"
+	"slices"
 	"testing"
 )
 
@@ -302,4 +303,65 @@ func ExampleSTA() {
 	// Output:
 	// spikes 400, STA of pixel 0 at lag 1: 0.99
 	// Q = 398 on 6 degrees of freedom, -log10 p > 50: true, err <nil>
+}
+
+// TestMapperSTAAcrossLagRestart: a bad frame mid-stream restarts the lag
+// history (Mapper.RestartLags); the bins after it must not be folded as
+// shifts of the bins before (the Mapper tells the STA when a row is a
+// shift). The STA is compared with the spike-triggered average summed
+// directly from the used bins' lagged rows (Chichilnisky 2001's
+// definition: Σ y x / Σ y − x̄).
+func TestMapperSTAAcrossLagRestart(t *testing.T) {
+	const w, h, lags, bins = 4, 3, 3, 600
+	p := w * h
+	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer m.Close()
+	m.Unit("a")
+	r := rand.New(rand.NewPCG(9, 9))
+	d := p * lags
+	sumYX, sumX := make([]float64, d), make([]float64, d)
+	var sumY, used float64
+	var history [][]float64 // frames since the lags (re)started
+	for k := range bins {
+		frame := make([]float64, p)
+		for i := range frame {
+			frame[i] = float64(r.IntN(2)*2 - 1)
+		}
+		y := float64(r.IntN(3))
+		if k == 200 || k == 401 {
+			bad := slices.Clone(frame)
+			bad[5] = math.NaN()
+			if err := m.AddBin(bad, []Count{{Unit: 0, N: 1}}); err == nil {
+				t.Fatal("a NaN frame was accepted")
+			}
+			history = history[:0]
+		}
+		if err := m.AddBin(frame, []Count{{Unit: 0, N: y}}); err != nil {
+			t.Fatal(err)
+		}
+		history = append(history, frame)
+		if len(history) < lags {
+			continue
+		}
+		for l := range lags {
+			f := history[len(history)-1-l]
+			for i, v := range f {
+				sumYX[l*p+i] += y * v
+				sumX[l*p+i] += v
+			}
+		}
+		sumY += y
+		used++
+	}
+	got := make([]float64, d)
+	m.sta.STATo(got, 0)
+	for i := range got {
+		want := sumYX[i]/sumY - sumX[i]/used
+		if math.Abs(got[i]-want) > 1e-12 {
+			t.Fatalf("STA[%d] = %.15g, summed directly %.15g", i, got[i], want)
+		}
+	}
 }
