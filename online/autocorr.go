@@ -110,7 +110,7 @@ func (c *countAutocov) autocovTo(dst []float64, u int, m int64, sy float64) {
 	K := int64(c.k)
 	mean := sy / float64(m)
 	var headSum, tailSum float64
-	for d := int64(0); d <= K && d < m; d++ {
+	for d := int64(0); d <= K && d < m && d < int64(len(dst)); d++ {
 		if d > 0 {
 			if d-1 < K {
 				headSum += c.head[u][d-1]

@@ -247,6 +247,9 @@ func NewMapper(cfg Config) (*Mapper, error) {
 	m.log.start(nil)
 	m.snap = m.emptySnapshot()
 	m.cal = newCalibration(&cfg, m.pixels)
+	// The STA's count lag products (lags 0…L−1) are the first of the
+	// calibration's (0…32), over the same used bins: one set is kept.
+	m.sta.shareCounts(m.cal.counts)
 	return m, nil
 }
 

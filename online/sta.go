@@ -46,7 +46,10 @@ type STA struct {
 	stride int           // floats per unit in data
 	data   []float64     // per unit: Σyx A (D), Σyx B (D)
 	counts *countAutocov // the counts' lag products at lags 0…L−1 (nil for L = 0)
-	sy     [][2]float64  // Σy per half
+	// countsShared: counts belongs to the owner (shareCounts), who adds
+	// every bin's counts to it; AddBin does not.
+	countsShared bool
+	sy           [][2]float64 // Σy per half
 
 	rejected int64
 
@@ -156,6 +159,16 @@ func (s *STA) Grow(units int) {
 	}
 	s.sy = append(s.sy, make([][2]float64, add)...)
 	s.units = units
+}
+
+// shareCounts makes the STA read its count lag products from c, which
+// covers at least lags 0…L−1 of the same bins and to which the owner adds
+// every bin's counts (the Mapper's calibration keeps lags 0…32).
+func (s *STA) shareCounts(c *countAutocov) {
+	if s.lags == 0 || c == nil || c.k < s.lags-1 {
+		return
+	}
+	s.counts, s.countsShared = c, true
 }
 
 // Flush folds the batched bins into the cross sums and drains the bit
@@ -382,7 +395,7 @@ func (s *STA) addBin(x []float64, halfA bool, counts []Count, shifted bool) {
 		}
 		s.batchSpikes = append(s.batchSpikes, batchSpike{unit: int32(u), bin: int32(j), half: int32(h), n: y})
 		s.sy[u][h] += y
-		if s.counts != nil {
+		if s.counts != nil && !s.countsShared {
 			s.counts.add(u, k, y)
 		}
 	}

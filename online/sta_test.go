@@ -365,3 +365,58 @@ func TestMapperSTAAcrossLagRestart(t *testing.T) {
 		}
 	}
 }
+
+// TestMapperSTASharedCounts: inside a Mapper the STA reads its count lag
+// products from the calibration's (lags 0…32 of the same bins); they must
+// equal what a standalone STA fed the same rows keeps itself, bit for bit,
+// lag by lag (the autocovariance the white-noise test whitens with).
+func TestMapperSTASharedCounts(t *testing.T) {
+	const w, h, lags, bins = 3, 2, 5, 3000
+	p := w * h
+	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer m.Close()
+	alone := NewSTA(p, lags)
+	for _, id := range []string{"a", "b"} {
+		m.Unit(id)
+	}
+	r := rand.New(rand.NewPCG(4, 4))
+	var frames [][]float64
+	for k := range bins {
+		frame := make([]float64, p)
+		for i := range frame {
+			frame[i] = float64(r.IntN(2)*2 - 1)
+		}
+		var counts []Count
+		for u := range 2 {
+			if n := r.IntN(4) - 1; n > 0 { // bursts of 1 or 2
+				counts = append(counts, Count{Unit: u, N: float64(n)})
+			}
+		}
+		if err := m.AddBin(frame, counts); err != nil {
+			t.Fatal(err)
+		}
+		frames = append(frames, frame)
+		if k < lags-1 {
+			continue
+		}
+		x := make([]float64, p*lags)
+		for l := range lags {
+			copy(x[l*p:(l+1)*p], frames[k-l])
+		}
+		chunk := int64(float64(k-lags+1) * m.cfg.FramePeriod / m.cfg.ChunkSeconds)
+		alone.AddBin(x, chunk%2 == 0, counts)
+	}
+	got, want := make([]float64, lags), make([]float64, lags)
+	for u := range 2 {
+		m.sta.AutocovTo(got, u)
+		alone.AutocovTo(want, u)
+		for d := range got {
+			if got[d] != want[d] {
+				t.Errorf("unit %d lag %d: %v in the mapper, %v alone", u, d, got[d], want[d])
+			}
+		}
+	}
+}
