@@ -314,11 +314,7 @@ func ExampleSTA() {
 func TestMapperSTAAcrossLagRestart(t *testing.T) {
 	const w, h, lags, bins = 4, 3, 3, 600
 	p := w * h
-	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer m.Close()
+	m := whiteMapper(t, w, h, lags)
 	m.Unit("a")
 	r := rand.New(rand.NewPCG(9, 9))
 	d := p * lags
@@ -373,11 +369,7 @@ func TestMapperSTAAcrossLagRestart(t *testing.T) {
 func TestMapperSTASharedCounts(t *testing.T) {
 	const w, h, lags, bins = 3, 2, 5, 3000
 	p := w * h
-	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer m.Close()
+	m := whiteMapper(t, w, h, lags)
 	alone := NewSTA(p, lags)
 	for _, id := range []string{"a", "b"} {
 		m.Unit(id)
@@ -419,4 +411,16 @@ func TestMapperSTASharedCounts(t *testing.T) {
 			}
 		}
 	}
+}
+
+// whiteMapper is a mapper of white binary noise without the prior fits,
+// closed when the test ends.
+func whiteMapper(t *testing.T, w, h, lags int) *Mapper {
+	t.Helper()
+	m, err := NewMapper(Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1, NoPrior: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(m.Close)
+	return m
 }
