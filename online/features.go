@@ -269,7 +269,6 @@ func (f *FeatureFinder) shape(m []float64, polarity float64) gauss {
 		f.pos[i] = polarity * v
 	}
 	mom := f.moments(m)
-	f.Fitted = false
 	if f.MomentsOnly {
 		return mom
 	}

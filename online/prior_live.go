@@ -1,10 +1,11 @@
 package online
 
 import (
-	"livefield/online/internal/fastmat"
 	"math"
 	"runtime"
 	"sync"
+
+	"livefield/online/internal/fastmat"
 )
 
 // The smooth-local estimate, live. After every Update the mapper hands a

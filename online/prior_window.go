@@ -258,7 +258,7 @@ func (f *PriorFitter) Refit(unit int, st PriorStats) (PriorFit, error) {
 	}
 	u.last, u.fitted = fit, true
 	u.last.Weights = nil
-	u.lastMu = append(u.lastMu[:0], bestMu[:len(f.idx)]...)
+	u.lastMu = bestMu // this refit's own
 	return fit, nil
 }
 

@@ -31,9 +31,11 @@ import (
 // 0/1 levels and integer counts. Units are spread
 // over the cores by fastmat.Each. A bin whose lagged row is not the shift of
 // the previous bin's (a restarted lag history) starts a new batch. Per bin
-// AddBin costs a copy of one frame, D comparisons, D additions for the
-// stimulus sums and P comparisons for the two-level check. Units are indices 0…Units()−1 and grow when a larger index
-// arrives (a new unit's earlier counts are zero). An STA is not safe for
+// AddBin costs a copy of one frame, D comparisons to find out whether the
+// row is a shift (skipped for the Mapper, which knows), D additions for the
+// stimulus sums and P comparisons for the two-level check. Units are
+// indices 0…Units()−1 and grow when a larger index arrives (a new unit's
+// earlier counts are zero). An STA is not safe for
 // concurrent use, except for reads from several goroutines after
 // CacheMeans.
 type STA struct {

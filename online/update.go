@@ -13,8 +13,7 @@ import (
 // statistics read during one Update.
 type ridgeCommon struct {
 	wh     []float64  // ridge weights of the half indicator
-	pdiag  []float64  // sampling variance of each weight per unit σ² (zscore.go)
-	zdiag  []float64  // a copy of pdiag for this update's snapshot (its z scores)
+	pdiag  []float64  // sampling variance of each weight per unit σ² (zscore.go); kept by the snapshot
 	t1, t2 float64    // hat-matrix traces
 	lag    *lagShared // stimulus lag correlation, for the correlated-stimulus test
 }
@@ -55,17 +54,17 @@ func (m *Mapper) Update() *Snapshot {
 	m.updates++
 	sh := &m.common
 	if len(sh.wh) != m.dim {
-		sh.wh, sh.pdiag = make([]float64, m.dim), make([]float64, m.dim)
+		sh.wh = make([]float64, m.dim)
 	}
 	clear(sh.wh)
-	clear(sh.pdiag)
+	// pdiag is new each update: the snapshot's z scores keep it.
+	sh.pdiag = make([]float64, m.dim)
 	sh.t1, sh.t2 = 0, 0
 	if m.ridge.Rows() > 0 {
 		m.ridge.WeightsTo(sh.wh, 0)
 		sh.t1, sh.t2 = m.ridge.samplingDiagTraces(sh.pdiag)
 		sh.lag = m.cal.shared(m.cfg.Lags, m.used, m.cfg.Lambda, m.ridge)
 	}
-	sh.zdiag = slices.Clone(sh.pdiag)
 	m.sta.CacheMeans()
 	n := len(m.ids)
 	details := make([]*UnitDetail, n)
@@ -119,7 +118,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		Shape:       [3]int{cfg.Lags, cfg.Height, cfg.Width},
 		FramePeriod: Float(cfg.FramePeriod),
 	}
-	// The ridge, STA and z arrays of the snapshot are the scratch of this
+	// The ridge and STA arrays of the snapshot are the scratch of this
 	// unit's computation (no copies).
 	arrays, views := newFloatArrays(2, m.dim)
 	d.Ridge, d.STA = arrays[0], arrays[1]
@@ -159,7 +158,7 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	var sig Significance
 	var err error
 	corr, perSpike := m.cal.correction(sh.lag, cfg.Lags, u, m.used, m.spikes[u])
-	d.zScale, d.zDiag = sigma2*corr.Mean, sh.zdiag // z, when asked (Snapshot.Detail)
+	d.zScale, d.zDiag = sigma2*corr.Mean, sh.pdiag // z, when asked (Snapshot.Detail)
 	if cfg.White {
 		sig, err = s.white.UnitCross(nil, s.cross, m.sta, u, cfg.PixelVariance)
 		corr = SpikeCorrelation{Mean: 1, Var: 1} // the white test whitens exactly
