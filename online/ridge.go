@@ -55,13 +55,13 @@ type Ridge struct {
 	colCap  int
 
 	// Flush scratch, sized for rowCap rows (bp = pending rounded up to 12).
-	at, vt, ut, u  []float64 // ld×rowCap or rowCap×ld
+	at, vt, ut     []float64 // ld×rowCap or rowCap×ld
 	s, linv, linvT []float64 // rowCap²
 	et, ft         []float64 // colCap×rowCap
 
 	bufs    []fastmat.Buf
 	job     ridgeJob
-	wv, wvt [][]float64 // per-worker parts of V and Vt for the V pass
+	wv      [][]float64 // per-lane parts of V for the V pass
 	hatDiag []float64   // HatTraces' scratch for the sampling diagonal
 
 	err      error
@@ -105,7 +105,6 @@ func NewRidge(dim, cols int, lambda float64) (*Ridge, error) {
 	r.job.r = r
 	r.bufs = make([]fastmat.Buf, fastmat.Workers())
 	r.wv = make([][]float64, len(r.bufs))
-	r.wvt = make([][]float64, len(r.bufs))
 	r.growCols(cols)
 	r.Reset()
 	return r, nil
@@ -191,7 +190,6 @@ func (r *Ridge) growRows(rows int) {
 	r.at = make([]float64, r.ld*rows)
 	r.vt = make([]float64, rows*r.ld)
 	r.ut = make([]float64, rows*r.ld)
-	r.u = make([]float64, r.ld*rows)
 	r.s = make([]float64, rows*rows)
 	r.linv = make([]float64, rows*rows)
 	r.linvT = make([]float64, rows*rows)
@@ -199,7 +197,6 @@ func (r *Ridge) growRows(rows int) {
 	r.ft = make([]float64, r.colCap*rows)
 	for w := range r.wv {
 		r.wv[w] = make([]float64, r.ld*rows)
-		r.wvt[w] = make([]float64, rows*r.ld)
 	}
 }
 
@@ -264,31 +261,22 @@ func (r *Ridge) Flush() {
 	ld, cols := r.ld, r.cols
 
 	// At = Aᵀ (ld×bp); Yt = Yᵀ goes straight into et (cols×bp).
+	r.job.phase, r.job.bp = phaseTranspose, bp
+	fastmat.Each(r.nt+(cols+tileSize-1)/tileSize, &r.job)
 	at, et := r.at[:ld*bp], r.et[:cols*bp]
-	for k := range bp {
-		row := r.a[k*ld : k*ld+ld]
-		for i, v := range row {
-			at[i*bp+k] = v
-		}
-		yr := r.y[k*r.colCap : k*r.colCap+cols]
-		for u, v := range yr {
-			et[u*bp+k] = v
-		}
-	}
 
 	// V = P Aᵀ from the lower triangle, one tile at a time while it is in
-	// cache: P_IJ At_J goes to rows I of V and, below the diagonal, the
-	// transposed half A_I P_IJ to columns J of Vt. Each lane (one per
+	// cache: P_IJ At_J goes to rows I of V and, below the diagonal,
+	// P_IJᵀ At_I (P_JI At_I, by symmetry) to rows J. Each lane (one per
 	// worker) accumulates a fixed set of tiles, in a fixed order, into its
-	// own V and Vt; they are summed into Vt afterwards, lane by lane. The
-	// sums therefore do not depend on which worker took which piece: the
-	// result is the same bit for bit from run to run.
+	// own V; the lanes are summed into Vt afterwards, lane by lane. The sums
+	// therefore do not depend on which worker took which piece: the result
+	// is the same bit for bit from run to run.
 	vt := r.vt[:bp*ld]
 	for w := range r.wv {
 		clear(r.wv[w][:ld*bp])
-		clear(r.wvt[w][:bp*ld])
 	}
-	r.job.phase, r.job.bp = phaseV, bp
+	r.job.phase = phaseV
 	fastmat.Each(len(r.wv), &r.job)
 	r.job.phase = phaseVSum
 	fastmat.Each((ld+tileSize-1)/tileSize, &r.job)
@@ -308,16 +296,10 @@ func (r *Ridge) Flush() {
 	}
 	linv, linvT := r.linv[:bp*bp], r.linvT[:bp*bp]
 
-	// Ut = L⁻¹ Vt (bp×ld), U = Utᵀ.
-	ut, u := r.ut[:bp*ld], r.u[:ld*bp]
+	// Ut = L⁻¹ Vt (bp×ld).
+	ut := r.ut[:bp*ld]
 	clear(ut)
 	fastmat.MulAdd(bp, ld, bp, 1, linv, bp, vt, ld, ut, ld)
-	for k := range bp {
-		row := ut[k*ld : k*ld+ld]
-		for i, x := range row {
-			u[i*bp+k] = x
-		}
-	}
 
 	if cols > 0 {
 		// Et = Yt − Wt At, Ft = Et L⁻ᵀ, J += ‖Ft row‖², Wt += Ft Ut.
@@ -335,7 +317,7 @@ func (r *Ridge) Flush() {
 		fastmat.MulAdd(cols, ld, bp, 1, ft, bp, ut, ld, r.wt, ld)
 	}
 
-	// P −= U Uᵀ on the lower-triangle tiles.
+	// P −= U Uᵀ (U = Utᵀ) on the lower-triangle tiles.
 	r.job.phase = phaseP
 	fastmat.Each(r.nt*(r.nt+1)/2, &r.job)
 
@@ -396,7 +378,8 @@ func ridgeCholInv(s, linv, linvT []float64, n int) bool {
 
 // The parallel phases of Flush and of mirroring P.
 const (
-	phaseV = iota
+	phaseTranspose = iota
+	phaseV
 	phaseVSum
 	phaseP
 	phaseMirror
@@ -423,21 +406,15 @@ func (j *ridgeJob) Do(i, w int) {
 			pt := r.p[i0*ld+j0:]
 			buf.MulAdd(mi, bp, mj, 1, pt, ld, r.at[j0*bp:], bp, r.wv[i][i0*bp:], bp)
 			if I != J {
-				buf.MulAdd(bp, mj, mi, 1, r.a[i0:], ld, pt, ld, r.wvt[i][j0:], ld)
+				buf.MulAddT(mj, bp, mi, 1, pt, ld, r.at[i0*bp:], bp, r.wv[i][j0*bp:], bp)
 			}
 		}
 	case phaseVSum:
-		// Columns [lo, hi) of Vt: the sum of the workers' parts.
+		// Columns [lo, hi) of Vt: the sum of the lanes' parts, lane by lane.
 		lo, sz := r.tile(i)
 		vt := r.vt[:bp*ld]
 		for k := range bp {
-			row := vt[k*ld+lo : k*ld+lo+sz]
-			clear(row)
-			for w := range r.wv {
-				for c, x := range r.wvt[w][k*ld+lo : k*ld+lo+sz] {
-					row[c] += x
-				}
-			}
+			clear(vt[k*ld+lo : k*ld+lo+sz])
 		}
 		for w := range r.wv {
 			wv := r.wv[w]
@@ -447,14 +424,39 @@ func (j *ridgeJob) Do(i, w int) {
 				}
 			}
 		}
+	case phaseTranspose:
+		// Pieces 0…nt−1: columns of A into rows of At; then blocks of
+		// columns of Y into rows of Yt (in et).
+		if i < r.nt {
+			lo, sz := r.tile(i)
+			transposeRows(r.at[lo*bp:], bp, r.a[lo:], ld, bp, sz)
+			return
+		}
+		lo := (i - r.nt) * tileSize
+		transposeRows(r.et[lo*bp:], bp, r.y[lo:], r.colCap, bp, min(tileSize, r.cols-lo))
 	case phaseP:
 		// P_IJ −= U_I Ut_J.
 		I, J := ridgeTileOf(i)
 		i0, mi := r.tile(I)
 		j0, mj := r.tile(J)
-		buf.MulAdd(mi, mj, bp, -1, r.u[i0*bp:], bp, r.ut[j0:], ld, r.p[i0*ld+j0:], ld)
+		buf.MulAddT(mi, mj, bp, -1, r.ut[i0:], ld, r.ut[j0:], ld, r.p[i0*ld+j0:], ld)
 	case phaseMirror:
 		r.mirrorRows(i)
+	}
+}
+
+// transposeRows writes the transpose of the rows×cols block src (stride
+// lds) to dst (cols×rows, stride ldd), eight source rows at a time so that
+// each destination row is written in runs.
+func transposeRows(dst []float64, ldd int, src []float64, lds, rows, cols int) {
+	for k0 := 0; k0 < rows; k0 += 8 {
+		k1 := min(k0+8, rows)
+		for c := range cols {
+			d := dst[c*ldd+k0 : c*ldd+k1]
+			for k := range d {
+				d[k] = src[(k0+k)*lds+c]
+			}
+		}
 	}
 }
 

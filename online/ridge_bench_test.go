@@ -11,7 +11,7 @@ import (
 // ridgeBytes is the memory held by a Ridge's slices.
 func ridgeBytes(r *Ridge) float64 {
 	n := 0
-	for _, s := range append([][]float64{r.p, r.wt, r.obj, r.a, r.y, r.at, r.vt, r.ut, r.u, r.s, r.linv, r.linvT, r.et, r.ft}, append(r.wv, r.wvt...)...) {
+	for _, s := range append([][]float64{r.p, r.wt, r.obj, r.a, r.y, r.at, r.vt, r.ut, r.s, r.linv, r.linvT, r.et, r.ft}, r.wv...) {
 		n += cap(s)
 	}
 	return float64(8 * n)

@@ -3,12 +3,12 @@ package fastmat
 import "fmt"
 
 // microKernel adds alpha times an mr×nr block of X·Y to C: x points at mr
-// rows of X (stride ldx, k values each), y at a packed panel (k rows of nr
-// contiguous values). k must be positive.
+// rows of X, element (i, p) at x + i·rs + p·ks (k values each), y at a
+// packed panel (k rows of nr contiguous values). k must be positive.
 type microKernel struct {
 	name   string
 	mr, nr int
-	fn     func(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha float64)
+	fn     func(k int, x *float64, rs, ks int, y *float64, c *float64, ldc int, alpha float64)
 }
 
 // active is the kernel in use: the fastest one this CPU runs, or none (the
@@ -43,13 +43,39 @@ func (b *Buf) MulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float
 	if m == 0 || n == 0 || k == 0 || alpha == 0 {
 		return
 	}
-	b.mulAdd(m, n, k, alpha, x, ldx, y, ldy, c, ldc)
+	b.mulAdd(m, n, k, alpha, x, ldx, false, y, ldy, c, ldc)
 }
 
-func (b *Buf) mulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
+// MulAddT computes C += alpha·Xᵀ·Y on the calling goroutine, where X is k×m
+// (so Xᵀ is m×k), Y is k×n and C is m×n, all row-major with strides ldx,
+// ldy and ldc. X is read in place: the kernels walk its columns, so the
+// transpose is never formed.
+func (b *Buf) MulAddT(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
+	// Xᵀ·Y has the shapes of op(X)·Y; only X's layout (k×m) differs.
+	check(m, n, k, nil, max(k, 1), y, ldy, c, ldc)
+	switch {
+	case ldx < max(m, 1):
+		panic(fmt.Sprintf("fastmat: stride too small: ldx=%d (X is k×m, m=%d)", ldx, m))
+	case m > 0 && k > 0 && len(x) < (k-1)*ldx+m:
+		panic(fmt.Sprintf("fastmat: x has %d elements, needs %d", len(x), (k-1)*ldx+m))
+	}
+	if m == 0 || n == 0 || k == 0 || alpha == 0 {
+		return
+	}
+	b.mulAdd(m, n, k, alpha, x, ldx, true, y, ldy, c, ldc)
+}
+
+// mulAdd is C += alpha·op(X)·Y with op(X) = X (m×k, stride ldx) or, when
+// transposed, Xᵀ with X k×m.
+func (b *Buf) mulAdd(m, n, k int, alpha float64, x []float64, ldx int, transposed bool, y []float64, ldy int, c []float64, ldc int) {
+	// Element (i, p) of op(X) is x[i·rs + p·ks].
+	rs, ks := ldx, 1
+	if transposed {
+		rs, ks = 1, ldx
+	}
 	kn := active
 	if kn.fn == nil {
-		goMulAdd(m, n, k, alpha, x, ldx, y, ldy, c, ldc)
+		goMulAdd(m, n, k, alpha, x, rs, ks, y, ldy, c, ldc)
 		return
 	}
 	mr, nr := kn.mr, kn.nr
@@ -65,13 +91,20 @@ func (b *Buf) mulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float
 			packY(b.pack, kb, nb, nr, y[p0*ldy+j0:], ldy)
 			for i0 := 0; i0 < m; i0 += mr {
 				rows := min(mr, m-i0)
-				xp, ldxp := x[i0*ldx+p0:], ldx
+				xp, rsp, ksp := x[i0*rs+p0*ks:], rs, ks
 				if rows < mr {
-					// Copy the last rows of X into a zero-padded block.
-					xp, ldxp = b.xedge[:mr*kb], kb
+					// Copy the last rows of op(X) into a zero-padded block.
+					xp, rsp, ksp = b.xedge[:mr*kb], kb, 1
 					clear(xp)
 					for i := range rows {
-						copy(xp[i*kb:i*kb+kb], x[(i0+i)*ldx+p0:])
+						row := xp[i*kb : i*kb+kb]
+						if transposed {
+							for p := range row {
+								row[p] = x[(p0+p)*ldx+i0+i]
+							}
+						} else {
+							copy(row, x[(i0+i)*ldx+p0:])
+						}
 					}
 				}
 				ci := c[i0*ldc+j0:]
@@ -79,13 +112,13 @@ func (b *Buf) mulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float
 					cols := min(nr, nb-jp)
 					panel := &b.pack[jp*kb]
 					if rows == mr && cols == nr {
-						kn.fn(kb, &xp[0], ldxp, panel, &ci[jp], ldc, alpha)
+						kn.fn(kb, &xp[0], rsp, ksp, panel, &ci[jp], ldc, alpha)
 						continue
 					}
 					// Edge block: compute into scratch, add the part that exists.
 					ce := b.cedge[:mr*nr]
 					clear(ce)
-					kn.fn(kb, &xp[0], ldxp, panel, &ce[0], nr, alpha)
+					kn.fn(kb, &xp[0], rsp, ksp, panel, &ce[0], nr, alpha)
 					for i := range rows {
 						dst := ci[i*ldc+jp : i*ldc+jp+cols]
 						for j, v := range ce[i*nr : i*nr+cols] {
@@ -115,13 +148,13 @@ func packY(dst []float64, kb, nb, nr int, y []float64, ldy int) {
 	}
 }
 
-// goMulAdd is the pure-Go path: C += alpha·X·Y one row of C at a time.
-func goMulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
+// goMulAdd is the pure-Go path: C += alpha·X·Y one row of C at a time,
+// element (i, p) of X at x[i·rs + p·ks] (see the kernels).
+func goMulAdd(m, n, k int, alpha float64, x []float64, rs, ks int, y []float64, ldy int, c []float64, ldc int) {
 	for i := 0; i < m; i++ {
 		ci := c[i*ldc : i*ldc+n]
-		xi := x[i*ldx : i*ldx+k]
-		for p, xv := range xi {
-			a := alpha * xv
+		for p := range k {
+			a := alpha * x[i*rs+p*ks]
 			if a == 0 {
 				continue
 			}
@@ -147,7 +180,7 @@ func check(m, n, k int, x []float64, ldx int, y []float64, ldy int, c []float64,
 		panic(fmt.Sprintf("fastmat: negative size m=%d n=%d k=%d", m, n, k))
 	case ldx < max(k, 1) || ldy < max(n, 1) || ldc < max(n, 1):
 		panic(fmt.Sprintf("fastmat: stride too small: ldx=%d (k=%d) ldy=%d (n=%d) ldc=%d", ldx, k, ldy, n, ldc))
-	case m > 0 && k > 0 && len(x) < (m-1)*ldx+k:
+	case x != nil && m > 0 && k > 0 && len(x) < (m-1)*ldx+k:
 		panic(fmt.Sprintf("fastmat: x has %d elements, needs %d", len(x), (m-1)*ldx+k))
 	case k > 0 && n > 0 && len(y) < (k-1)*ldy+n:
 		panic(fmt.Sprintf("fastmat: y has %d elements, needs %d", len(y), (k-1)*ldy+n))

@@ -14,17 +14,17 @@ var kernels = func() []microKernel {
 	return ks
 }()
 
-// kern4x12 adds alpha times the 4×12 product of four rows of x (stride ldx,
-// k values each) and the packed panel y (k rows of 12) to c (stride ldc),
-// with AVX2 and FMA. k must be positive.
+// kern4x12 adds alpha times the 4×12 product of four rows of X (element
+// (i, p) at x + i·rs + p·ks, k values each) and the packed panel y (k rows
+// of 12) to c (stride ldc), with AVX2 and FMA. k must be positive.
 //
 //go:noescape
-func kern4x12(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha float64)
+func kern4x12(k int, x *float64, rs, ks int, y *float64, c *float64, ldc int, alpha float64)
 
 // kern12x16 is the same for 12 rows and panels of 16, with AVX-512.
 //
 //go:noescape
-func kern12x16(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha float64)
+func kern12x16(k int, x *float64, rs, ks int, y *float64, c *float64, ldc int, alpha float64)
 
 // hasAxpy16 tells whether axpy16 can run (AVX2 and FMA).
 var hasAxpy16 = cpu.X86.HasAVX2 && cpu.X86.HasFMA

@@ -3,22 +3,37 @@
 // Register-blocked micro-kernels for Buf.mulAdd. Each keeps an mr×nr block of
 // C in registers, walks k with one broadcast of X per row and nr/4 (AVX2) or
 // nr/8 (AVX-512) loads of the packed Y panel, and adds alpha times the block
-// to C at the end. The bodies are unrolled on purpose: one instruction per
+// to C at the end. Element (i, p) of X is at x + i·rs + p·ks: rs = ldx and
+// ks = 1 for X as stored, rs = 1 and ks = ldx for the transpose of a stored
+// matrix. The bodies are unrolled on purpose: one instruction per
 // accumulator.
 
-// func kern4x12(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha float64)
-TEXT ·kern4x12(SB), NOSPLIT, $0-56
+// func kern4x12(k int, x *float64, rs, ks int, y *float64, c *float64, ldc int, alpha float64)
+TEXT ·kern4x12(SB), NOSPLIT, $0-64
 	MOVQ k+0(FP), CX
 	MOVQ x+8(FP), SI
-	MOVQ ldx+16(FP), R8
+	MOVQ rs+16(FP), R8
 	SHLQ $3, R8
-	MOVQ y+24(FP), DI
-	MOVQ c+32(FP), DX
-	MOVQ ldc+40(FP), R9
+	MOVQ ks+24(FP), R13
+	SHLQ $3, R13
+	MOVQ y+32(FP), DI
+	MOVQ c+40(FP), DX
+	MOVQ ldc+48(FP), R9
 	SHLQ $3, R9
 	LEAQ (SI)(R8*1), R10
 	LEAQ (R10)(R8*1), R11
 	LEAQ (R11)(R8*1), R12
+	// Ask for the C block that comes next along these rows while this one
+	// is computed (it is often not in cache: C is the large operand).
+	LEAQ (DX)(R9*2), BX
+	PREFETCHT0 96(DX)
+	PREFETCHT0 160(DX)
+	PREFETCHT0 96(DX)(R9*1)
+	PREFETCHT0 160(DX)(R9*1)
+	PREFETCHT0 96(BX)
+	PREFETCHT0 160(BX)
+	PREFETCHT0 96(BX)(R9*1)
+	PREFETCHT0 160(BX)(R9*1)
 	VXORPD Y0, Y0, Y0
 	VXORPD Y1, Y1, Y1
 	VXORPD Y2, Y2, Y2
@@ -57,26 +72,26 @@ loop2:
 	VMOVUPD 96(DI), Y12
 	VMOVUPD 128(DI), Y13
 	VMOVUPD 160(DI), Y14
-	VBROADCASTSD 8(SI), Y15
+	VBROADCASTSD (SI)(R13*1), Y15
 	VFMADD231PD Y12, Y15, Y0
 	VFMADD231PD Y13, Y15, Y1
 	VFMADD231PD Y14, Y15, Y2
-	VBROADCASTSD 8(R10), Y15
+	VBROADCASTSD (R10)(R13*1), Y15
 	VFMADD231PD Y12, Y15, Y3
 	VFMADD231PD Y13, Y15, Y4
 	VFMADD231PD Y14, Y15, Y5
-	VBROADCASTSD 8(R11), Y15
+	VBROADCASTSD (R11)(R13*1), Y15
 	VFMADD231PD Y12, Y15, Y6
 	VFMADD231PD Y13, Y15, Y7
 	VFMADD231PD Y14, Y15, Y8
-	VBROADCASTSD 8(R12), Y15
+	VBROADCASTSD (R12)(R13*1), Y15
 	VFMADD231PD Y12, Y15, Y9
 	VFMADD231PD Y13, Y15, Y10
 	VFMADD231PD Y14, Y15, Y11
-	ADDQ $16, SI
-	ADDQ $16, R10
-	ADDQ $16, R11
-	ADDQ $16, R12
+	LEAQ (SI)(R13*2), SI
+	LEAQ (R10)(R13*2), R10
+	LEAQ (R11)(R13*2), R11
+	LEAQ (R12)(R13*2), R12
 	ADDQ $192, DI
 	DECQ BX
 	JNZ loop2
@@ -103,7 +118,7 @@ tail:
 	VFMADD231PD Y13, Y15, Y10
 	VFMADD231PD Y14, Y15, Y11
 store:
-	VBROADCASTSD alpha+48(FP), Y15
+	VBROADCASTSD alpha+56(FP), Y15
 	VMOVUPD 0(DX), Y12
 	VFMADD231PD Y0, Y15, Y12
 	VMOVUPD Y12, 0(DX)
@@ -146,19 +161,52 @@ store:
 	VZEROUPPER
 	RET
 
-// func kern12x16(k int, x *float64, ldx int, y *float64, c *float64, ldc int, alpha float64)
-TEXT ·kern12x16(SB), NOSPLIT, $0-56
+// func kern12x16(k int, x *float64, rs, ks int, y *float64, c *float64, ldc int, alpha float64)
+TEXT ·kern12x16(SB), NOSPLIT, $0-64
 	MOVQ k+0(FP), CX
 	MOVQ x+8(FP), SI
-	MOVQ ldx+16(FP), R8
+	MOVQ rs+16(FP), R8
 	SHLQ $3, R8
-	MOVQ y+24(FP), DI
-	MOVQ c+32(FP), DX
-	MOVQ ldc+40(FP), R12
+	MOVQ ks+24(FP), R13
+	SHLQ $3, R13
+	MOVQ y+32(FP), DI
+	MOVQ c+40(FP), DX
+	MOVQ ldc+48(FP), R12
 	SHLQ $3, R12
 	LEAQ (R8)(R8*2), R9
 	LEAQ (SI)(R8*4), R10
 	LEAQ (R10)(R8*4), R11
+	// Ask for the C block that comes next along these rows (see kern4x12).
+	MOVQ DX, BX
+	LEAQ (R12)(R12*2), R13
+	PREFETCHT0 128(BX)
+	PREFETCHT0 192(BX)
+	PREFETCHT0 128(BX)(R12*1)
+	PREFETCHT0 192(BX)(R12*1)
+	PREFETCHT0 128(BX)(R12*2)
+	PREFETCHT0 192(BX)(R12*2)
+	PREFETCHT0 128(BX)(R13*1)
+	PREFETCHT0 192(BX)(R13*1)
+	LEAQ (BX)(R12*4), BX
+	PREFETCHT0 128(BX)
+	PREFETCHT0 192(BX)
+	PREFETCHT0 128(BX)(R12*1)
+	PREFETCHT0 192(BX)(R12*1)
+	PREFETCHT0 128(BX)(R12*2)
+	PREFETCHT0 192(BX)(R12*2)
+	PREFETCHT0 128(BX)(R13*1)
+	PREFETCHT0 192(BX)(R13*1)
+	LEAQ (BX)(R12*4), BX
+	PREFETCHT0 128(BX)
+	PREFETCHT0 192(BX)
+	PREFETCHT0 128(BX)(R12*1)
+	PREFETCHT0 192(BX)(R12*1)
+	PREFETCHT0 128(BX)(R12*2)
+	PREFETCHT0 192(BX)(R12*2)
+	PREFETCHT0 128(BX)(R13*1)
+	PREFETCHT0 192(BX)(R13*1)
+	MOVQ ks+24(FP), R13
+	SHLQ $3, R13
 	VPXORQ Z0, Z0, Z0
 	VPXORQ Z1, Z1, Z1
 	VPXORQ Z2, Z2, Z2
@@ -222,13 +270,13 @@ loop:
 	VBROADCASTSD (R11)(R9*1), Z26
 	VFMADD231PD Z24, Z26, Z22
 	VFMADD231PD Z25, Z26, Z23
-	ADDQ $8, SI
-	ADDQ $8, R10
-	ADDQ $8, R11
+	ADDQ R13, SI
+	ADDQ R13, R10
+	ADDQ R13, R11
 	ADDQ $128, DI
 	DECQ CX
 	JNZ loop
-	VBROADCASTSD alpha+48(FP), Z26
+	VBROADCASTSD alpha+56(FP), Z26
 	VMOVUPD 0(DX), Z24
 	VFMADD231PD Z0, Z26, Z24
 	VMOVUPD Z24, 0(DX)

@@ -102,11 +102,11 @@ func (j *mulJob) Do(i, w int) {
 	lo := i * j.step
 	if j.byCols {
 		hi := min(j.n, lo+j.step)
-		pool.bufs[w].mulAdd(j.m, hi-lo, j.k, j.alpha, j.x, j.ldx, j.y[lo:], j.ldy, j.c[lo:], j.ldc)
+		pool.bufs[w].mulAdd(j.m, hi-lo, j.k, j.alpha, j.x, j.ldx, false, j.y[lo:], j.ldy, j.c[lo:], j.ldc)
 		return
 	}
 	hi := min(j.m, lo+j.step)
-	pool.bufs[w].mulAdd(hi-lo, j.n, j.k, j.alpha, j.x[lo*j.ldx:], j.ldx, j.y, j.ldy, j.c[lo*j.ldc:], j.ldc)
+	pool.bufs[w].mulAdd(hi-lo, j.n, j.k, j.alpha, j.x[lo*j.ldx:], j.ldx, false, j.y, j.ldy, j.c[lo*j.ldc:], j.ldc)
 }
 
 // MulAdd computes C += alpha·X·Y, where X is m×k, Y is k×n and C is m×n,

@@ -110,7 +110,7 @@ func (t *trailingJob) Do(i, w int) {
 	strip := t.pieces() - 1 - i
 	lo := strip * trailingStrip
 	hi := min(t.rows, lo+trailingStrip)
-	pool.bufs[w].mulAdd(hi-lo, hi, t.k, -1, t.x[lo*t.k:], t.k, t.y, t.rows, t.c[lo*t.ldc:], t.ldc)
+	pool.bufs[w].mulAdd(hi-lo, hi, t.k, -1, t.x[lo*t.k:], t.k, false, t.y, t.rows, t.c[lo*t.ldc:], t.ldc)
 }
 
 // spdInvertLower overwrites L (lower triangle of A) by Z = L⁻¹, solving
