@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"sync/atomic"
 
 	"gonum.org/v1/gonum/mat"
 
@@ -129,6 +130,10 @@ type priorProblem struct {
 	mc     []float64
 	mKey   priorMKey
 	mValid bool
+
+	// pause, when set and true, asks an evaluation to stop at its next
+	// checkpoint with errPaused (see updateGate).
+	pause  *atomic.Bool
 	formed int // Ms formed so far (BenchmarkPriorRound)
 }
 
@@ -194,6 +199,9 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 		}
 		p.mKey, p.mValid = key, true
 	}
+	if p.paused() {
+		return evaluation{}, errPaused
+	}
 	// B = I + a·M on the lower triangle (all that cholesky reads), then
 	// its Cholesky factor (lower).
 	for r := range k {
@@ -203,11 +211,21 @@ func (p *priorProblem) evaluate(h SmoothLocal, profile bool) (evaluation, error)
 		}
 		row[r]++
 	}
-	if !cholesky(p.m, k, p.tr, &p.buf) {
+	if !cholesky(p.m, k, p.tr, &p.buf, p.pause) {
+		if p.paused() {
+			return evaluation{}, errPaused
+		}
 		return evaluation{}, errors.New("online: smooth-local prior: I + a·LᵀGL is not positive definite")
 	}
 	return p.finish(a, profile, h)
 }
+
+// errPaused is an evaluation given up because an update asked for the cores
+// (updateGate); it is redone afterwards.
+var errPaused = errors.New("online: smooth-local prior: evaluation paused for an update")
+
+// paused reports whether an update asks the evaluation to stop.
+func (p *priorProblem) paused() bool { return p.pause != nil && p.pause.Load() }
 
 // formM writes M = K^½ E^½ G E^½ K^½ into p.mc (its lower triangle is
 // read), with the kernel roots and the envelope of h.
@@ -229,6 +247,9 @@ func (p *priorProblem) formM(h SmoothLocal) error {
 		}
 	}
 	p.kronRows(p.tmp)
+	if p.paused() {
+		return errPaused
+	}
 	transposeTo(p.m, p.tmp, k)
 	p.kronRows(p.m)
 	// M is symmetric up to rounding; its lower triangle is the one used.

@@ -2,6 +2,7 @@ package online
 
 import (
 	"math"
+	"sync/atomic"
 
 	"livefield/online/internal/fastmat"
 )
@@ -16,11 +17,15 @@ const cholBlock = 16
 // panel of cholBlock columns is factored with scalar loops and the trailing
 // matrix is updated by one product on the package's matrix kernel, on the
 // calling goroutine. tr is scratch of at least cholBlock·k values. It
-// reports false when a pivot is not positive.
-func cholesky(a []float64, k int, tr []float64, buf *fastmat.Buf) bool {
+// reports false when a pivot is not positive, and when stop, if not nil,
+// turns true before a panel (a itself is then of no use).
+func cholesky(a []float64, k int, tr []float64, buf *fastmat.Buf, stop *atomic.Bool) bool {
 	var coef [4]float64
 	var rows [4][]float64
 	for j0 := 0; j0 < k; j0 += cholBlock {
+		if stop != nil && stop.Load() {
+			return false
+		}
 		jb := min(cholBlock, k-j0)
 		// The diagonal block of the panel (columns j0…j0+jb−1; earlier
 		// panels are already subtracted by the trailing updates).

@@ -37,7 +37,7 @@ func TestCholesky(t *testing.T) {
 				}
 			}
 			var buf fastmat.Buf
-			if !cholesky(a, k, make([]float64, cholBlock*k), &buf) {
+			if !cholesky(a, k, make([]float64, cholBlock*k), &buf, nil) {
 				t.Fatal("refused a positive definite matrix")
 			}
 			var ref mat.Cholesky
@@ -60,7 +60,7 @@ func TestCholesky(t *testing.T) {
 		})
 	}
 	a := []float64{1, 2, 2, 1} // eigenvalues 3 and −1
-	if cholesky(a, 2, make([]float64, 2*cholBlock), new(fastmat.Buf)) {
+	if cholesky(a, 2, make([]float64, 2*cholBlock), new(fastmat.Buf), nil) {
 		t.Error("accepted an indefinite matrix")
 	}
 }

@@ -100,8 +100,8 @@ type priorRunner struct {
 	lastTurn            map[int]int64   // unit → turn of its last fit
 	turn                int64
 	cross, seed         []float64
-	part, parts         int           // fits the units u with u mod parts = part
-	gate                *sync.RWMutex // passed to the fitters (see priorWorker.gate)
+	part, parts         int         // fits the units u with u mod parts = part
+	gate                *updateGate // passed to the fitters (see priorWorker.gate)
 }
 
 func newPriorRunner(cfg Config) *priorRunner {
@@ -249,9 +249,9 @@ func windowShare(a, b []float64, w PriorWindow, width, height, lags int) float64
 // share of the units, over the latest job.
 type priorWorker struct {
 	// gate is held for reading by each evidence evaluation of a fit and
-	// for writing by Update, so that fits never run beside an update and
-	// an update waits for one evaluation at most.
-	gate    sync.RWMutex
+	// closed by Update, so that fits never run beside an update and an
+	// update waits for a piece of one evaluation at most.
+	gate    updateGate
 	mu      sync.Mutex
 	job     *priorJob           // the latest job (latest wins)
 	idle    int                 // goroutines that have fitted all their units of job

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"sync"
+	"sync/atomic"
 )
 
 // PriorOptions sizes the smooth-local fits. Zero fields take the defaults.
@@ -63,9 +64,35 @@ type PriorFitter struct {
 	idx                 []int
 
 	// gate, when set, is held for reading during each evidence evaluation,
-	// so that an owner holding it for writing pauses the fit at the next
-	// evaluation (a few milliseconds) rather than after the whole refit.
-	gate *sync.RWMutex
+	// so that an owner closing it pauses the fit within a fraction of an
+	// evaluation rather than after the whole refit (see updateGate).
+	gate *updateGate
+}
+
+// updateGate lets an update pause the background prior fits. Each evidence
+// evaluation runs holding it for reading; close announces the update and
+// then takes it for writing. An evaluation in progress sees the
+// announcement at its next checkpoint (between the steps of forming M and
+// between the panels of its Cholesky factorisation), gives up, and is
+// redone from its start once the gate is open again: the update waits for
+// a piece of an evaluation, not for the whole of one. The results do not
+// change, only when they are computed.
+type updateGate struct {
+	mu      sync.RWMutex
+	waiting atomic.Bool
+	redone  atomic.Int64 // evaluations paused and redone
+}
+
+// close pauses the fits; it returns once none is running.
+func (g *updateGate) close() {
+	g.waiting.Store(true)
+	g.mu.Lock()
+}
+
+// open lets the fits go on.
+func (g *updateGate) open() {
+	g.waiting.Store(false)
+	g.mu.Unlock()
 }
 
 // priorUnit is one unit's warm state.
@@ -107,13 +134,21 @@ func NewPriorFitter(width, height, lags int, opt PriorOptions) (*PriorFitter, er
 	return &PriorFitter{width: width, height: height, lags: lags, opt: opt, units: make(map[int]*priorUnit)}, nil
 }
 
-// guarded runs step while holding the gate for reading (see gate).
+// guarded runs step while holding the gate for reading (see gate), again
+// after each pause until it completes.
 func (f *PriorFitter) guarded(step func() error) error {
-	if f.gate != nil {
-		f.gate.RLock()
-		defer f.gate.RUnlock()
+	if f.gate == nil {
+		return step()
 	}
-	return step()
+	for {
+		f.gate.mu.RLock()
+		err := step()
+		f.gate.mu.RUnlock()
+		if !errors.Is(err, errPaused) {
+			return err
+		}
+		f.gate.redone.Add(1)
+	}
 }
 
 // Last returns the unit's latest fit.
@@ -269,6 +304,10 @@ func (f *PriorFitter) problem(w PriorWindow) *priorProblem {
 		f.prob = newPriorProblem(w)
 	}
 	f.prob.win = w
+	f.prob.pause = nil
+	if f.gate != nil {
+		f.prob.pause = &f.gate.waiting
+	}
 	f.idx = w.Indices(f.width, f.height)
 	return f.prob
 }

@@ -44,11 +44,11 @@ func (m *Mapper) newScratch() *scratch {
 // recomputes every unit's statistics and returns a new Snapshot.
 func (m *Mapper) Update() *Snapshot {
 	if w := m.prior.worker; w != nil {
-		// The background prior fits pause while the update runs (it waits
-		// for one evidence evaluation of the fit in hand at most), so they
-		// use only the time the update leaves free.
-		w.gate.Lock()
-		defer w.gate.Unlock()
+		// The background prior fits pause while the update runs (an
+		// evaluation in hand stops at its next checkpoint, see updateGate),
+		// so they use only the time the update leaves free.
+		w.gate.close()
+		defer w.gate.open()
 	}
 	m.fold()
 	m.updates++
