@@ -42,13 +42,19 @@ type FeatureFinder struct {
 	sv1     float64   // σ₁ of the last separable call
 	pos     []float64 // the map times its polarity
 	sorted  []float64
-	all     []int32 // every pixel index
-	win     []int32 // the pixels the fit uses: all, or winBuf
+	all     []int32   // every pixel index
+	xs, ys  []float64 // each pixel's column and row
+	win     []int32   // the pixels the fit uses: all, or winBuf
 	winBuf  []int32
 	jac     []float64 // pixels × gaussParams
 	resid   []float64
 	trial   []float64
 	weights []float64
+
+	// energy, when the caller sets it (one value per lag), holds the lag
+	// energies Σ est² of the next FeaturesTo's estimate, each added in
+	// index order (lagEnergies); FeaturesTo then does not sum them again.
+	energy []float64
 }
 
 // The least-squares 2-D Gaussian: parameters and iteration limits.
@@ -89,8 +95,10 @@ func NewFeatureFinder(width, height, lags int, framePeriod float64, geom *Geomet
 		f.dpp = geom.DegreesPerPixel()
 	}
 	f.all = make([]int32, p)
+	f.xs, f.ys = make([]float64, p), make([]float64, p)
 	for i := range f.all {
 		f.all[i] = int32(i)
+		f.xs[i], f.ys[i] = float64(i%width), float64(i/width)
 	}
 	f.winBuf = make([]int32, 0, p)
 	return f, nil
@@ -137,19 +145,30 @@ func (f *FeatureFinder) FeaturesTo(dst *Features, est []float64) error {
 	if len(est) != p*f.lags {
 		return fmt.Errorf("online: features: estimate has %d values, want %d (%d×%d pixels × %d lags)", len(est), p*f.lags, f.width, f.height, f.lags)
 	}
-	for i, v := range est {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("online: features: estimate value %d is %v", i, v)
-		}
-	}
+	// The lag energies come first: a value that is not finite makes its
+	// lag's energy NaN or +Inf, and only then are the values searched for
+	// it (an energy can also overflow from finite values).
 	peak, best := 0, -1.0
+	finite := true
 	for l := range f.lags {
 		var e float64
-		for _, v := range est[l*p : (l+1)*p] {
-			e += v * v
+		if len(f.energy) == f.lags {
+			e = f.energy[l]
+		} else {
+			for _, v := range est[l*p : (l+1)*p] {
+				e += v * v
+			}
 		}
+		finite = finite && !math.IsNaN(e) && !math.IsInf(e, 0)
 		if e > best {
 			peak, best = l, e
+		}
+	}
+	if !finite {
+		for i, v := range est {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("online: features: estimate value %d is %v", i, v)
+			}
 		}
 	}
 	dst.PeakLag = peak
@@ -399,7 +418,7 @@ func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) 
 	var cost float64
 	for k, px := range f.win {
 		i := int(px)
-		dx, dy := float64(i%f.width)-x0, float64(i/f.width)-y0
+		dx, dy := f.xs[i]-x0, f.ys[i]-y0
 		u, v := dx*c+dy*s, -dx*s+dy*c
 		e := math.Exp(-0.5 * (u*u*i1 + v*v*i2))
 		h := amp*e + q[6]
