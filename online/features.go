@@ -49,6 +49,7 @@ type FeatureFinder struct {
 	jac     []float64 // pixels × gaussParams
 	resid   []float64
 	trial   []float64
+	expv    []float64 // the last model call's exponentials, per window pixel
 	weights []float64
 
 	// energy, when the caller sets it (one value per lag), holds the lag
@@ -89,6 +90,7 @@ func NewFeatureFinder(width, height, lags int, framePeriod float64, geom *Geomet
 		jac:     make([]float64, p*gaussParams),
 		resid:   make([]float64, p),
 		trial:   make([]float64, p),
+		expv:    make([]float64, p),
 		weights: make([]float64, p),
 	}
 	if geom != nil {
@@ -409,7 +411,8 @@ func normAngle(a float64) float64 {
 
 // model evaluates the Gaussian with parameters q at the pixels of f.win
 // into out (one value per window pixel), and its Jacobian into f.jac when
-// jac is true. It returns the sum of squared residuals against f.pos.
+// jac is true. It returns the sum of squared residuals against f.pos, and
+// keeps each pixel's exponential in f.expv for jacobian.
 func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) float64 {
 	amp, x0, y0 := q[0], q[1], q[2]
 	s1, s2 := math.Exp(q[3]), math.Exp(q[4])
@@ -421,13 +424,30 @@ func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) 
 		dx, dy := f.xs[i]-x0, f.ys[i]-y0
 		u, v := dx*c+dy*s, -dx*s+dy*c
 		e := math.Exp(-0.5 * (u*u*i1 + v*v*i2))
+		f.expv[k] = e
 		h := amp*e + q[6]
 		out[k] = h
 		r := f.pos[i] - h
 		cost += r * r
-		if !jac {
-			continue
-		}
+	}
+	if jac {
+		f.jacobian(q)
+	}
+	return cost
+}
+
+// jacobian writes the Jacobian of the Gaussian at q into f.jac, from the
+// exponentials that the last model call, at the same q, kept.
+func (f *FeatureFinder) jacobian(q *[gaussParams]float64) {
+	amp, x0, y0 := q[0], q[1], q[2]
+	s1, s2 := math.Exp(q[3]), math.Exp(q[4])
+	c, s := math.Cos(q[5]), math.Sin(q[5])
+	i1, i2 := 1/(s1*s1), 1/(s2*s2)
+	for k, px := range f.win {
+		i := int(px)
+		dx, dy := f.xs[i]-x0, f.ys[i]-y0
+		u, v := dx*c+dy*s, -dx*s+dy*c
+		e := f.expv[k]
 		g := amp * e
 		j := f.jac[k*gaussParams : (k+1)*gaussParams]
 		// ∂h/∂θ = −½ g ∂Q/∂θ, Q = u²/σ1² + v²/σ2².
@@ -439,7 +459,6 @@ func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) 
 		j[5] = -g * u * v * (i1 - i2)
 		j[6] = 1
 	}
-	return cost
 }
 
 // fit refines start by Levenberg–Marquardt on f.pos.
@@ -500,7 +519,10 @@ func (f *FeatureFinder) fit(start gauss, steps int) (gauss, bool) {
 		if !improved {
 			break
 		}
-		cost = f.model(&q, f.trial, true)
+		// The accepted trial was the last model call: its values and
+		// exponentials are those at q, and so is its cost.
+		f.trial, f.resid = f.resid, f.trial
+		f.jacobian(&q)
 	}
 	return f.toGauss(q), true
 }
