@@ -236,13 +236,28 @@ func (f *FeatureFinder) separable(dst *Features, est []float64) error {
 	var total float64
 	for a := range L {
 		ra := est[a*p : (a+1)*p]
-		for b := 0; b <= a; b++ {
-			g := dot(ra, est[b*p:(b+1)*p])
-			f.gram.SetSym(a, b, g)
-			if a == b {
-				total += g
+		b := 0
+		// Four products at a time in one pass over row a (each summed in
+		// index order, as dot sums it).
+		for ; b+4 <= a+1; b += 4 {
+			r0, r1, r2, r3 := est[b*p:(b+1)*p], est[(b+1)*p:(b+2)*p], est[(b+2)*p:(b+3)*p], est[(b+3)*p:(b+4)*p]
+			r0, r1, r2, r3 = r0[:len(ra)], r1[:len(ra)], r2[:len(ra)], r3[:len(ra)]
+			var g0, g1, g2, g3 float64
+			for i, v := range ra {
+				g0 += v * r0[i]
+				g1 += v * r1[i]
+				g2 += v * r2[i]
+				g3 += v * r3[i]
 			}
+			f.gram.SetSym(a, b, g0)
+			f.gram.SetSym(a, b+1, g1)
+			f.gram.SetSym(a, b+2, g2)
+			f.gram.SetSym(a, b+3, g3)
 		}
+		for ; b <= a; b++ {
+			f.gram.SetSym(a, b, dot(ra, est[b*p:(b+1)*p]))
+		}
+		total += f.gram.At(a, a)
 	}
 	if !f.eig.Factorize(f.gram, true) {
 		return errors.New("online: features: eigendecomposition failed")
