@@ -23,7 +23,7 @@ type scratch struct {
 	// w and sta are set by unitDetail to the arrays of the unit's
 	// snapshot; the others are reused from unit to unit.
 	w, wa, ha, hb, sta, cross []float64
-	pa, pb                    []float64 // the predictive check's scratch
+	pa, pb                    []float64 // the predictive check's scratch; on white noise the STA halves
 	energy                    []float64 // Σ w² of each lag (lagEnergies)
 	white                     *WhiteTest
 	features                  *FeatureFinder
@@ -146,8 +146,13 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	// One pass gives |w|² (the residual sum), and each lag's share, which
 	// the drift check's window and the features read.
 	wSq := lagEnergies(s.energy, s.w, m.pixels)
-	m.sta.CrossTo(s.cross, u)
-	staFromCross(s.sta, s.cross, m.sta.Spikes(u))
+	if cfg.White {
+		// The STA halves too, for the predictive check, in the same pass.
+		m.sta.crossHalvesTo(s.cross, s.sta, s.pa, s.pb, u)
+	} else {
+		m.sta.CrossTo(s.cross, u)
+		staFromCross(s.sta, s.cross, m.sta.Spikes(u))
+	}
 
 	// Noise variance; per-coefficient z from the sampling variance (zscore.go).
 	dof := ResidualDOF(m.used, sh.t1, sh.t2)
@@ -198,10 +203,12 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	d.Reliability = Float(R)
 	if cfg.White {
 		// The predictive correlation keeps the STA halves on white noise,
-		// as before (predict.go).
-		m.sta.HalvesTo(s.ha, s.hb, u)
+		// as before (predict.go); crossHalvesTo wrote them to pa and pb,
+		// and this path needs no other scratch.
+		d.PredictiveR = Float(m.unitPredictiveR(u, s.pa, s.pb, nil, nil, true))
+	} else {
+		d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.pa, s.pb, false))
 	}
-	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.pa, s.pb, cfg.White))
 	m.checkDrift(d, u, significant, lo, hi, sh, s)
 
 	// The shape (centre, extent, separable profiles) is recomputed on the
