@@ -54,7 +54,7 @@ type FeatureFinder struct {
 
 	// energy, when the caller sets it (one value per lag), holds the lag
 	// energies Σ est² of the next FeaturesTo's estimate, each added in
-	// index order (lagEnergies); FeaturesTo then does not sum them again.
+	// index order; FeaturesTo then does not sum them again.
 	energy []float64
 }
 

@@ -78,7 +78,9 @@ func TestReliabilityWindowIgnoresOwnPeakBeforeSignificance(t *testing.T) {
 		w[i] = 5 // all the energy at lag 6
 	}
 	energy := make([]float64, 8)
-	lagEnergies(energy, w, 16)
+	for l := range energy {
+		energy[l] = dot(w[l*16:(l+1)*16], w[l*16:(l+1)*16])
+	}
 	lo, hi := m.reliabilityWindow(energy, false)
 	if lo != 1*16 || hi != 4*16 {
 		t.Errorf("not significant: window [%d, %d), want lags 1…3 around the population's peak lag 2", lo, hi)
@@ -132,8 +134,11 @@ func TestUpdateReliabilityOnePass(t *testing.T) {
 			if err != nil || f.PeakLag != d.PeakLag || !slices.Equal(f.Map, d.Map) {
 				t.Errorf("unit %s: peak lag %d, map %v; FeaturesOf: %d, %v (%v)", id, d.PeakLag, d.Map, f.PeakLag, f.Map, err)
 			}
-			energy := make([]float64, lags)
-			total := lagEnergies(energy, wy, w*h)
+			energy, wz := make([]float64, lags), make([]float64, D)
+			b0, total := m.weightsEnergiesTo(wz, energy, m.colY(u))
+			if b := m.ridge.WeightsTo(wy, m.colY(u)); b0 != b || !slices.Equal(wz, wy) {
+				t.Errorf("unit %s: weightsEnergiesTo differs from WeightsTo", id)
+			}
 			if total != dot(wy, wy) {
 				t.Errorf("unit %s: lag energies total %v, |w|² %v", id, total, dot(wy, wy))
 			}

@@ -24,7 +24,7 @@ type scratch struct {
 	// snapshot; the others are reused from unit to unit.
 	w, wa, ha, hb, sta, cross []float64
 	pa, pb                    []float64 // the predictive check's scratch; on white noise the STA halves
-	energy                    []float64 // Σ w² of each lag (lagEnergies)
+	energy                    []float64 // Σ w² of each lag (weightsEnergiesTo)
 	white                     *WhiteTest
 	features                  *FeatureFinder
 }
@@ -136,16 +136,16 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		d.Rate = Float(m.spikes[u] / seconds)
 	}
 
-	var intercept float64
+	// The weights, and in the same pass |w|² (the residual sum) and each
+	// lag's share, which the drift check's window and the features read.
+	var intercept, wSq float64
 	if m.ridge.Rows() > 0 {
-		intercept = m.ridge.WeightsTo(s.w, m.colY(u))
+		intercept, wSq = m.weightsEnergiesTo(s.w, s.energy, m.colY(u))
 	} else {
 		clear(s.w)
+		clear(s.energy)
 	}
 	d.Intercept = Float(intercept)
-	// One pass gives |w|² (the residual sum), and each lag's share, which
-	// the drift check's window and the features read.
-	wSq := lagEnergies(s.energy, s.w, m.pixels)
 	if cfg.White {
 		// The STA halves too, for the predictive check, in the same pass.
 		m.sta.crossHalvesTo(s.cross, s.sta, s.pa, s.pb, u)
@@ -400,20 +400,28 @@ func (r *Ridge) weightsRow(col int) (w, pe []float64, f float64) {
 	return w, pe, c * w[r.dim]
 }
 
-// lagEnergies writes Σ w² over each lag's pixels to energy (one value per
-// lag) and returns Σ w² over all of w, both added in index order (the
-// total as dot(w, w) adds it).
-func lagEnergies(energy, w []float64, pixels int) (total float64) {
+// weightsEnergiesTo writes the ridge weights of column col to w, as
+// WeightsTo does, and in the same pass each lag's Σ w² into energy and
+// Σ w² over all of w (returned after the intercept), all added in index
+// order (the total as dot(w, w) adds it). The ridge must have rows and col
+// must be in range.
+func (m *Mapper) weightsEnergiesTo(w, energy []float64, col int) (intercept, total float64) {
+	raw, pe, f := m.ridge.weightsRow(col)
+	P := m.pixels
 	for l := range energy {
 		var e float64
-		for _, v := range w[l*pixels : (l+1)*pixels] {
+		wl, rl, pl := w[l*P:(l+1)*P], raw[l*P:(l+1)*P], pe[l*P:(l+1)*P]
+		for i := range wl {
+			v := rl[i] + f*pl[i]
+			wl[i] = v
 			v2 := v * v
 			e += v2
 			total += v2
 		}
 		energy[l] = e
 	}
-	return total
+	d := m.ridge.dim
+	return raw[d] + f*pe[d], total
 }
 
 // staFromCross writes the STA, cross/spikes (zeros without spikes), as
