@@ -42,13 +42,20 @@ type FeatureFinder struct {
 	sv1     float64   // σ₁ of the last separable call
 	pos     []float64 // the map times its polarity
 	sorted  []float64
-	all     []int32 // every pixel index
-	win     []int32 // the pixels the fit uses: all, or winBuf
+	all     []int32   // every pixel index
+	xs, ys  []float64 // each pixel's column and row
+	win     []int32   // the pixels the fit uses: all, or winBuf
 	winBuf  []int32
 	jac     []float64 // pixels × gaussParams
 	resid   []float64
 	trial   []float64
+	expv    []float64 // the last model call's exponentials, per window pixel
 	weights []float64
+
+	// energy, when the caller sets it (one value per lag), holds the lag
+	// energies Σ est² of the next FeaturesTo's estimate, each added in
+	// index order; FeaturesTo then does not sum them again.
+	energy []float64
 }
 
 // The least-squares 2-D Gaussian: parameters and iteration limits.
@@ -83,14 +90,17 @@ func NewFeatureFinder(width, height, lags int, framePeriod float64, geom *Geomet
 		jac:     make([]float64, p*gaussParams),
 		resid:   make([]float64, p),
 		trial:   make([]float64, p),
+		expv:    make([]float64, p),
 		weights: make([]float64, p),
 	}
 	if geom != nil {
 		f.dpp = geom.DegreesPerPixel()
 	}
 	f.all = make([]int32, p)
+	f.xs, f.ys = make([]float64, p), make([]float64, p)
 	for i := range f.all {
 		f.all[i] = int32(i)
+		f.xs[i], f.ys[i] = float64(i%width), float64(i/width)
 	}
 	f.winBuf = make([]int32, 0, p)
 	return f, nil
@@ -137,19 +147,30 @@ func (f *FeatureFinder) FeaturesTo(dst *Features, est []float64) error {
 	if len(est) != p*f.lags {
 		return fmt.Errorf("online: features: estimate has %d values, want %d (%d×%d pixels × %d lags)", len(est), p*f.lags, f.width, f.height, f.lags)
 	}
-	for i, v := range est {
-		if math.IsNaN(v) || math.IsInf(v, 0) {
-			return fmt.Errorf("online: features: estimate value %d is %v", i, v)
-		}
-	}
+	// The lag energies come first: a value that is not finite makes its
+	// lag's energy NaN or +Inf, and only then are the values searched for
+	// it (an energy can also overflow from finite values).
 	peak, best := 0, -1.0
+	finite := true
 	for l := range f.lags {
 		var e float64
-		for _, v := range est[l*p : (l+1)*p] {
-			e += v * v
+		if len(f.energy) == f.lags {
+			e = f.energy[l]
+		} else {
+			for _, v := range est[l*p : (l+1)*p] {
+				e += v * v
+			}
 		}
+		finite = finite && !math.IsNaN(e) && !math.IsInf(e, 0)
 		if e > best {
 			peak, best = l, e
+		}
+	}
+	if !finite {
+		for i, v := range est {
+			if math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("online: features: estimate value %d is %v", i, v)
+			}
 		}
 	}
 	dst.PeakLag = peak
@@ -215,13 +236,28 @@ func (f *FeatureFinder) separable(dst *Features, est []float64) error {
 	var total float64
 	for a := range L {
 		ra := est[a*p : (a+1)*p]
-		for b := 0; b <= a; b++ {
-			g := dot(ra, est[b*p:(b+1)*p])
-			f.gram.SetSym(a, b, g)
-			if a == b {
-				total += g
+		b := 0
+		// Four products at a time in one pass over row a (each summed in
+		// index order, as dot sums it).
+		for ; b+4 <= a+1; b += 4 {
+			r0, r1, r2, r3 := est[b*p:(b+1)*p], est[(b+1)*p:(b+2)*p], est[(b+2)*p:(b+3)*p], est[(b+3)*p:(b+4)*p]
+			r0, r1, r2, r3 = r0[:len(ra)], r1[:len(ra)], r2[:len(ra)], r3[:len(ra)]
+			var g0, g1, g2, g3 float64
+			for i, v := range ra {
+				g0 += v * r0[i]
+				g1 += v * r1[i]
+				g2 += v * r2[i]
+				g3 += v * r3[i]
 			}
+			f.gram.SetSym(a, b, g0)
+			f.gram.SetSym(a, b+1, g1)
+			f.gram.SetSym(a, b+2, g2)
+			f.gram.SetSym(a, b+3, g3)
 		}
+		for ; b <= a; b++ {
+			f.gram.SetSym(a, b, dot(ra, est[b*p:(b+1)*p]))
+		}
+		total += f.gram.At(a, a)
 	}
 	if !f.eig.Factorize(f.gram, true) {
 		return errors.New("online: features: eigendecomposition failed")
@@ -390,7 +426,8 @@ func normAngle(a float64) float64 {
 
 // model evaluates the Gaussian with parameters q at the pixels of f.win
 // into out (one value per window pixel), and its Jacobian into f.jac when
-// jac is true. It returns the sum of squared residuals against f.pos.
+// jac is true. It returns the sum of squared residuals against f.pos, and
+// keeps each pixel's exponential in f.expv for jacobian.
 func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) float64 {
 	amp, x0, y0 := q[0], q[1], q[2]
 	s1, s2 := math.Exp(q[3]), math.Exp(q[4])
@@ -399,16 +436,33 @@ func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) 
 	var cost float64
 	for k, px := range f.win {
 		i := int(px)
-		dx, dy := float64(i%f.width)-x0, float64(i/f.width)-y0
+		dx, dy := f.xs[i]-x0, f.ys[i]-y0
 		u, v := dx*c+dy*s, -dx*s+dy*c
 		e := math.Exp(-0.5 * (u*u*i1 + v*v*i2))
+		f.expv[k] = e
 		h := amp*e + q[6]
 		out[k] = h
 		r := f.pos[i] - h
 		cost += r * r
-		if !jac {
-			continue
-		}
+	}
+	if jac {
+		f.jacobian(q)
+	}
+	return cost
+}
+
+// jacobian writes the Jacobian of the Gaussian at q into f.jac, from the
+// exponentials that the last model call, at the same q, kept.
+func (f *FeatureFinder) jacobian(q *[gaussParams]float64) {
+	amp, x0, y0 := q[0], q[1], q[2]
+	s1, s2 := math.Exp(q[3]), math.Exp(q[4])
+	c, s := math.Cos(q[5]), math.Sin(q[5])
+	i1, i2 := 1/(s1*s1), 1/(s2*s2)
+	for k, px := range f.win {
+		i := int(px)
+		dx, dy := f.xs[i]-x0, f.ys[i]-y0
+		u, v := dx*c+dy*s, -dx*s+dy*c
+		e := f.expv[k]
 		g := amp * e
 		j := f.jac[k*gaussParams : (k+1)*gaussParams]
 		// ∂h/∂θ = −½ g ∂Q/∂θ, Q = u²/σ1² + v²/σ2².
@@ -420,7 +474,6 @@ func (f *FeatureFinder) model(q *[gaussParams]float64, out []float64, jac bool) 
 		j[5] = -g * u * v * (i1 - i2)
 		j[6] = 1
 	}
-	return cost
 }
 
 // fit refines start by Levenberg–Marquardt on f.pos.
@@ -481,7 +534,10 @@ func (f *FeatureFinder) fit(start gauss, steps int) (gauss, bool) {
 		if !improved {
 			break
 		}
-		cost = f.model(&q, f.trial, true)
+		// The accepted trial was the last model call: its values and
+		// exponentials are those at q, and so is its cost.
+		f.trial, f.resid = f.resid, f.trial
+		f.jacobian(&q)
 	}
 	return f.toGauss(q), true
 }

@@ -444,3 +444,40 @@ func TestExportFitsEveryShape(t *testing.T) {
 		})
 	}
 }
+
+// TestGaussJacobian: the Jacobian the fit steps with (kept exponentials of
+// the last model call) against central differences of the model (the
+// derivative's definition; common practice, no source), at a few
+// parameter sets on the whole frame.
+func TestGaussJacobian(t *testing.T) {
+	const w, h = 9, 7
+	f, err := NewFeatureFinder(w, h, 1, 0.01, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f.win = f.all
+	n := len(f.win)
+	out, plus, minus := make([]float64, n), make([]float64, n), make([]float64, n)
+	for _, q := range [][gaussParams]float64{
+		{1, 4, 3, math.Log(1.5), math.Log(0.8), 0.4, 0.1},
+		{-0.5, 2.2, 5.1, math.Log(2.5), math.Log(1.9), -1.1, 0},
+		{2, 6.5, 1.5, math.Log(0.7), math.Log(1.2), 1.4, -0.3},
+	} {
+		f.model(&q, out, true)
+		jac := append([]float64(nil), f.jac[:n*gaussParams]...)
+		for p := range gaussParams {
+			const step = 1e-5
+			qp, qm := q, q
+			qp[p] += step
+			qm[p] -= step
+			f.model(&qp, plus, false)
+			f.model(&qm, minus, false)
+			for k := range n {
+				want := (plus[k] - minus[k]) / (2 * step)
+				if got := jac[k*gaussParams+p]; math.Abs(got-want) > 1e-8*(1+math.Abs(want)) {
+					t.Fatalf("q %v, parameter %d, pixel %d: ∂h %v, central difference %v", q, p, k, got, want)
+				}
+			}
+		}
+	}
+}

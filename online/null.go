@@ -223,8 +223,12 @@ func (t *WhiteTest) TestTo(z, cross, autocov []float64, variance float64) (Signi
 	P := t.pixels
 	for i := 0; i < L; i++ {
 		wi := t.w[i*P : (i+1)*P]
-		for p, v := range cross[i*P : (i+1)*P] {
-			wi[p] = v / c
+		if c == 1 { // unit pixel variance (binary ±1 noise): v/c is v
+			copy(wi, cross[i*P:(i+1)*P])
+		} else {
+			for p, v := range cross[i*P : (i+1)*P] {
+				wi[p] = v / c
+			}
 		}
 		for j, g := range t.chol[i*L : i*L+i] {
 			fastmat.AddScaled(wi, -g, t.w[j*P:(j+1)*P])

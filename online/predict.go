@@ -26,9 +26,14 @@ import "math"
 // predictiveR is the mean of r_{A→B} and r_{B→A}; NaN when a half has no
 // spikes or no variance.
 func predictiveR(a, b, ca, cb []float64, gaa, gbb float64, na, nb int64, va, vb float64) float64 {
+	return predictiveRFrom(dot(cb, a), dot(ca, b), gaa, gbb, na, nb, va, vb)
+}
+
+// predictiveRFrom is predictiveR from the products C_Bᵀa and C_Aᵀb.
+func predictiveRFrom(cba, cab, gaa, gbb float64, na, nb int64, va, vb float64) float64 {
 	n := float64(na + nb)
-	rAB := dot(cb, a) / math.Sqrt(gaa*float64(nb)/n*vb)
-	rBA := dot(ca, b) / math.Sqrt(gbb*float64(na)/n*va)
+	rAB := cba / math.Sqrt(gaa*float64(nb)/n*vb)
+	rBA := cab / math.Sqrt(gbb*float64(na)/n*va)
 	r := (rAB + rBA) / 2
 	if math.IsNaN(r) || math.IsInf(r, 0) {
 		return math.NaN()
@@ -44,19 +49,35 @@ func (m *Mapper) unitPredictiveR(u int, a, b, ca, cb []float64, staHalves bool) 
 	if na < 2 || nb < 2 {
 		return math.NaN()
 	}
-	if staHalves { // a and b are the STA halves already
-		copy(ca, a)
-		copy(cb, b)
-	} else {
-		m.sta.HalvesTo(ca, cb, u)
-	}
 	ya, yb := m.sta.HalfSpikes(u)
+	va := m.cal.sumSq[u][0] - ya*ya/float64(na)
+	vb := m.cal.sumSq[u][1] - yb*yb/float64(nb)
+	if staHalves {
+		// a and b are the STA halves (white noise), so C_A = y_A·a and C_B = y_B·b:
+		// one pass forms the products value by value, rounded as the
+		// scaled copies would be, with |a|² and |b|² beside them.
+		var cba, cab, aa, bb float64
+		b = b[:len(a)]
+		for i, x := range a {
+			y := b[i]
+			cba += y * yb * x
+			cab += x * ya * y
+			aa += x * x
+			bb += y * y
+		}
+		// aᵀG_B a ≈ n_B c²|a|², written as (n/n_B)·that for predictiveR's scaling.
+		n := float64(na + nb)
+		gaa, gbb := n*m.cfg.PixelVariance*aa, n*m.cfg.PixelVariance*bb
+		if !(gaa > 0) || !(gbb > 0) || !(va > 0) || !(vb > 0) {
+			return math.NaN()
+		}
+		return predictiveRFrom(cba, cab, gaa, gbb, na, nb, va, vb)
+	}
+	m.sta.HalvesTo(ca, cb, u)
 	for i := range ca {
 		ca[i] *= ya
 		cb[i] *= yb
 	}
-	va := m.cal.sumSq[u][0] - ya*ya/float64(na)
-	vb := m.cal.sumSq[u][1] - yb*yb/float64(nb)
 	var gaa, gbb float64
 	if m.cfg.White {
 		// aᵀG_B a ≈ n_B c²|a|², written as (n/n_B)·that for predictiveR's scaling.

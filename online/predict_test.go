@@ -146,3 +146,40 @@ func TestPredictiveRNull(t *testing.T) {
 		})
 	}
 }
+
+// TestPredictiveRWhiteOnePass: on white noise PredictiveR takes C_A = y_A·a
+// and C_B = y_B·b from the STA halves in one pass; it must equal, bit for
+// bit, the formula of predict.go's comment written out with the scaled
+// copies (r_{A→B} = C_Bᵀa / sqrt(aᵀG_B a · V_B), aᵀG_B a ≈ n_B c²|a|²).
+func TestPredictiveRWhiteOnePass(t *testing.T) {
+	const w, h, lags = 6, 6, 4
+	cfg := Config{Width: w, Height: h, Lags: lags, White: true, PixelVariance: 1}
+	cells := []lnpCell{{filter: gaborFilter(w, h, lags, 2, 3, 1.2, 0.4, 1), base: 0.2, gain: 0.8}}
+	for k := range 11 { // null units, whose products round in many ways
+		cells = append(cells, lnpCell{filter: make([]float64, w*h*lags), base: 0.05 + 0.05*float64(k)})
+	}
+	sim := newSimulation(t, cfg, cells, 17, binaryFrame)
+	sim.run(40 * 60)
+	m := sim.m
+	D := m.dim
+	a, b, ca, cb := make([]float64, D), make([]float64, D), make([]float64, D), make([]float64, D)
+	na, nb := m.sta.HalfBins()
+	n := float64(na + nb)
+	for u := range m.ids {
+		m.sta.HalvesTo(a, b, u)
+		got := m.unitPredictiveR(u, a, b, ca, cb, true)
+		ya, yb := m.sta.HalfSpikes(u)
+		for i := range a {
+			ca[i], cb[i] = a[i]*ya, b[i]*yb
+		}
+		va := m.cal.sumSq[u][0] - ya*ya/float64(na)
+		vb := m.cal.sumSq[u][1] - yb*yb/float64(nb)
+		gaa, gbb := n*cfg.PixelVariance*dot(a, a), n*cfg.PixelVariance*dot(b, b)
+		rAB := dot(cb, a) / math.Sqrt(gaa*float64(nb)/n*vb)
+		rBA := dot(ca, b) / math.Sqrt(gbb*float64(na)/n*va)
+		want := (rAB + rBA) / 2
+		if math.IsNaN(want) || math.Float64bits(got) != math.Float64bits(want) {
+			t.Errorf("unit %d: PredictiveR %v, written out %v", u, got, want)
+		}
+	}
+}

@@ -20,13 +20,23 @@ func SplitHalf(a, b []float64) (r, R float64) {
 	if n != len(b) || n < 2 {
 		return math.NaN(), math.NaN()
 	}
-	var ma, mb float64
+	var sa, sb float64
 	for i := range a {
-		ma += a[i]
-		mb += b[i]
+		sa += a[i]
+		sb += b[i]
 	}
-	ma /= float64(n)
-	mb /= float64(n)
+	return splitHalfSums(a, b, sa, sb)
+}
+
+// splitHalfSums is SplitHalf for a caller that has the sums of a and of b
+// (each added in index order) at hand.
+func splitHalfSums(a, b []float64, sa, sb float64) (r, R float64) {
+	n := len(a)
+	if n != len(b) || n < 2 {
+		return math.NaN(), math.NaN()
+	}
+	ma, mb := sa/float64(n), sb/float64(n)
+	b = b[:n]
 	var sab, saa, sbb float64
 	for i := range a {
 		da, db := a[i]-ma, b[i]-mb

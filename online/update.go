@@ -23,7 +23,8 @@ type scratch struct {
 	// w and sta are set by unitDetail to the arrays of the unit's
 	// snapshot; the others are reused from unit to unit.
 	w, wa, ha, hb, sta, cross []float64
-	pa, pb                    []float64 // the predictive check's scratch
+	pa, pb                    []float64 // the predictive check's scratch; on white noise the STA halves
+	energy                    []float64 // Σ w² of each lag (weightsEnergiesTo)
 	white                     *WhiteTest
 	features                  *FeatureFinder
 }
@@ -32,7 +33,7 @@ func (m *Mapper) newScratch() *scratch {
 	d := m.dim
 	s := &scratch{
 		wa: make([]float64, d), ha: make([]float64, d), hb: make([]float64, d), cross: make([]float64, d),
-		pa: make([]float64, d), pb: make([]float64, d),
+		pa: make([]float64, d), pb: make([]float64, d), energy: make([]float64, m.cfg.Lags),
 		white: NewWhiteTest(m.pixels, m.cfg.Lags),
 	}
 	// The config was checked by NewMapper, so the finder cannot fail.
@@ -90,6 +91,7 @@ func (m *Mapper) Update() *Snapshot {
 	if refreshed != nil {
 		refreshed()
 	}
+
 	m.updateSTC(details)
 	m.popPeak = medianPeak(details, m.popPeak)
 	m.livePrior(details)
@@ -134,23 +136,29 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 		d.Rate = Float(m.spikes[u] / seconds)
 	}
 
-	var intercept float64
+	// The weights, and in the same pass |w|² (the residual sum) and each
+	// lag's share, which the drift check's window and the features read.
+	var intercept, wSq float64
 	if m.ridge.Rows() > 0 {
-		intercept = m.ridge.WeightsTo(s.w, m.colY(u))
-		m.ridge.WeightsTo(s.wa, m.colA(u))
+		intercept, wSq = m.weightsEnergiesTo(s.w, s.energy, m.colY(u))
 	} else {
 		clear(s.w)
-		clear(s.wa)
+		clear(s.energy)
 	}
 	d.Intercept = Float(intercept)
-	m.sta.CrossTo(s.cross, u)
-	staFromCross(s.sta, s.cross, m.sta.Spikes(u))
+	if cfg.White {
+		// The STA halves too, for the predictive check, in the same pass.
+		m.sta.crossHalvesTo(s.cross, s.sta, s.pa, s.pb, u)
+	} else {
+		m.sta.CrossTo(s.cross, u)
+		staFromCross(s.sta, s.cross, m.sta.Spikes(u))
+	}
 
 	// Noise variance; per-coefficient z from the sampling variance (zscore.go).
 	dof := ResidualDOF(m.used, sh.t1, sh.t2)
 	sigma2, rss := math.NaN(), math.NaN()
 	if dof > 0 {
-		rss = math.Max(m.ridge.Objective(m.colY(u))-cfg.Lambda*dot(s.w, s.w), 0)
+		rss = math.Max(m.ridge.Objective(m.colY(u))-cfg.Lambda*wSq, 0)
 		sigma2 = rss / dof
 	}
 
@@ -189,16 +197,18 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	// around the peak, used before on white noise, overstated it: the
 	// window leaves out the noise of the other lags, and the ridge's noise
 	// is larger than the STA's where the Gram matrix departs from N·c²I.
-	m.halvesTo(s.ha, s.hb, s.w, s.wa, sh.wh, u)
-	lo, hi := m.reliabilityWindow(s.w, significant)
-	_, R := SplitHalf(s.ha, s.hb)
+	sumA, sumB := m.halvesTo(s.ha, s.hb, s.w, sh.wh, u)
+	lo, hi := m.reliabilityWindow(s.energy, significant)
+	_, R := splitHalfSums(s.ha, s.hb, sumA, sumB)
 	d.Reliability = Float(R)
 	if cfg.White {
 		// The predictive correlation keeps the STA halves on white noise,
-		// as before (predict.go).
-		m.sta.HalvesTo(s.ha, s.hb, u)
+		// as before (predict.go); crossHalvesTo wrote them to pa and pb,
+		// and this path needs no other scratch.
+		d.PredictiveR = Float(m.unitPredictiveR(u, s.pa, s.pb, nil, nil, true))
+	} else {
+		d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.pa, s.pb, false))
 	}
-	d.PredictiveR = Float(m.unitPredictiveR(u, s.ha, s.hb, s.pa, s.pb, cfg.White))
 	m.checkDrift(d, u, significant, lo, hi, sh, s)
 
 	// The shape (centre, extent, separable profiles) is recomputed on the
@@ -220,7 +230,9 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 	if fit.ok && fit.gauss {
 		s.features.Warm = &Features{CentreX: fit.cx, CentreY: fit.cy, SigmaX: fit.sx, SigmaY: fit.sy, Angle: fit.angle}
 	}
+	s.features.energy = s.energy
 	_ = s.features.FeaturesTo(&d.Features, s.w)
+	s.features.energy = nil
 	if keep {
 		fit.restore(&d.Features)
 	} else {
@@ -260,16 +272,16 @@ func (m *Mapper) unitDetail(u int, sh *ridgeCommon, s *scratch) *UnitDetail {
 const reliabilityLags = 3
 
 // reliabilityWindow returns the coefficient range [lo, hi) of the lag window
-// of the drift check: centred on the unit's own peak lag once
-// the unit is significant (its field then decides the lag, not its noise),
-// before that on the population's median peak lag, so that under the null
-// the window does not depend on the unit's own data and r stays unbiased.
-func (m *Mapper) reliabilityWindow(w []float64, significant bool) (lo, hi int) {
+// of the drift check: centred on the unit's own peak lag (the lag of the
+// largest of the weights' lag energies, energy) once the unit is
+// significant (its field then decides the lag, not its noise), before
+// that on the population's median peak lag, so that under the null the
+// window does not depend on the unit's own data and r stays unbiased.
+func (m *Mapper) reliabilityWindow(energy []float64, significant bool) (lo, hi int) {
 	centre := m.popPeak
 	if significant {
 		best := -1.0
-		for l := range m.cfg.Lags {
-			e := dot(w[l*m.pixels:(l+1)*m.pixels], w[l*m.pixels:(l+1)*m.pixels])
+		for l, e := range energy[:m.cfg.Lags] {
 			if e > best {
 				centre, best = l, e
 			}
@@ -345,13 +357,20 @@ func (f *shapeFit) restore(ft *Features) {
 	ft.Separability, ft.Spatial, ft.Temporal = f.separability, f.spatial, f.temporal
 }
 
-// halvesTo writes the two split-half ridge estimates of unit u. With y_A the
+// halvesTo writes the two split-half ridge estimates of unit u and returns
+// the sum of each (added in index order, for splitHalfSums). With y_A the
 // counts in half A, the ridge fit of y_A over all bins is w_A; removing
 // ȳ_A times the fit w_h of the half indicator h leaves the fit of half A's
 // counts centred within half A, and likewise for half B (whose indicator
 // 1 − h has fit −w_h, since the intercept absorbs constants). Under the null
-// the two depend on disjoint, independent bins.
-func (m *Mapper) halvesTo(a, b, w, wa, wh []float64, u int) {
+// the two depend on disjoint, independent bins. w_A is read from the ridge
+// value by value, as WeightsTo forms it.
+func (m *Mapper) halvesTo(a, b, w, wh []float64, u int) (sumA, sumB float64) {
+	if m.ridge.Rows() == 0 { // w_A, w and w_h are all zero
+		clear(a)
+		clear(b)
+		return 0, 0
+	}
 	meanA, meanB := 0.0, 0.0
 	if m.usedA > 0 {
 		meanA = m.spikesA[u] / float64(m.usedA)
@@ -359,10 +378,50 @@ func (m *Mapper) halvesTo(a, b, w, wa, wh []float64, u int) {
 	if nb := m.used - m.usedA; nb > 0 {
 		meanB = (m.spikes[u] - m.spikesA[u]) / float64(nb)
 	}
+	raw, pe, f := m.ridge.weightsRow(m.colA(u))
+	n := len(a)
+	b, w, wh, raw, pe = b[:n], w[:n], wh[:n], raw[:n], pe[:n]
 	for i := range a {
-		a[i] = wa[i] - meanA*wh[i]
-		b[i] = w[i] - wa[i] + meanB*wh[i]
+		wa := raw[i] + f*pe[i]
+		ai := wa - meanA*wh[i]
+		bi := w[i] - wa + meanB*wh[i]
+		a[i], b[i] = ai, bi
+		sumA += ai
+		sumB += bi
 	}
+	return sumA, sumB
+}
+
+// weightsRow returns what WeightsTo(dst, col) forms its weights from:
+// dst[i] = w[i] + f·pe[i] for i < Dim(). col must be in range.
+func (r *Ridge) weightsRow(col int) (w, pe []float64, f float64) {
+	c, pe := r.interceptCorrection()
+	w = r.wt[col*r.ld : col*r.ld+r.n]
+	return w, pe, c * w[r.dim]
+}
+
+// weightsEnergiesTo writes the ridge weights of column col to w, as
+// WeightsTo does, and in the same pass each lag's Σ w² into energy and
+// Σ w² over all of w (returned after the intercept), all added in index
+// order (the total as dot(w, w) adds it). The ridge must have rows and col
+// must be in range.
+func (m *Mapper) weightsEnergiesTo(w, energy []float64, col int) (intercept, total float64) {
+	raw, pe, f := m.ridge.weightsRow(col)
+	P := m.pixels
+	for l := range energy {
+		var e float64
+		wl, rl, pl := w[l*P:(l+1)*P], raw[l*P:(l+1)*P], pe[l*P:(l+1)*P]
+		for i := range wl {
+			v := rl[i] + f*pl[i]
+			wl[i] = v
+			v2 := v * v
+			e += v2
+			total += v2
+		}
+		energy[l] = e
+	}
+	d := m.ridge.dim
+	return raw[d] + f*pe[d], total
 }
 
 // staFromCross writes the STA, cross/spikes (zeros without spikes), as

@@ -91,15 +91,10 @@ func (j *diagJob) Do(k, _ int) {
 	var tr float64
 	for lo := k * diagRows; lo < d; lo += lanes * diagRows {
 		for i := lo; i < min(lo+diagRows, d); i++ {
-			row := r.p[i*r.ld : i*r.ld+i]
+			// Row i below the diagonal: its squares go to sq[i] and
+			// to the sums of the columns j < i (M is symmetric).
 			ci := j.c * j.pe[i]
-			var s float64
-			for jj, p := range row {
-				v := p + ci*j.pe[jj]
-				v2 := v * v
-				s += v2
-				sq[jj] += v2
-			}
+			s := fastmat.ShiftedSquares(sq[:i], r.p[i*r.ld:i*r.ld+i], j.pe, ci)
 			m := r.p[i*r.ld+i] + ci*j.pe[i]
 			sq[i] += s + m*m
 			j.dst[i] = m
