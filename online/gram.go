@@ -4,13 +4,12 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"math/bits"
-	"runtime"
-	"sync"
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
 	"gonum.org/v1/gonum/mat"
+
+	"livefield/online/internal/fastmat"
 )
 
 // LagGram accumulates, frame by frame, what is needed to form the Gram
@@ -48,7 +47,8 @@ type LagGram struct {
 	words     [][]uint64 // per pixel: [carry, chunk words…]
 	wordBits  int        // frames written into the current chunk
 	counts    []uint32   // pixels × dim: counts[p*dim + τ*P + q] = Σ β_m[p] β_{m−τ}[q]
-	shift     []uint64   // scratch, per worker: shifted words of one pixel
+	shift     []uint64   // scratch: the chunk's words of every pixel at every lag (countChunk)
+	pairs     pairCount  // countChunk's task
 	bitChunks int        // words per chunk
 
 	// Floating-point route.
@@ -280,60 +280,48 @@ func (g *LagGram) addBits(s []float64) {
 	}
 }
 
-// countChunk adds to cnt the pair counts of the first nw chunk words.
+// countChunk adds to cnt the pair counts of the first nw chunk words. The
+// words of every pixel shifted by every lag are laid out once per chunk as
+// D strings (word w of string τ·P+q at shift[w·D + τ·P + q]); pixel p's row
+// of counts, cnt[p·D : (p+1)·D], is then one fastmat.AndCount of those
+// strings against p's own words, the pixels spread over the cores
+// (fastmat.Each).
 func (g *LagGram) countChunk(cnt []uint32, nw int) {
 	P, d, L := g.pixels, g.dim, g.lags
-	workers := min(runtime.GOMAXPROCS(0), L)
-	if need := workers * (nw + 1); len(g.shift) < need {
+	if need := nw * d; len(g.shift) < need {
 		g.shift = make([]uint64, need)
 	}
-	var wg sync.WaitGroup
-	for wk := range workers {
-		sh := g.shift[wk*(nw+1) : (wk+1)*(nw+1)]
-		work := func() {
-			for tau := wk; tau < L; tau += workers {
-				for qq := range P {
-					src := g.words[qq]
-					for w := 1; w <= nw; w++ {
-						// Bit j of sh[w] is frame (chunk start + 64(w−1) + j − τ) of pixel qq.
-						sh[w] = src[w]<<uint(tau) | src[w-1]>>uint(64-tau)
-					}
-					col := tau*P + qq
-					if nw == bitWords {
-						countFull(cnt[col:], d, g.words, (*[bitWords]uint64)(sh[1:1+bitWords]))
-						continue
-					}
-					for p := range P {
-						wp := g.words[p]
-						c := 0
-						for w := 1; w <= nw; w++ {
-							c += bits.OnesCount64(wp[w] & sh[w])
-						}
-						cnt[p*d+col] += uint32(c)
-					}
-				}
+	sh := g.shift[:nw*d]
+	for tau := range L {
+		for qq := range P {
+			src := g.words[qq]
+			col := tau*P + qq
+			for w := 1; w <= nw; w++ {
+				// Bit j is frame (chunk start + 64(w−1) + j − τ) of pixel qq.
+				sh[(w-1)*d+col] = src[w]<<uint(tau) | src[w-1]>>uint(64-tau)
 			}
 		}
-		if workers == 1 {
-			work()
-			continue
-		}
-		wg.Go(work)
 	}
-	wg.Wait()
+	// Several pieces per worker balance the load when a core is busy elsewhere.
+	g.pairs = pairCount{g: g, cnt: cnt, nw: nw, pieces: min(P, 4*fastmat.Workers())}
+	fastmat.Each(g.pairs.pieces, &g.pairs)
+	g.pairs = pairCount{}
 }
 
-// countFull adds to cnt[p·d] the pairs of pixel p's full chunk of words
-// with the shifted words sh, for every pixel p: the inner loop of
-// countChunk, unrolled over the chunk's 16 words with four independent sums.
-func countFull(cnt []uint32, d int, words [][]uint64, sh *[bitWords]uint64) {
-	for p, ws := range words {
-		w := (*[1 + bitWords]uint64)(ws)
-		c0 := bits.OnesCount64(w[1]&sh[0]) + bits.OnesCount64(w[5]&sh[4]) + bits.OnesCount64(w[9]&sh[8]) + bits.OnesCount64(w[13]&sh[12])
-		c1 := bits.OnesCount64(w[2]&sh[1]) + bits.OnesCount64(w[6]&sh[5]) + bits.OnesCount64(w[10]&sh[9]) + bits.OnesCount64(w[14]&sh[13])
-		c2 := bits.OnesCount64(w[3]&sh[2]) + bits.OnesCount64(w[7]&sh[6]) + bits.OnesCount64(w[11]&sh[10]) + bits.OnesCount64(w[15]&sh[14])
-		c3 := bits.OnesCount64(w[4]&sh[3]) + bits.OnesCount64(w[8]&sh[7]) + bits.OnesCount64(w[12]&sh[11]) + bits.OnesCount64(w[16]&sh[15])
-		cnt[p*d] += uint32(c0 + c1 + c2 + c3)
+// pairCount is countChunk's task: piece i counts the pairs of a share of
+// the pixels.
+type pairCount struct {
+	g          *LagGram
+	cnt        []uint32
+	nw, pieces int
+}
+
+func (c *pairCount) Do(i, _ int) {
+	g := c.g
+	P, d := g.pixels, g.dim
+	sh := g.shift[:c.nw*d]
+	for p := i * P / c.pieces; p < (i+1)*P/c.pieces; p++ {
+		fastmat.AndCount(c.cnt[p*d:(p+1)*d], sh, g.words[p][1:1+c.nw], c.nw)
 	}
 }
 

@@ -34,6 +34,27 @@ func relDiff(a, b mat.Matrix) float64 {
 	return mat.Norm(&d, math.Inf(1)) / math.Max(mat.Norm(b, math.Inf(1)), 1e-300)
 }
 
+// feedLagGram adds frames of value(m, i) (frame m, pixel i) to a new
+// LagGram and returns it with the frames.
+func feedLagGram(t *testing.T, pixels, lags, n int, value func(m, i int) float64) (*LagGram, [][]float64) {
+	t.Helper()
+	g, err := NewLagGram(pixels, lags)
+	if err != nil {
+		t.Fatal(err)
+	}
+	frames := make([][]float64, n)
+	for m := range frames {
+		frames[m] = make([]float64, pixels)
+		for i := range frames[m] {
+			frames[m][i] = value(m, i)
+		}
+		if err := g.AddFrame(frames[m]); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return g, frames
+}
+
 func TestLagGramMatchesDesign(t *testing.T) {
 	// Each case exercises one route: two-level frames (packed bits, over more
 	// than one 1024-frame chunk), general frames (chunked products), and a
@@ -64,20 +85,7 @@ func TestLagGramMatchesDesign(t *testing.T) {
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			r := rand.New(rand.NewPCG(1, uint64(c.frames)))
-			g, err := NewLagGram(c.pixels, c.lags)
-			if err != nil {
-				t.Fatal(err)
-			}
-			frames := make([][]float64, c.frames)
-			for m := range frames {
-				frames[m] = make([]float64, c.pixels)
-				for i := range frames[m] {
-					frames[m][i] = c.value(r, m)
-				}
-				if err := g.AddFrame(frames[m]); err != nil {
-					t.Fatal(err)
-				}
-			}
+			g, frames := feedLagGram(t, c.pixels, c.lags, c.frames, func(m, _ int) float64 { return c.value(r, m) })
 			x := laggedDesign(frames, c.lags)
 			var want mat.SymDense
 			want.SymOuterK(1, x.T())
@@ -246,6 +254,47 @@ func TestBatchRidgeGolden(t *testing.T) {
 				}
 				if math.Abs(b[u]-c.Intercept[u]) > 1e-9*math.Max(1, math.Abs(c.Intercept[u])) {
 					t.Errorf("unit %d intercept = %.12g, scikit-learn %.12g", u, b[u], c.Intercept[u])
+				}
+			}
+		})
+	}
+}
+
+// TestLagGramPairCounts checks the two-level route's pair counts, full
+// chunks and the partial one, against their definition counted frame by
+// frame: Q_τ(n)[p, q] = Σ_{τ≤m<n} s_m[p]·s_{m−τ}[q]. With 0/1 frames every
+// term is an integer, so the two must agree exactly (the definition is
+// LagGram's own doc comment; the sizes run the vector counting paths, 8 and
+// 16 strings at a time, and the scalar tail).
+func TestLagGramPairCounts(t *testing.T) {
+	cases := []struct{ pixels, lags, frames int }{
+		{20, 5, 2500},  // D = 100: vector paths and a tail of 4
+		{16, 12, 1100}, // D = 192, one full chunk and a short one
+		{3, 2, 700},    // D = 6: the scalar tail only, a partial chunk only
+	}
+	for _, c := range cases {
+		t.Run(fmt.Sprintf("P%d_L%d_n%d", c.pixels, c.lags, c.frames), func(t *testing.T) {
+			r := rand.New(rand.NewPCG(5, uint64(c.frames)))
+			g, frames := feedLagGram(t, c.pixels, c.lags, c.frames, func(m, i int) float64 {
+				if m == 0 && i < 2 {
+					return float64(i) // two levels from the first frame on
+				}
+				return float64(r.IntN(2))
+			})
+			P, d := c.pixels, c.pixels*c.lags
+			got := make([]float64, P*d)
+			g.crossTo(got)
+			for tau := range c.lags {
+				for p := range P {
+					for q := range P {
+						var want float64
+						for m := tau; m < c.frames; m++ {
+							want += frames[m][p] * frames[m-tau][q]
+						}
+						if v := got[p*d+tau*P+q]; v != want {
+							t.Fatalf("Q_%d[%d, %d] = %v, want %v", tau, p, q, v, want)
+						}
+					}
 				}
 			}
 		})
