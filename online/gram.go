@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"sync"
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
@@ -30,7 +31,9 @@ import (
 // float64, such as ±c or {0, 1}).
 //
 // Pair counts are kept in 32 bits, so a block holds at most 2³² − 1 frames
-// (about 2 years at 60 Hz). A LagGram is not safe for concurrent use.
+// (about 2 years at 60 Hz). The pair counts of a full chunk of 1024 frames
+// run on a goroutine of its own beside the next frames; every read waits
+// for them. A LagGram is not safe for concurrent use.
 type LagGram struct {
 	pixels, lags, dim int
 	n                 int // frames added
@@ -40,16 +43,24 @@ type LagGram struct {
 	sum   []float64   // Σ_m s_m
 
 	// Two-level route.
-	binary    bool
-	lo, hi    float64 // the two levels (hi valid when hasHi)
-	hasHi     bool
-	ones      []int64    // per pixel, frames at level hi
-	words     [][]uint64 // per pixel: [carry, chunk words…]
-	wordBits  int        // frames written into the current chunk
-	counts    []uint32   // pixels × dim: counts[p*dim + τ*P + q] = Σ β_m[p] β_{m−τ}[q]
-	shift     []uint64   // scratch: the chunk's words of every pixel at every lag (countChunk)
-	pairs     pairCount  // countChunk's task
-	bitChunks int        // words per chunk
+	binary   bool
+	lo, hi   float64 // the two levels (hi valid when hasHi)
+	hasHi    bool
+	ones     []int64    // per pixel, frames at level hi
+	words    [][]uint64 // per pixel: [carry, chunk words…]
+	wordBits int        // frames written into the current chunk
+	counts   []uint32   // pixels × dim: counts[p*dim + τ*P + q] = Σ β_m[p] β_{m−τ}[q]
+	// A full chunk's pair counts run on a goroutine of its own (counting)
+	// while the next chunk's frames come in: shift holds the chunk's words
+	// of every pixel at every lag, own its words of every pixel (P × nw),
+	// pairs the task; counts, shift and own are touched only after
+	// counting.Wait.
+	shift     []uint64
+	own       []uint64
+	pairs     pairCount
+	counting  sync.WaitGroup
+	countNext func() // counts pairs; made once, so that starting a count does not allocate
+	bitChunks int    // words per chunk
 
 	// Floating-point route.
 	q     []float64 // pixels × dim: q[p*dim + τ*P + q] = Q_τ(n)[p, q]
@@ -102,6 +113,10 @@ func NewLagGram(pixels, lags int) (*LagGram, error) {
 	g.words = make([][]uint64, pixels)
 	for p := range g.words {
 		g.words[p] = make([]uint64, 1+bitWords)
+	}
+	g.countNext = func() {
+		defer g.counting.Done()
+		fastmat.Each(g.pairs.pieces, &g.pairs)
 	}
 	return g, nil
 }
@@ -160,6 +175,7 @@ func (g *LagGram) Reset() {
 
 // resetSegment forgets the frames of the current segment.
 func (g *LagGram) resetSegment() {
+	g.counting.Wait()
 	g.n = 0
 	clear(g.sum)
 	g.binary, g.hasHi, g.lo, g.hi = true, false, 0, 0
@@ -271,7 +287,11 @@ func (g *LagGram) addBits(s []float64) {
 	}
 	g.wordBits++
 	if g.wordBits == 64*g.bitChunks {
-		g.countChunk(g.counts, g.bitChunks)
+		// The chunk's pairs are counted beside the next frames.
+		g.counting.Wait()
+		g.pairs = g.layChunk(g.counts, g.bitChunks)
+		g.counting.Add(1)
+		go g.countNext()
 		for _, ws := range g.words {
 			ws[0] = ws[g.bitChunks]
 			clear(ws[1:])
@@ -280,21 +300,33 @@ func (g *LagGram) addBits(s []float64) {
 	}
 }
 
-// countChunk adds to cnt the pair counts of the first nw chunk words. The
-// words of every pixel shifted by every lag are laid out once per chunk as
-// D strings (word w of string τ·P+q at shift[w·D + τ·P + q]); pixel p's row
-// of counts, cnt[p·D : (p+1)·D], is then one fastmat.AndCount of those
-// strings against p's own words, the pixels spread over the cores
-// (fastmat.Each).
+// countChunk adds to cnt the pair counts of the first nw chunk words, on
+// all cores (fastmat.Each), and returns when they are counted.
 func (g *LagGram) countChunk(cnt []uint32, nw int) {
+	g.counting.Wait()
+	task := g.layChunk(cnt, nw)
+	fastmat.Each(task.pieces, &task)
+}
+
+// layChunk lays out the first nw chunk words for counting and returns the
+// task that adds their pair counts to cnt: the words of every pixel
+// shifted by every lag as D strings (word w of string τ·P+q at
+// shift[w·D + τ·P + q]) and each pixel's own words; pixel p's row of
+// counts, cnt[p·D : (p+1)·D], is then one fastmat.AndCount of those strings
+// against p's words. The table is g's until the task is done.
+func (g *LagGram) layChunk(cnt []uint32, nw int) pairCount {
 	P, d, L := g.pixels, g.dim, g.lags
 	if need := nw * d; len(g.shift) < need {
 		g.shift = make([]uint64, need)
 	}
+	if need := nw * P; len(g.own) < need {
+		g.own = make([]uint64, need)
+	}
 	sh := g.shift[:nw*d]
-	for tau := range L {
-		for qq := range P {
-			src := g.words[qq]
+	for qq := range P {
+		src := g.words[qq]
+		copy(g.own[qq*nw:(qq+1)*nw], src[1:1+nw])
+		for tau := range L {
 			col := tau*P + qq
 			for w := 1; w <= nw; w++ {
 				// Bit j is frame (chunk start + 64(w−1) + j − τ) of pixel qq.
@@ -303,13 +335,11 @@ func (g *LagGram) countChunk(cnt []uint32, nw int) {
 		}
 	}
 	// Several pieces per worker balance the load when a core is busy elsewhere.
-	g.pairs = pairCount{g: g, cnt: cnt, nw: nw, pieces: min(P, 4*fastmat.Workers())}
-	fastmat.Each(g.pairs.pieces, &g.pairs)
-	g.pairs = pairCount{}
+	return pairCount{g: g, cnt: cnt, nw: nw, pieces: min(P, 4*fastmat.Workers())}
 }
 
-// pairCount is countChunk's task: piece i counts the pairs of a share of
-// the pixels.
+// pairCount is a chunk's counting task: piece i counts the pairs of a
+// share of the pixels.
 type pairCount struct {
 	g          *LagGram
 	cnt        []uint32
@@ -318,10 +348,10 @@ type pairCount struct {
 
 func (c *pairCount) Do(i, _ int) {
 	g := c.g
-	P, d := g.pixels, g.dim
-	sh := g.shift[:c.nw*d]
+	P, d, nw := g.pixels, g.dim, c.nw
+	sh := g.shift[:nw*d]
 	for p := i * P / c.pieces; p < (i+1)*P/c.pieces; p++ {
-		fastmat.AndCount(c.cnt[p*d:(p+1)*d], sh, g.words[p][1:1+c.nw], c.nw)
+		fastmat.AndCount(c.cnt[p*d:(p+1)*d], sh, g.own[p*nw:(p+1)*nw], nw)
 	}
 }
 
@@ -356,6 +386,7 @@ func (g *LagGram) crossTo(dst []float64) {
 		return
 	}
 	// Counts of the partial chunk go into a copy of the running counts.
+	g.counting.Wait()
 	for i, c := range g.counts {
 		dst[i] = float64(c)
 	}
@@ -401,7 +432,7 @@ func (g *LagGram) toDense() {
 	g.q = make([]float64, P*g.dim)
 	g.crossTo(g.q)
 	g.binary = false
-	g.counts, g.words, g.shift = nil, nil, nil
+	g.counts, g.words, g.shift, g.own = nil, nil, nil, nil
 	g.chunk = make([]float64, (L-1+denseChunk)*P)
 	g.x = make([]float64, denseChunk*g.dim)
 	for h := 1; h < L; h++ {

@@ -396,3 +396,82 @@ func ExampleBatchRidge() {
 	fmt.Printf("weights %.3f %.3f %.3f %.3f, intercept %.3f\n", round(w.At(0, 0)), round(w.At(1, 0)), round(w.At(2, 0)), round(w.At(3, 0)), round(b[0]))
 	// Output: weights 0.000 0.000 0.000 2.000, intercept 3.000
 }
+
+// TestLagGramCountsBesideFrames: a full chunk's pair counts run on their
+// own goroutine while the next frames come in. Reads (GramTo, View), a
+// Restart and the switch to the general route each come right after a
+// chunk filled, while its count is under way; the Gram must still be that
+// of the lagged design (the plain definition, laggedDesign, summed over the
+// segments of a restarted history, after a Reset those that follow it):
+// exactly for ±1 frames, whose products
+// and sums are integers, and to 1e-10 relative after Gaussian frames. Run
+// with -race too.
+func TestLagGramCountsBesideFrames(t *testing.T) {
+	const pixels, lags, n = 8, 4, 4*1024 + 100
+	for _, c := range []struct {
+		gaussianFrom int
+		reset        bool // a Reset instead of the first read
+	}{{n, false}, {3 * 1024, false}, {n, true}} {
+		gaussianFrom := c.gaussianFrom
+		t.Run(fmt.Sprintf("gaussian from %d, reset %v", gaussianFrom, c.reset), func(t *testing.T) {
+			r := rand.New(rand.NewPCG(13, uint64(gaussianFrom)))
+			g, err := NewLagGram(pixels, lags)
+			if err != nil {
+				t.Fatal(err)
+			}
+			frames := make([][]float64, n)
+			var segments [][][]float64
+			start := 0
+			var got mat.SymDense
+			for m := range frames {
+				frames[m] = make([]float64, pixels)
+				for i := range frames[m] {
+					if m < gaussianFrom {
+						frames[m][i] = float64(2*r.IntN(2) - 1)
+					} else {
+						frames[m][i] = r.NormFloat64()
+					}
+				}
+				if err := g.AddFrame(frames[m]); err != nil {
+					t.Fatal(err)
+				}
+				switch m + 1 { // a chunk has just filled: its count is under way
+				case 1024:
+					if c.reset {
+						g.Reset()
+						start = m + 1
+						break
+					}
+					if err := g.GramTo(&got, false); err != nil {
+						t.Fatal(err)
+					}
+				case 2048:
+					g.Restart()
+					segments = append(segments, frames[start:m+1])
+					start = m + 1
+				case 4096:
+					if _, err := g.View(); err != nil {
+						t.Fatal(err)
+					}
+				}
+			}
+			segments = append(segments, frames[start:])
+			want := mat.NewSymDense(pixels*lags, nil)
+			for _, seg := range segments {
+				x := laggedDesign(seg, lags)
+				var part mat.SymDense
+				part.SymOuterK(1, x.T())
+				want.AddSym(want, &part)
+			}
+			if err := g.GramTo(&got, false); err != nil {
+				t.Fatal(err)
+			}
+			if gaussianFrom == n && !mat.Equal(&got, want) {
+				t.Fatalf("XᵀX differs from the design's (relative %.3g), want equal", relDiff(&got, want))
+			}
+			if e := relDiff(&got, want); e > 1e-10 {
+				t.Fatalf("XᵀX: relative difference %.3g > 1e-10", e)
+			}
+		})
+	}
+}
