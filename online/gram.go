@@ -4,13 +4,13 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"math/bits"
-	"runtime"
 	"sync"
 
 	"gonum.org/v1/gonum/blas"
 	"gonum.org/v1/gonum/blas/blas64"
 	"gonum.org/v1/gonum/mat"
+
+	"livefield/online/internal/fastmat"
 )
 
 // LagGram accumulates, frame by frame, what is needed to form the Gram
@@ -31,7 +31,9 @@ import (
 // float64, such as ±c or {0, 1}).
 //
 // Pair counts are kept in 32 bits, so a block holds at most 2³² − 1 frames
-// (about 2 years at 60 Hz). A LagGram is not safe for concurrent use.
+// (about 2 years at 60 Hz). The pair counts of a full chunk of 1024 frames
+// run on a goroutine of its own beside the next frames; every read waits
+// for them. A LagGram is not safe for concurrent use.
 type LagGram struct {
 	pixels, lags, dim int
 	n                 int // frames added
@@ -41,15 +43,24 @@ type LagGram struct {
 	sum   []float64   // Σ_m s_m
 
 	// Two-level route.
-	binary    bool
-	lo, hi    float64 // the two levels (hi valid when hasHi)
-	hasHi     bool
-	ones      []int64    // per pixel, frames at level hi
-	words     [][]uint64 // per pixel: [carry, chunk words…]
-	wordBits  int        // frames written into the current chunk
-	counts    []uint32   // pixels × dim: counts[p*dim + τ*P + q] = Σ β_m[p] β_{m−τ}[q]
-	shift     []uint64   // scratch, per worker: shifted words of one pixel
-	bitChunks int        // words per chunk
+	binary   bool
+	lo, hi   float64 // the two levels (hi valid when hasHi)
+	hasHi    bool
+	ones     []int64    // per pixel, frames at level hi
+	words    [][]uint64 // per pixel: [carry, chunk words…]
+	wordBits int        // frames written into the current chunk
+	counts   []uint32   // pixels × dim: counts[p*dim + τ*P + q] = Σ β_m[p] β_{m−τ}[q]
+	// A full chunk's pair counts run on a goroutine of its own (counting)
+	// while the next chunk's frames come in: shift holds the chunk's words
+	// of every pixel at every lag, own its words of every pixel (P × nw),
+	// pairs the task; counts, shift and own are touched only after
+	// counting.Wait.
+	shift     []uint64
+	own       []uint64
+	pairs     pairCount
+	counting  sync.WaitGroup
+	countNext func() // counts pairs; made once, so that starting a count does not allocate
+	bitChunks int    // words per chunk
 
 	// Floating-point route.
 	q     []float64 // pixels × dim: q[p*dim + τ*P + q] = Q_τ(n)[p, q]
@@ -102,6 +113,10 @@ func NewLagGram(pixels, lags int) (*LagGram, error) {
 	g.words = make([][]uint64, pixels)
 	for p := range g.words {
 		g.words[p] = make([]uint64, 1+bitWords)
+	}
+	g.countNext = func() {
+		defer g.counting.Done()
+		fastmat.Each(g.pairs.pieces, &g.pairs)
 	}
 	return g, nil
 }
@@ -160,6 +175,7 @@ func (g *LagGram) Reset() {
 
 // resetSegment forgets the frames of the current segment.
 func (g *LagGram) resetSegment() {
+	g.counting.Wait()
 	g.n = 0
 	clear(g.sum)
 	g.binary, g.hasHi, g.lo, g.hi = true, false, 0, 0
@@ -271,7 +287,11 @@ func (g *LagGram) addBits(s []float64) {
 	}
 	g.wordBits++
 	if g.wordBits == 64*g.bitChunks {
-		g.countChunk(g.counts, g.bitChunks)
+		// The chunk's pairs are counted beside the next frames.
+		g.counting.Wait()
+		g.pairs = g.layChunk(g.counts, g.bitChunks)
+		g.counting.Add(1)
+		go g.countNext()
 		for _, ws := range g.words {
 			ws[0] = ws[g.bitChunks]
 			clear(ws[1:])
@@ -280,60 +300,58 @@ func (g *LagGram) addBits(s []float64) {
 	}
 }
 
-// countChunk adds to cnt the pair counts of the first nw chunk words.
+// countChunk adds to cnt the pair counts of the first nw chunk words, on
+// all cores (fastmat.Each), and returns when they are counted.
 func (g *LagGram) countChunk(cnt []uint32, nw int) {
-	P, d, L := g.pixels, g.dim, g.lags
-	workers := min(runtime.GOMAXPROCS(0), L)
-	if need := workers * (nw + 1); len(g.shift) < need {
-		g.shift = make([]uint64, need)
-	}
-	var wg sync.WaitGroup
-	for wk := range workers {
-		sh := g.shift[wk*(nw+1) : (wk+1)*(nw+1)]
-		work := func() {
-			for tau := wk; tau < L; tau += workers {
-				for qq := range P {
-					src := g.words[qq]
-					for w := 1; w <= nw; w++ {
-						// Bit j of sh[w] is frame (chunk start + 64(w−1) + j − τ) of pixel qq.
-						sh[w] = src[w]<<uint(tau) | src[w-1]>>uint(64-tau)
-					}
-					col := tau*P + qq
-					if nw == bitWords {
-						countFull(cnt[col:], d, g.words, (*[bitWords]uint64)(sh[1:1+bitWords]))
-						continue
-					}
-					for p := range P {
-						wp := g.words[p]
-						c := 0
-						for w := 1; w <= nw; w++ {
-							c += bits.OnesCount64(wp[w] & sh[w])
-						}
-						cnt[p*d+col] += uint32(c)
-					}
-				}
-			}
-		}
-		if workers == 1 {
-			work()
-			continue
-		}
-		wg.Go(work)
-	}
-	wg.Wait()
+	g.counting.Wait()
+	task := g.layChunk(cnt, nw)
+	fastmat.Each(task.pieces, &task)
 }
 
-// countFull adds to cnt[p·d] the pairs of pixel p's full chunk of words
-// with the shifted words sh, for every pixel p: the inner loop of
-// countChunk, unrolled over the chunk's 16 words with four independent sums.
-func countFull(cnt []uint32, d int, words [][]uint64, sh *[bitWords]uint64) {
-	for p, ws := range words {
-		w := (*[1 + bitWords]uint64)(ws)
-		c0 := bits.OnesCount64(w[1]&sh[0]) + bits.OnesCount64(w[5]&sh[4]) + bits.OnesCount64(w[9]&sh[8]) + bits.OnesCount64(w[13]&sh[12])
-		c1 := bits.OnesCount64(w[2]&sh[1]) + bits.OnesCount64(w[6]&sh[5]) + bits.OnesCount64(w[10]&sh[9]) + bits.OnesCount64(w[14]&sh[13])
-		c2 := bits.OnesCount64(w[3]&sh[2]) + bits.OnesCount64(w[7]&sh[6]) + bits.OnesCount64(w[11]&sh[10]) + bits.OnesCount64(w[15]&sh[14])
-		c3 := bits.OnesCount64(w[4]&sh[3]) + bits.OnesCount64(w[8]&sh[7]) + bits.OnesCount64(w[12]&sh[11]) + bits.OnesCount64(w[16]&sh[15])
-		cnt[p*d] += uint32(c0 + c1 + c2 + c3)
+// layChunk lays out the first nw chunk words for counting and returns the
+// task that adds their pair counts to cnt: the words of every pixel
+// shifted by every lag as D strings (word w of string τ·P+q at
+// shift[w·D + τ·P + q]) and each pixel's own words; pixel p's row of
+// counts, cnt[p·D : (p+1)·D], is then one fastmat.AndCount of those strings
+// against p's words. The table is g's until the task is done.
+func (g *LagGram) layChunk(cnt []uint32, nw int) pairCount {
+	P, d, L := g.pixels, g.dim, g.lags
+	if need := nw * d; len(g.shift) < need {
+		g.shift = make([]uint64, need)
+	}
+	if need := nw * P; len(g.own) < need {
+		g.own = make([]uint64, need)
+	}
+	sh := g.shift[:nw*d]
+	for qq := range P {
+		src := g.words[qq]
+		copy(g.own[qq*nw:(qq+1)*nw], src[1:1+nw])
+		for tau := range L {
+			col := tau*P + qq
+			for w := 1; w <= nw; w++ {
+				// Bit j is frame (chunk start + 64(w−1) + j − τ) of pixel qq.
+				sh[(w-1)*d+col] = src[w]<<uint(tau) | src[w-1]>>uint(64-tau)
+			}
+		}
+	}
+	// Several pieces per worker balance the load when a core is busy elsewhere.
+	return pairCount{g: g, cnt: cnt, nw: nw, pieces: min(P, 4*fastmat.Workers())}
+}
+
+// pairCount is a chunk's counting task: piece i counts the pairs of a
+// share of the pixels.
+type pairCount struct {
+	g          *LagGram
+	cnt        []uint32
+	nw, pieces int
+}
+
+func (c *pairCount) Do(i, _ int) {
+	g := c.g
+	P, d, nw := g.pixels, g.dim, c.nw
+	sh := g.shift[:nw*d]
+	for p := i * P / c.pieces; p < (i+1)*P/c.pieces; p++ {
+		fastmat.AndCount(c.cnt[p*d:(p+1)*d], sh, g.own[p*nw:(p+1)*nw], nw)
 	}
 }
 
@@ -368,6 +386,7 @@ func (g *LagGram) crossTo(dst []float64) {
 		return
 	}
 	// Counts of the partial chunk go into a copy of the running counts.
+	g.counting.Wait()
 	for i, c := range g.counts {
 		dst[i] = float64(c)
 	}
@@ -413,7 +432,7 @@ func (g *LagGram) toDense() {
 	g.q = make([]float64, P*g.dim)
 	g.crossTo(g.q)
 	g.binary = false
-	g.counts, g.words, g.shift = nil, nil, nil
+	g.counts, g.words, g.shift, g.own = nil, nil, nil, nil
 	g.chunk = make([]float64, (L-1+denseChunk)*P)
 	g.x = make([]float64, denseChunk*g.dim)
 	for h := 1; h < L; h++ {

@@ -34,6 +34,27 @@ func relDiff(a, b mat.Matrix) float64 {
 	return mat.Norm(&d, math.Inf(1)) / math.Max(mat.Norm(b, math.Inf(1)), 1e-300)
 }
 
+// feedLagGram adds frames of value(m, i) (frame m, pixel i) to a new
+// LagGram and returns it with the frames.
+func feedLagGram(t *testing.T, pixels, lags, n int, value func(m, i int) float64) (*LagGram, [][]float64) {
+	t.Helper()
+	g, err := NewLagGram(pixels, lags)
+	if err != nil {
+		t.Fatal(err)
+	}
+	frames := make([][]float64, n)
+	for m := range frames {
+		frames[m] = make([]float64, pixels)
+		for i := range frames[m] {
+			frames[m][i] = value(m, i)
+		}
+		if err := g.AddFrame(frames[m]); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return g, frames
+}
+
 func TestLagGramMatchesDesign(t *testing.T) {
 	// Each case exercises one route: two-level frames (packed bits, over more
 	// than one 1024-frame chunk), general frames (chunked products), and a
@@ -64,20 +85,7 @@ func TestLagGramMatchesDesign(t *testing.T) {
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			r := rand.New(rand.NewPCG(1, uint64(c.frames)))
-			g, err := NewLagGram(c.pixels, c.lags)
-			if err != nil {
-				t.Fatal(err)
-			}
-			frames := make([][]float64, c.frames)
-			for m := range frames {
-				frames[m] = make([]float64, c.pixels)
-				for i := range frames[m] {
-					frames[m][i] = c.value(r, m)
-				}
-				if err := g.AddFrame(frames[m]); err != nil {
-					t.Fatal(err)
-				}
-			}
+			g, frames := feedLagGram(t, c.pixels, c.lags, c.frames, func(m, _ int) float64 { return c.value(r, m) })
 			x := laggedDesign(frames, c.lags)
 			var want mat.SymDense
 			want.SymOuterK(1, x.T())
@@ -252,6 +260,47 @@ func TestBatchRidgeGolden(t *testing.T) {
 	}
 }
 
+// TestLagGramPairCounts checks the two-level route's pair counts, full
+// chunks and the partial one, against their definition counted frame by
+// frame: Q_τ(n)[p, q] = Σ_{τ≤m<n} s_m[p]·s_{m−τ}[q]. With 0/1 frames every
+// term is an integer, so the two must agree exactly (the definition is
+// LagGram's own doc comment; the sizes run the vector counting paths, 8 and
+// 16 strings at a time, and the scalar tail).
+func TestLagGramPairCounts(t *testing.T) {
+	cases := []struct{ pixels, lags, frames int }{
+		{20, 5, 2500},  // D = 100: vector paths and a tail of 4
+		{16, 12, 1100}, // D = 192, one full chunk and a short one
+		{3, 2, 700},    // D = 6: the scalar tail only, a partial chunk only
+	}
+	for _, c := range cases {
+		t.Run(fmt.Sprintf("P%d_L%d_n%d", c.pixels, c.lags, c.frames), func(t *testing.T) {
+			r := rand.New(rand.NewPCG(5, uint64(c.frames)))
+			g, frames := feedLagGram(t, c.pixels, c.lags, c.frames, func(m, i int) float64 {
+				if m == 0 && i < 2 {
+					return float64(i) // two levels from the first frame on
+				}
+				return float64(r.IntN(2))
+			})
+			P, d := c.pixels, c.pixels*c.lags
+			got := make([]float64, P*d)
+			g.crossTo(got)
+			for tau := range c.lags {
+				for p := range P {
+					for q := range P {
+						var want float64
+						for m := tau; m < c.frames; m++ {
+							want += frames[m][p] * frames[m-tau][q]
+						}
+						if v := got[p*d+tau*P+q]; v != want {
+							t.Fatalf("Q_%d[%d, %d] = %v, want %v", tau, p, q, v, want)
+						}
+					}
+				}
+			}
+		})
+	}
+}
+
 // BenchmarkLagGram times AddFrame over a block of binary (or Gaussian) noise
 // followed by the centred Gram and the all-units ridge solve. The
 // cross-products Σ y x are formed outside the timer (the STA accumulator
@@ -346,4 +395,83 @@ func ExampleBatchRidge() {
 	round := func(v float64) float64 { return math.Round(v*1000)/1000 + 0 } // +0 turns −0 into 0
 	fmt.Printf("weights %.3f %.3f %.3f %.3f, intercept %.3f\n", round(w.At(0, 0)), round(w.At(1, 0)), round(w.At(2, 0)), round(w.At(3, 0)), round(b[0]))
 	// Output: weights 0.000 0.000 0.000 2.000, intercept 3.000
+}
+
+// TestLagGramCountsBesideFrames: a full chunk's pair counts run on their
+// own goroutine while the next frames come in. Reads (GramTo, View), a
+// Restart and the switch to the general route each come right after a
+// chunk filled, while its count is under way; the Gram must still be that
+// of the lagged design (the plain definition, laggedDesign, summed over the
+// segments of a restarted history, after a Reset those that follow it):
+// exactly for ±1 frames, whose products
+// and sums are integers, and to 1e-10 relative after Gaussian frames. Run
+// with -race too.
+func TestLagGramCountsBesideFrames(t *testing.T) {
+	const pixels, lags, n = 8, 4, 4*1024 + 100
+	for _, c := range []struct {
+		gaussianFrom int
+		reset        bool // a Reset instead of the first read
+	}{{n, false}, {3 * 1024, false}, {n, true}} {
+		gaussianFrom := c.gaussianFrom
+		t.Run(fmt.Sprintf("gaussian from %d, reset %v", gaussianFrom, c.reset), func(t *testing.T) {
+			r := rand.New(rand.NewPCG(13, uint64(gaussianFrom)))
+			g, err := NewLagGram(pixels, lags)
+			if err != nil {
+				t.Fatal(err)
+			}
+			frames := make([][]float64, n)
+			var segments [][][]float64
+			start := 0
+			var got mat.SymDense
+			for m := range frames {
+				frames[m] = make([]float64, pixels)
+				for i := range frames[m] {
+					if m < gaussianFrom {
+						frames[m][i] = float64(2*r.IntN(2) - 1)
+					} else {
+						frames[m][i] = r.NormFloat64()
+					}
+				}
+				if err := g.AddFrame(frames[m]); err != nil {
+					t.Fatal(err)
+				}
+				switch m + 1 { // a chunk has just filled: its count is under way
+				case 1024:
+					if c.reset {
+						g.Reset()
+						start = m + 1
+						break
+					}
+					if err := g.GramTo(&got, false); err != nil {
+						t.Fatal(err)
+					}
+				case 2048:
+					g.Restart()
+					segments = append(segments, frames[start:m+1])
+					start = m + 1
+				case 4096:
+					if _, err := g.View(); err != nil {
+						t.Fatal(err)
+					}
+				}
+			}
+			segments = append(segments, frames[start:])
+			want := mat.NewSymDense(pixels*lags, nil)
+			for _, seg := range segments {
+				x := laggedDesign(seg, lags)
+				var part mat.SymDense
+				part.SymOuterK(1, x.T())
+				want.AddSym(want, &part)
+			}
+			if err := g.GramTo(&got, false); err != nil {
+				t.Fatal(err)
+			}
+			if gaussianFrom == n && !mat.Equal(&got, want) {
+				t.Fatalf("XᵀX differs from the design's (relative %.3g), want equal", relDiff(&got, want))
+			}
+			if e := relDiff(&got, want); e > 1e-10 {
+				t.Fatalf("XᵀX: relative difference %.3g > 1e-10", e)
+			}
+		})
+	}
 }

@@ -80,14 +80,21 @@ func (r *Ridge) Anchor(rows int64, gram func(dst *mat.SymDense) error, sumX, cro
 	}
 
 	// Wᵀ = (AᵀY)ᵀ P, column by column of the responses; J = yᵀy − (AᵀY)ᵀW.
-	if r.cols > 0 {
-		bt := make([]float64, r.cols*ld)
-		for c := range r.cols {
+	// Columns whose AᵀY is zero (room for units yet to come, and those
+	// after them) have W = 0 and J = yᵀy: the product skips them.
+	live := r.cols
+	for live > 0 && allZero(cross[(live-1)*n:live*n]) {
+		live--
+	}
+	clear(r.wt)
+	copy(r.obj, yy[:r.cols])
+	if live > 0 {
+		bt := make([]float64, live*ld)
+		for c := range live {
 			copy(bt[c*ld:c*ld+n], cross[c*n:(c+1)*n])
 		}
-		clear(r.wt)
-		fastmat.MulAdd(r.cols, ld, ld, 1, bt, ld, r.p, ld, r.wt, ld)
-		for c := range r.cols {
+		fastmat.MulAdd(live, ld, ld, 1, bt, ld, r.p, ld, r.wt, ld)
+		for c := range live {
 			r.obj[c] = yy[c] - dot(bt[c*ld:c*ld+n], r.wt[c*ld:c*ld+n])
 		}
 	}
@@ -105,4 +112,14 @@ func (r *Ridge) mirrorRows(t int) {
 			r.p[i*ld+j] = r.p[j*ld+i]
 		}
 	}
+}
+
+// allZero reports whether every value of v is zero.
+func allZero(v []float64) bool {
+	for _, x := range v {
+		if x != 0 {
+			return false
+		}
+	}
+	return true
 }

@@ -113,3 +113,72 @@ func TestRidgeAnchorAgainstScikitLearn(t *testing.T) {
 		})
 	}
 }
+
+// TestRidgeAnchorEmptyColumns re-anchors a ridge that has room for more
+// columns than the responses fill (as the mapper keeps for units yet to
+// come): Anchor skips the trailing columns whose cross-products are zero.
+// The columns in use must still match scikit-learn's Ridge and numpy
+// (testdata/golden/ridge_golden.py, 1e-8 relative), the spare ones must
+// hold W = 0 and J = yᵀy = 0, and when a spare column gets responses after
+// the anchor (a unit appearing late) the state must match a ridge fed every
+// row by the recursion only.
+func TestRidgeAnchorEmptyColumns(t *testing.T) {
+	g := loadRidgeGolden(t)
+	const spare = 3
+	for _, c := range g.Cases {
+		t.Run(fmt.Sprintf("%s/lambda=%g", c.Stimulus, c.Lambda), func(t *testing.T) {
+			st := g.Stimuli[c.Stimulus]
+			X := ridgeLagRows(st.Frames, g.Lags)
+			first := c.Checkpoints[0].N
+			// Y with spare columns: zero up to the first checkpoint, then a
+			// copy of column 0 in the first spare (a late unit).
+			Y := make([][]float64, len(st.Y))
+			for k, row := range st.Y {
+				Y[k] = append(append([]float64(nil), row...), make([]float64, spare)...)
+				if k >= first {
+					Y[k][len(row)] = row[0]
+				}
+			}
+			dim, cols := len(X[0]), len(st.Y[0])
+			r, err := NewRidge(dim, cols+spare, c.Lambda)
+			if err != nil {
+				t.Fatal(err)
+			}
+			pure, _ := NewRidge(dim, cols+spare, c.Lambda)
+			for k := range first {
+				pure.AddRow(X[k], Y[k])
+			}
+			pure.Flush()
+			gram, sumX, cross, yy := ridgeStats(X, Y, first)
+			if err := r.Anchor(int64(first), gram, sumX, cross, yy); err != nil {
+				t.Fatal(err)
+			}
+			cp := c.Checkpoints[0]
+			w := make([]float64, dim)
+			for u := range cols {
+				b := r.WeightsTo(w, u)
+				if e := max(ridgeRelVec(w, cp.Coef[u]), ridgeRel(b, cp.Intercept[u]), ridgeRel(r.Objective(u), cp.Objective[u])); e > 1e-8 {
+					t.Errorf("column %d: off scikit-learn's by %.3g relative", u, e)
+				}
+			}
+			for u := cols; u < cols+spare; u++ {
+				b := r.WeightsTo(w, u)
+				if !allZero(w) || b != 0 || r.Objective(u) != 0 {
+					t.Errorf("spare column %d: weights not zero (intercept %v, objective %v)", u, b, r.Objective(u))
+				}
+			}
+			if p, wo, obj := ridgeStateOff(r, pure); p > 1e-8 || wo > 1e-8 || obj > 1e-8 {
+				t.Errorf("at the anchor: state off the recursion's by %.3g (P), %.3g (W), %.3g (J)", p, wo, obj)
+			}
+			for k := first; k < len(X); k++ {
+				r.AddRow(X[k], Y[k])
+				pure.AddRow(X[k], Y[k])
+			}
+			r.Flush()
+			pure.Flush()
+			if p, wo, obj := ridgeStateOff(r, pure); p > 1e-8 || wo > 1e-8 || obj > 1e-8 {
+				t.Errorf("after the late column: state off the recursion's by %.3g (P), %.3g (W), %.3g (J)", p, wo, obj)
+			}
+		})
+	}
+}

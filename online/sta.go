@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"sync"
 
 	gfloats "gonum.org/v1/gonum/floats"
 
@@ -29,7 +30,10 @@ import (
 // batch's lagged pixel bit strings, into integer sums that reads drain into
 // the float sums (sta_bits.go); the sums are the same, exactly so for ±1 or
 // 0/1 levels and integer counts. Units are spread
-// over the cores by fastmat.Each. A bin whose lagged row is not the shift of
+// over the cores by fastmat.Each, and the fold of a full batch runs on a
+// goroutine of its own while AddBin fills the next batch: one fold at a
+// time, in batch order, so the sums are those of folding in line; reads,
+// Grow and Reset wait for it. A bin whose lagged row is not the shift of
 // the previous bin's (a restarted lag history) starts a new batch. Per bin
 // AddBin costs a copy of one frame, D comparisons to find out whether the
 // row is a shift (skipped for the Mapper, which knows), D additions for the
@@ -60,15 +64,27 @@ type STA struct {
 	mean  [3][]float64
 	meanN [2]int64
 
-	// The batch of bins not yet in the cross sums: their frames, the first
-	// lags−1 rows being the history before the batch's first bin, and their
-	// non-zero counts in bin order. fold is the scratch of a fold.
-	batchCap    int
-	batchFrames []float64 // (lags−1+batchCap) × pixels
-	batchN      int
-	batchSpikes []batchSpike
-	fold        staFold
-	bitSums     staBitSums // the bit route's integer part of the cross sums
+	// The batches of bins not yet in the cross sums: batches[fill] takes
+	// AddBin's bins while the other one may still be folding on a
+	// goroutine of its own (folding), one fold at a time, in batch order.
+	// fold is the scratch of a fold.
+	batchCap int
+	batches  [2]staBatch
+	fill     int
+	folding  sync.WaitGroup
+	foldNext func() // folds the other batch; made once, so that starting a fold does not allocate
+	fold     staFold
+	bitSums  staBitSums // the bit route's integer part of the cross sums
+}
+
+// staBatch is a batch of bins: their frames, the first lags−1 rows being
+// the history before the batch's first bin, their number, their non-zero
+// counts in bin order, and the rows' two-level description.
+type staBatch struct {
+	frames []float64 // (lags−1+batchCap) × pixels
+	n      int
+	spikes []batchSpike
+	rows   staRows
 }
 
 // staBatchBins is the number of bins folded into the cross sums at once:
@@ -98,7 +114,7 @@ const (
 func NewSTA(pixels, lags int) *STA {
 	pixels, lags = max(pixels, 0), max(lags, 0)
 	d := pixels * lags
-	return &STA{
+	s := &STA{
 		pixels:   pixels,
 		lags:     lags,
 		dim:      d,
@@ -106,6 +122,11 @@ func NewSTA(pixels, lags int) *STA {
 		stride:   2 * d,
 		batchCap: staBatchBins,
 	}
+	s.foldNext = func() {
+		defer s.folding.Done()
+		s.fold.run(s, &s.batches[1-s.fill])
+	}
+	return s
 }
 
 // Dim is D = pixels·lags, the length of x and of every estimate.
@@ -151,6 +172,7 @@ func (s *STA) Grow(units int) {
 	if units <= s.units {
 		return
 	}
+	s.folding.Wait() // the fold writes the sums being grown
 	add := units - s.units
 	s.data = append(s.data, make([]float64, add*s.stride)...)
 	if s.lags > 0 {
@@ -178,20 +200,29 @@ func (s *STA) shareCounts(c *countAutocov) {
 // find nothing to fold.
 func (s *STA) Flush() {
 	s.foldBatch()
+	s.folding.Wait()
 	s.bitSums.drain(s)
 }
 
-// foldBatch folds the batched bins into the cross sums (the bit route's
-// part into its integer sums, see sta_bits.go) and empties the batch.
+// foldBatch starts the fold of the batched bins into the cross sums (the
+// bit route's part into its integer sums, see sta_bits.go) on a goroutine
+// of its own, once the previous fold is done, and gives AddBin the other
+// batch. The fold runs while AddBin fills that batch: everything it writes
+// (the sums, the integer sums, its scratch) is read or grown only after
+// s.folding.Wait (Flush, Grow, Reset and the next foldBatch).
 func (s *STA) foldBatch() {
-	if s.batchN == 0 {
+	b := &s.batches[s.fill]
+	if b.n == 0 {
 		return // nothing to fold, and nothing written: reads may run concurrently
 	}
-	if len(s.batchSpikes) > 0 && s.dim > 0 {
-		s.fold.run(s)
+	s.folding.Wait()
+	s.fill = 1 - s.fill
+	if len(b.spikes) > 0 && s.dim > 0 {
+		s.folding.Add(1)
+		go s.foldNext()
+		return
 	}
-	s.batchSpikes = s.batchSpikes[:0]
-	s.batchN = 0
+	b.spikes, b.n = b.spikes[:0], 0
 }
 
 // staFold adds a batch's spikes to the cross sums, the units spread over
@@ -204,6 +235,7 @@ type staFold struct {
 	order []int32 // spike indices grouped by unit, in bin order within a unit
 	busy  []int32 // units with spikes in this batch, in unit order
 
+	batch     *staBatch // the batch being folded
 	bits      staBits
 	work      []staWorker // per fastmat worker
 	minBins   int         // fewest bins with spikes of a unit's half counted by bits (0: staMinBins)
@@ -211,14 +243,14 @@ type staFold struct {
 	batches   [2]int64    // batches folded by multiply-adds [0] and by bits [1]
 }
 
-func (f *staFold) run(s *STA) {
-	f.s = s
+func (f *staFold) run(s *STA, b *staBatch) {
+	f.s, f.batch = s, b
 	if cap(f.first) < s.units+1 {
 		f.first = make([]int32, s.units+1, 2*s.units+1)
 	}
 	f.first = f.first[:s.units+1]
 	clear(f.first)
-	for _, sp := range s.batchSpikes {
+	for _, sp := range b.spikes {
 		f.first[sp.unit+1]++
 	}
 	f.busy = f.busy[:0]
@@ -228,9 +260,9 @@ func (f *staFold) run(s *STA) {
 		}
 		f.first[u+1] += f.first[u]
 	}
-	f.order = slices.Grow(f.order[:0], len(s.batchSpikes))[:len(s.batchSpikes)]
+	f.order = slices.Grow(f.order[:0], len(b.spikes))[:len(b.spikes)]
 	next := f.first[:s.units] // advanced while placing; restored below
-	for i, sp := range s.batchSpikes {
+	for i, sp := range b.spikes {
 		f.order[next[sp.unit]] = int32(i)
 		next[sp.unit]++
 	}
@@ -240,7 +272,7 @@ func (f *staFold) run(s *STA) {
 	f.first[0] = 0
 	f.bits.ok = false
 	if !f.floatOnly {
-		f.bits.prepare(s)
+		f.bits.prepare(s, &b.rows, b.n)
 	}
 	if f.work == nil {
 		f.work = make([]staWorker, fastmat.Workers())
@@ -256,7 +288,8 @@ func (f *staFold) run(s *STA) {
 		f.batches[0]++
 	}
 	fastmat.Each(len(f.busy), f)
-	f.s = nil
+	b.spikes, b.n = b.spikes[:0], 0
+	f.s, f.batch = nil, nil
 }
 
 // Do adds the batch's spikes of the i-th busy unit to its sums, on
@@ -272,10 +305,10 @@ func (f *staFold) Do(i, w int) {
 		terms = f.addBits(u, spikes, wk, terms)
 	} else {
 		for _, k := range spikes {
-			terms = append(terms, s.batchSpikes[k])
+			terms = append(terms, f.batch.spikes[k])
 		}
 	}
-	s.addFloat(u, terms)
+	s.addFloat(u, terms, f.batch.frames)
 	wk.terms = terms[:0]
 }
 
@@ -283,7 +316,7 @@ func (f *staFold) Do(i, w int) {
 // the counts times the frame lag bins earlier, four spikes at a time
 // (fastmat.AddScaled4), so that one lag's P sums are loaded and stored
 // once per four spikes.
-func (s *STA) addFloat(u int, spikes []batchSpike) {
+func (s *STA) addFloat(u int, spikes []batchSpike, frames []float64) {
 	if len(spikes) == 0 {
 		return
 	}
@@ -301,7 +334,7 @@ func (s *STA) addFloat(u int, spikes []batchSpike) {
 					continue
 				}
 				row := (L - 1 + int(sp.bin) - l) * P
-				a[n], rows[n] = sp.n, s.batchFrames[row:row+P]
+				a[n], rows[n] = sp.n, frames[row:row+P]
 				if n++; n == 4 {
 					fastmat.AddScaled4(dst, &a, &rows)
 					n = 0
@@ -318,24 +351,26 @@ func (s *STA) addFloat(u int, spikes []batchSpike) {
 // rows are its earlier lags, oldest first.
 func (s *STA) startBatch(x []float64) {
 	P, L := s.pixels, s.lags
-	if s.batchFrames == nil {
-		s.batchFrames = make([]float64, (L-1+s.batchCap)*P)
+	b := &s.batches[s.fill]
+	if b.frames == nil {
+		b.frames = make([]float64, (L-1+s.batchCap)*P)
 	}
-	s.fold.bits.startRows(s)
+	b.rows.startRows(s)
 	for r := range L - 1 {
 		l := L - 1 - r
-		copy(s.batchFrames[r*P:(r+1)*P], x[l*P:(l+1)*P])
-		s.fold.bits.addRow(r, x[l*P:(l+1)*P])
+		copy(b.frames[r*P:(r+1)*P], x[l*P:(l+1)*P])
+		b.rows.addRow(r, x[l*P:(l+1)*P])
 	}
 }
 
 // continues reports whether x is the shift of the batch's rows: its lag l
 // is the frame of the bin l bins before.
 func (s *STA) continues(x []float64) bool {
-	P, L, j := s.pixels, s.lags, s.batchN
+	b := &s.batches[s.fill]
+	P, L, j := s.pixels, s.lags, b.n
 	for l := 1; l < L; l++ {
 		row := (L - 1 + j - l) * P
-		if !slices.Equal(x[l*P:(l+1)*P], s.batchFrames[row:row+P]) { // a NaN never equals: a new batch
+		if !slices.Equal(x[l*P:(l+1)*P], b.frames[row:row+P]) { // a NaN never equals: a new batch
 			return false
 		}
 	}
@@ -371,17 +406,19 @@ func (s *STA) addBin(x []float64, halfA bool, counts []Count, shifted bool) {
 	k := s.n[0] + s.n[1]               // index of this bin
 	gfloats.Add(s.sumX[h][:len(x)], x) // gonum's vector kernels: this is the message path
 	if s.dim > 0 {
-		if s.batchN > 0 && !shifted && !s.continues(x) {
+		if s.batches[s.fill].n > 0 && !shifted && !s.continues(x) {
 			s.foldBatch()
 		}
-		if s.batchN == 0 {
+		b := &s.batches[s.fill]
+		if b.n == 0 {
 			s.startBatch(x)
 		}
-		row := (s.lags - 1 + s.batchN) * s.pixels
-		copy(s.batchFrames[row:row+s.pixels], x[:s.pixels])
-		s.fold.bits.addRow(s.lags-1+s.batchN, x[:s.pixels])
+		row := (s.lags - 1 + b.n) * s.pixels
+		copy(b.frames[row:row+s.pixels], x[:s.pixels])
+		b.rows.addRow(s.lags-1+b.n, x[:s.pixels])
 	}
-	j := s.batchN // row of this bin in the batch
+	b := &s.batches[s.fill]
+	j := b.n // row of this bin in the batch
 	for _, c := range counts {
 		y := c.N
 		if c.Unit < 0 || y < 0 || math.IsNaN(y) || math.IsInf(y, 0) {
@@ -395,14 +432,14 @@ func (s *STA) addBin(x []float64, halfA bool, counts []Count, shifted bool) {
 		if u >= s.units {
 			s.Grow(u + 1)
 		}
-		s.batchSpikes = append(s.batchSpikes, batchSpike{unit: int32(u), bin: int32(j), half: int32(h), n: y})
+		b.spikes = append(b.spikes, batchSpike{unit: int32(u), bin: int32(j), half: int32(h), n: y})
 		s.sy[u][h] += y
 		if s.counts != nil && !s.countsShared {
 			s.counts.add(u, k, y)
 		}
 	}
 	s.n[h]++
-	if s.batchN++; s.batchN == s.batchCap {
+	if b.n++; b.n == s.batchCap {
 		s.foldBatch()
 	}
 }
@@ -536,6 +573,7 @@ func (s *STA) AutocovTo(dst []float64, u int) {
 
 // Reset forgets all sums; units stay known and their storage is kept.
 func (s *STA) Reset() {
+	s.folding.Wait()
 	s.n = [2]int64{}
 	clear(s.sumX[0])
 	clear(s.sumX[1])
@@ -545,8 +583,9 @@ func (s *STA) Reset() {
 	}
 	clear(s.sy)
 	s.bitSums.reset()
-	s.batchSpikes = s.batchSpikes[:0]
-	s.batchN = 0
+	for i := range s.batches {
+		s.batches[i].spikes, s.batches[i].n = s.batches[i].spikes[:0], 0
+	}
 	s.rejected = 0
 	s.meanN = [2]int64{-1, -1} // the cached means are stale
 }

@@ -61,25 +61,27 @@ func staMinBins(words int) int {
 	return 8 * words
 }
 
-// staBits is a batch's two-level description: its levels and the lagged
-// bit strings of its pixels.
+// staBits is a batch's two-level description for its fold: its levels and
+// the lagged bit strings of its pixels.
 type staBits struct {
 	ok     bool    // every row of the batch is two-level and finite
 	lo, hi float64 // the levels (those of the integer sums)
 	words  int     // words per lagged string: ⌈bins/64⌉
+	// lagged holds word w of the string of lag l and pixel p at
+	// lagged[w·D + l·P + p]: bit j is set when bin 64w+j's frame l bins
+	// earlier has pixel p at hi.
+	lagged []uint64
+}
 
-	// The rows as AddBin copies them: whether they are still two-level,
-	// how many levels they showed (0, 1, 2), which, and per pixel the rows
-	// at the second level (bit r of raw[p·stride:]).
+// staRows are a batch's rows as AddBin copies them: whether they are still
+// two-level, how many levels they showed (0, 1, 2), which, and per pixel
+// the rows at the second level (bit r of raw[p·stride:]).
+type staRows struct {
 	rowsOK       bool
 	levels       int
 	rowLo, rowHi float64
 	stride       int
 	raw          []uint64
-	// lagged holds word w of the string of lag l and pixel p at
-	// lagged[w·D + l·P + p]: bit j is set when bin 64w+j's frame l bins
-	// earlier has pixel p at hi.
-	lagged []uint64
 }
 
 // staWorker is one worker's scratch of a fold.
@@ -89,11 +91,10 @@ type staWorker struct {
 }
 
 // startRows begins the rows of a new batch.
-func (b *staBits) startRows(s *STA) {
+func (b *staRows) startRows(s *STA) {
 	if b.raw == nil {
 		b.stride = (s.lags - 1 + s.batchCap + 63) / 64
 		b.raw = make([]uint64, s.pixels*b.stride)
-		b.lagged = make([]uint64, s.dim*((s.batchCap+63)/64))
 	}
 	clear(b.raw)
 	b.rowsOK, b.levels = true, 0
@@ -102,7 +103,7 @@ func (b *staBits) startRows(s *STA) {
 // addRow looks at row r of the batch as AddBin copies it (while it is in
 // cache): it keeps the batch's levels, sets the row's bits at the second
 // level, and gives up on a third level or a non-finite value.
-func (b *staBits) addRow(r int, row []float64) {
+func (b *staRows) addRow(r int, row []float64) {
 	if !b.rowsOK {
 		return
 	}
@@ -147,19 +148,22 @@ func (b *staBits) addRow(r int, row []float64) {
 	}
 }
 
-// prepare ends the batch's rows: when they are two-level it agrees the
-// levels with the integer sums (draining them if they differ), builds the
-// lagged strings and sets ok.
-func (b *staBits) prepare(s *STA) {
-	P, L, N, D := s.pixels, s.lags, s.batchN, s.dim
+// prepare ends the rows r of a batch of n bins: when they are two-level it
+// agrees the levels with the integer sums (draining them if they differ),
+// builds the lagged strings and sets ok.
+func (b *staBits) prepare(s *STA, r *staRows, n int) {
+	P, L, N, D := s.pixels, s.lags, n, s.dim
 	rows := L - 1 + N
 	b.ok = false
-	if !b.rowsOK || b.levels == 0 {
+	if !r.rowsOK || r.levels == 0 {
 		return
 	}
-	lo, hi := b.rowLo, b.rowLo
-	if b.levels == 2 {
-		hi = b.rowHi
+	if b.lagged == nil {
+		b.lagged = make([]uint64, s.dim*((s.batchCap+63)/64))
+	}
+	lo, hi := r.rowLo, r.rowLo
+	if r.levels == 2 {
+		hi = r.rowHi
 	}
 	sums := &s.bitSums
 	sums.agree(s, lo, hi)
@@ -169,7 +173,7 @@ func (b *staBits) prepare(s *STA) {
 		// The row bits mark the batch's second level, which is the sums'
 		// lo: mark the sums' hi instead.
 		for p := range P {
-			src := b.raw[p*b.stride : p*b.stride+rw]
+			src := r.raw[p*r.stride : p*r.stride+rw]
 			for w := range src {
 				valid := ^uint64(0)
 				if left := rows - 64*w; left < 64 {
@@ -188,7 +192,7 @@ func (b *staBits) prepare(s *STA) {
 			off := L - 1 - l + 64*w
 			i, sh := off>>6, uint(off&63)
 			for p := range P {
-				src := b.raw[p*b.stride : p*b.stride+rw]
+				src := r.raw[p*r.stride : p*r.stride+rw]
 				v := src[i] >> sh
 				if sh != 0 && i+1 < rw {
 					v |= src[i+1] << (64 - sh)
@@ -215,7 +219,7 @@ func (f *staFold) addBits(u int, spikes []int32, wk *staWorker, terms []batchSpi
 	W, D := b.words, s.dim
 	planes := wk.planes[:2*staPlanes*W]
 	clear(planes)
-	all := s.batchSpikes
+	all := f.batch.spikes
 	for a := 0; a < len(spikes); {
 		// The unit's entries of one bin (in bin order): their integer
 		// counts add up, bit by bit into the planes.

@@ -259,3 +259,82 @@ func TestSTABitRouteShapes(t *testing.T) {
 		})
 	}
 }
+
+// TestSTAFoldBesideAddBin: the fold of each full batch runs on its own
+// goroutine while AddBin fills the next one. With batches of 16 bins many
+// folds are under way when units arrive (Grow), when reads flush mid-batch
+// and when the STA is Reset; the sums must still equal their definition,
+// Σ_k c_k·x_k per unit and half, computed bin by bin: exactly, since ±1
+// levels and integer counts make every sum an integer below 2⁵³. For both
+// routes; run with -race too.
+func TestSTAFoldBesideAddBin(t *testing.T) {
+	const pixels, lags, units, frames, reset = 20, 4, 10, 900, 450 // Reset at the first batch end from bin 450 on
+	D := pixels * lags
+	for _, floatOnly := range []bool{false, true} {
+		t.Run(fmt.Sprintf("float only %v", floatOnly), func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(41, 42))
+			f := make([][]float64, frames)
+			for m := range f {
+				f[m] = make([]float64, pixels)
+				for p := range f[m] {
+					f[m][p] = float64(2*rng.IntN(2) - 1)
+				}
+			}
+			s := NewSTA(pixels, lags)
+			s.batchCap = 16
+			s.fold.floatOnly = floatOnly
+			want := make([][2][]float64, units)
+			for u := range want {
+				want[u] = [2][]float64{make([]float64, D), make([]float64, D)}
+			}
+			x := make([]float64, D)
+			wasReset := false
+			for k := lags - 1; k < frames; k++ {
+				if k >= reset && !wasReset && s.batches[s.fill].n == 0 {
+					// A batch has just filled: its fold is under way.
+					s.Reset()
+					wasReset = true
+					for u := range want {
+						clear(want[u][0])
+						clear(want[u][1])
+					}
+				}
+				staLagged(x, f, k, lags)
+				var c []Count
+				for u := range min(units, 1+k/60) { // unit u arrives at bin 60u
+					if rng.IntN(4) == 0 {
+						c = append(c, Count{Unit: u, N: float64(1 + rng.IntN(3))})
+					}
+				}
+				half := (k/50)%2 == 0
+				h := 1
+				if half {
+					h = 0
+				}
+				for _, cu := range c {
+					for i, v := range x {
+						want[cu.Unit][h][i] += cu.N * v
+					}
+				}
+				s.AddBin(x, half, c)
+				if k%37 == 0 {
+					s.CrossTo(make([]float64, D), 0) // a read mid-batch
+				}
+			}
+			s.Flush()
+			if b := s.fold.batches; !floatOnly && b[1] == 0 {
+				t.Fatalf("%d batches by multiply-adds and %d by bits, want some by bits", b[0], b[1])
+			}
+			for u := range units {
+				for h := range 2 {
+					got := s.block(u, staA+h)
+					for i := range got {
+						if got[i] != want[u][h][i] {
+							t.Fatalf("unit %d half %d sum %d = %v, want %v", u, h, i, got[i], want[u][h][i])
+						}
+					}
+				}
+			}
+		})
+	}
+}

@@ -4,7 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"slices"
+	"math/bits"
 
 	"livefield/online"
 )
@@ -90,7 +90,7 @@ type Binner struct {
 	watermark  float64
 	tail       []spike // spikes at or after lastOnset, or before any frame
 	acc        []float64
-	touched    []int
+	touched    []uint64 // countsTo's bit set of the units in a bin
 	lateByUnit []int64
 	st         Stats
 }
@@ -375,22 +375,27 @@ func (b *Binner) Next(dst *Bin) bool {
 	return false
 }
 
-// countsTo tallies units into per-unit counts in increasing unit order.
+// countsTo tallies units into per-unit counts in increasing unit order:
+// the units seen are marked in a bit set, read back word by word (no sort).
 func (b *Binner) countsTo(dst []online.Count, units []int32) []online.Count {
-	b.touched = b.touched[:0]
 	for _, u := range units {
 		if int(u) >= len(b.acc) {
 			b.acc = append(b.acc, make([]float64, int(u)+1-len(b.acc))...)
+			b.touched = append(b.touched, make([]uint64, (len(b.acc)+63)/64-len(b.touched))...)
 		}
-		if b.acc[u] == 0 {
-			b.touched = append(b.touched, int(u))
-		}
+		b.touched[u>>6] |= 1 << (u & 63)
 		b.acc[u]++
 	}
-	slices.Sort(b.touched)
-	for _, u := range b.touched {
-		dst = append(dst, online.Count{Unit: u, N: b.acc[u]})
-		b.acc[u] = 0
+	for w, bits64 := range b.touched {
+		if bits64 == 0 {
+			continue
+		}
+		for ; bits64 != 0; bits64 &= bits64 - 1 {
+			u := w*64 + bits.TrailingZeros64(bits64)
+			dst = append(dst, online.Count{Unit: u, N: b.acc[u]})
+			b.acc[u] = 0
+		}
+		b.touched[w] = 0
 	}
 	return dst
 }

@@ -2,6 +2,7 @@ package binning
 
 import (
 	"fmt"
+	"maps"
 	"math"
 	"math/rand/v2"
 	"reflect"
@@ -539,5 +540,57 @@ func BenchmarkAddSpikesNext(b *testing.B) {
 			}
 			b.ReportMetric(float64(b.N*k)/b.Elapsed().Seconds(), "spikes/s")
 		})
+	}
+}
+
+// TestCountsInUnitOrder: a bin's counts are one entry per unit that spiked
+// in it, in increasing unit order, whatever order the spikes came in, for
+// unit indices that span several 64-unit words of the tally (the bin's
+// counts by their definition, tallied by a map and sorted; common
+// practice, no source).
+func TestCountsInUnitOrder(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	b, _ := New(Config{FramePeriod: 0.01, Grace: 0.001, MaxGap: 0.5})
+	const frames, units = 60, 300
+	idx, ts := make([]int64, frames), make([]float64, frames)
+	for i := range frames {
+		idx[i], ts[i] = int64(i), 1+0.01*float64(i)
+	}
+	if err := b.AddFrames(idx, ts); err != nil {
+		t.Fatal(err)
+	}
+	want := make([]map[int]float64, frames-1)
+	var su []int
+	var st []float64
+	for k := range want {
+		want[k] = map[int]float64{}
+		for range rng.IntN(80) {
+			u := rng.IntN(units)
+			if rng.IntN(4) == 0 {
+				u = rng.IntN(3) // some units spike often
+			}
+			su = append(su, u)
+			st = append(st, ts[k]+0.01*rng.Float64()*0.999)
+			want[k][u]++
+		}
+	}
+	rng.Shuffle(len(su), func(i, j int) { su[i], su[j] = su[j], su[i]; st[i], st[j] = st[j], st[i] })
+	b.AddSpikes(su, st)
+	if err := b.AddFrames([]int64{frames}, []float64{1 + 0.01*frames}); err != nil {
+		t.Fatal(err)
+	}
+	b.Flush()
+	got := drain(b)
+	if len(got) < len(want) {
+		t.Fatalf("%d bins, want at least %d", len(got), len(want))
+	}
+	for k, w := range want {
+		var exp []online.Count
+		for _, u := range slices.Sorted(maps.Keys(w)) {
+			exp = append(exp, online.Count{Unit: u, N: w[u]})
+		}
+		if !reflect.DeepEqual(got[k].Counts, exp) {
+			t.Fatalf("bin %d: counts %v, want %v", k, got[k].Counts, exp)
+		}
 	}
 }

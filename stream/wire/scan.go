@@ -2,6 +2,7 @@ package wire
 
 import (
 	"math"
+	"math/bits"
 	"strconv"
 	"strings"
 	"unicode/utf16"
@@ -295,12 +296,17 @@ var exactPow10 = [...]float64{1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 
 	1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22}
 
 // exactDecimal reads the valid JSON number b when it is a plain decimal
-// (no exponent) of at most 15 significant digits and 22 fraction digits,
-// as spike times and frame times are: the digits as an integer
-// m < 10¹⁵ < 2⁵³ and 10^f for f ≤ 22 fraction digits are both exact, so the one division m/10^f is rounded correctly
-// and equals strconv.ParseFloat's result (the fast path of W. D. Clinger,
-// "How to read floating point numbers accurately", PLDI 1990). Other
-// numbers report false.
+// (no exponent) of at most 19 significant digits, as spike times and frame
+// times are, and returns strconv.ParseFloat's result for it: the correctly
+// rounded value, ties to even. Other numbers report false.
+//
+// The digits, read as an integer m < 10¹⁹, and f fraction digits give
+// x = m/10^f. When m < 2⁵³ and f ≤ 22, m and 10^f are both exact and the one
+// division is rounded correctly (the fast path of W. D. Clinger, "How to
+// read floating point numbers accurately", PLDI 1990). Times of 16 and 17
+// significant digits (the shortest form of most float64 times) often have
+// m ≥ 2⁵³: for them, when f ≤ 19, the division gives a value within an ulp
+// or two of x, which nearestDouble corrects by exact integer comparisons.
 func exactDecimal(b []byte) (float64, bool) {
 	i, neg := 0, false
 	if len(b) > 0 && b[0] == '-' {
@@ -312,6 +318,9 @@ func exactDecimal(b []byte) (float64, bool) {
 		c := b[i]
 		switch {
 		case '0' <= c && c <= '9':
+			if nd == 19 {
+				return 0, false // m would pass 2⁶⁴
+			}
 			m = m*10 + uint64(c-'0')
 			if m != 0 {
 				nd++
@@ -325,14 +334,109 @@ func exactDecimal(b []byte) (float64, bool) {
 			return 0, false // an exponent
 		}
 	}
-	if nd > 15 || frac >= len(exactPow10) {
+	var v float64
+	switch {
+	case m <= 1<<53 && frac < len(exactPow10):
+		v = float64(m) / exactPow10[frac]
+	case frac < len(exactPow10Int):
+		var ok bool
+		if v, ok = nearestDouble(m, frac); !ok {
+			return 0, false
+		}
+	default:
 		return 0, false
 	}
-	v := float64(m) / exactPow10[frac]
 	if neg {
 		v = -v
 	}
 	return v, true
+}
+
+// exactPow10Int holds the powers of ten below 2⁶⁴.
+var exactPow10Int = [...]uint64{1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10,
+	1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19}
+
+// nearestDouble returns the float64 nearest to x = m/10^f (ties to the even
+// significand), for 2⁵³ < m < 2⁶⁴ and f ≤ 19, or false when the exact
+// comparisons would need more than 128 bits (x ≥ 2⁵³, or m·2^s too wide).
+// It starts from the rounded division and moves to a neighbour while x lies
+// beyond the midpoint between the two: a midpoint (2K+1)·2^E of the doubles
+// K·2^(E+1) and (K+1)·2^(E+1), E < 0, is compared with x as the integers
+// m·2^(−E) and (2K+1)·10^f.
+func nearestDouble(m uint64, f int) (float64, bool) {
+	p := exactPow10Int[f]
+	q := float64(m) / float64(p) // within two ulps of x
+	// above reports whether x is above (+1), at (0) or below (−1) the
+	// midpoint between lower and its successor.
+	above := func(lower float64) (int, bool) {
+		bits64 := math.Float64bits(lower)
+		exp := int(bits64 >> 52 & 0x7ff)
+		if exp == 0 || exp == 0x7ff {
+			return 0, false // subnormal, infinite or NaN: not here
+		}
+		k := bits64&(1<<52-1) | 1<<52
+		e := exp - 1075 - 1 // midpoint = (2k+1)·2^e
+		if e >= 0 || bits.Len64(m)-e > 127 {
+			return 0, false
+		}
+		xh, xl := shiftLeft128(m, -e)
+		mh, ml := bits.Mul64(2*k+1, p)
+		switch {
+		case xh > mh || xh == mh && xl > ml:
+			return 1, true
+		case xh == mh && xl == ml:
+			return 0, true
+		}
+		return -1, true
+	}
+	for range 4 {
+		up, ok := above(q)
+		if !ok {
+			return 0, false
+		}
+		next := math.Nextafter(q, math.Inf(1))
+		switch {
+		case up > 0:
+			q = next
+			continue
+		case up == 0:
+			return evenOf(q, next), true
+		}
+		prev := math.Nextafter(q, 0)
+		down, ok := above(prev)
+		if !ok {
+			return 0, false
+		}
+		switch {
+		case down < 0:
+			q = prev
+			continue
+		case down == 0:
+			return evenOf(prev, q), true
+		}
+		return q, true
+	}
+	return 0, false // not reached: the division is off by two ulps at most
+}
+
+// shiftLeft128 returns m·2^s as a 128-bit integer (high, low), s < 128.
+func shiftLeft128(m uint64, s int) (hi, lo uint64) {
+	switch {
+	case s == 0:
+		return 0, m
+	case s < 64:
+		return m >> (64 - s), m << s
+	}
+	return m << (s - 64), 0
+}
+
+// evenOf returns whichever of two neighbouring doubles has an even
+// significand.
+func evenOf(a, b float64) float64 {
+	if math.Float64bits(a)&1 == 0 {
+		return a
+	}
+	return b
 }
 
 // int reads an integer for field.
