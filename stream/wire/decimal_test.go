@@ -122,9 +122,8 @@ func TestExactDecimalTies(t *testing.T) {
 		for range e {
 			m *= 5
 		}
-		digits := strconv.FormatUint(m, 10)
 		for _, d := range []uint64{m, m - 1, m + 1} {
-			digits = strconv.FormatUint(d, 10)
+			digits := strconv.FormatUint(d, 10)
 			s := digits[:len(digits)-e] + "." + digits[len(digits)-e:]
 			if checkExactDecimal(t, s) && d == m {
 				fast++
