@@ -376,12 +376,18 @@ func TestBrowserPage(t *testing.T) {
 			t.Fatal(err)
 		}
 		defer func() {
-			if err := chromedp.Do(ctx, chromedp.Click(chromedp.CSS(`button.kind[data-kind="ridge"]`)),
-				chromedp.Click(chromedp.ID("d-close")), chromedp.WaitNotVisible(chromedp.ID("detail"))); err != nil {
+			if err := chromedp.Do(ctx, chromedp.Click(chromedp.CSS(`button.kind[data-kind="ridge"]`))); err != nil {
+				t.Error(err)
+			}
+			eventually(t, ctx, "the separable fit's key back with the ridge", `!document.getElementById('d-sepkey').hidden`)
+			if err := chromedp.Do(ctx, chromedp.Click(chromedp.ID("d-close")), chromedp.WaitNotVisible(chromedp.ID("detail"))); err != nil {
 				t.Error(err)
 			}
 		}()
 		eventually(t, ctx, "the prior caption", `document.getElementById('d-mapcap').textContent.startsWith('Prior at the peak lag')`)
+		// The separable fit is of the ridge weights: on another estimate's
+		// scale it is not drawn, nor named in the key.
+		eventually(t, ctx, "the separable fit's key hidden", `document.getElementById('d-sepkey').hidden`)
 		if !strings.Contains(mustURL(t, ctx), "kind=prior") {
 			t.Errorf("the URL does not keep the prior toggle: %s", mustURL(t, ctx))
 		}

@@ -146,7 +146,12 @@ export function renderDetail(d) {
   $('d-map').title = 'centre x ' + num(f.centre_x, 2) + ', y ' + num(f.centre_y, 2) + ' px; σ ' + num(f.sigma_x, 2) + ' × ' + num(f.sigma_y, 2) + ' px';
 
   const pixel = peakPixel(f.map);
-  drawTimeCourse($('d-time'), est, d.shape, pixel, f);
+  // The separable fit is of the ridge weights (the features' estimate): it
+  // is drawn on the ridge's scale only; the STA, z and prior views have
+  // other units.
+  const sepShown = view.kind === 'ridge';
+  drawTimeCourse($('d-time'), est, d.shape, pixel, sepShown ? f : {});
+  $('d-sepkey').hidden = !sepShown;
   $('d-time').title = 'pixel x ' + (pixel % width) + ', y ' + Math.floor(pixel / width);
 
   const target = live.snap && live.snap.summary ? live.snap.summary.target : null;
