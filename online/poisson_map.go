@@ -165,7 +165,7 @@ func newPoissonSolver(k int) *poissonSolver {
 // setFactor takes R (k×k, row-major).
 func (s *poissonSolver) setFactor(r []float64) {
 	copy(s.r, r)
-	transposeTo(s.rt, s.r, s.k)
+	fastmat.Transpose(s.k, s.k, s.r, s.k, s.rt, s.k)
 }
 
 // filter writes w = R v for θ = (b, v) into s.w.

@@ -250,7 +250,7 @@ func (p *priorProblem) formM(h SmoothLocal) error {
 	if p.paused() {
 		return errPaused
 	}
-	transposeTo(p.m, p.tmp, k)
+	fastmat.Transpose(k, k, p.tmp, k, p.m, k)
 	p.kronRows(p.m)
 	// M is symmetric up to rounding; its lower triangle is the one used.
 	p.m, p.mc = p.mc, p.m
@@ -435,19 +435,3 @@ func (p *priorProblem) vbuf() []float64 {
 	}
 	return p.vb
 }
-
-// transposeTo writes the transpose of the k×k matrix src into dst, in
-// tiles of transposeTile² values that stay in the cache.
-func transposeTo(dst, src []float64, k int) {
-	for r0 := 0; r0 < k; r0 += transposeTile {
-		for c0 := 0; c0 < k; c0 += transposeTile {
-			for r := r0; r < min(r0+transposeTile, k); r++ {
-				for c := c0; c < min(c0+transposeTile, k); c++ {
-					dst[c*k+r] = src[r*k+c]
-				}
-			}
-		}
-	}
-}
-
-const transposeTile = 32

@@ -429,11 +429,11 @@ func (j *ridgeJob) Do(i, w int) {
 		// columns of Y into rows of Yt (in et).
 		if i < r.nt {
 			lo, sz := r.tile(i)
-			transposeRows(r.at[lo*bp:], bp, r.a[lo:], ld, bp, sz)
+			fastmat.Transpose(bp, sz, r.a[lo:], ld, r.at[lo*bp:], bp)
 			return
 		}
 		lo := (i - r.nt) * tileSize
-		transposeRows(r.et[lo*bp:], bp, r.y[lo:], r.colCap, bp, min(tileSize, r.cols-lo))
+		fastmat.Transpose(bp, min(tileSize, r.cols-lo), r.y[lo:], r.colCap, r.et[lo*bp:], bp)
 	case phaseP:
 		// P_IJ −= U_I Ut_J.
 		I, J := ridgeTileOf(i)
@@ -442,21 +442,6 @@ func (j *ridgeJob) Do(i, w int) {
 		buf.MulAddT(mi, mj, bp, -1, r.ut[i0:], ld, r.ut[j0:], ld, r.p[i0*ld+j0:], ld)
 	case phaseMirror:
 		r.mirrorRows(i)
-	}
-}
-
-// transposeRows writes the transpose of the rows×cols block src (stride
-// lds) to dst (cols×rows, stride ldd), eight source rows at a time so that
-// each destination row is written in runs.
-func transposeRows(dst []float64, ldd int, src []float64, lds, rows, cols int) {
-	for k0 := 0; k0 < rows; k0 += 8 {
-		k1 := min(k0+8, rows)
-		for c := range cols {
-			d := dst[c*ldd+k0 : c*ldd+k1]
-			for k := range d {
-				d[k] = src[(k0+k)*lds+c]
-			}
-		}
 	}
 }
 
@@ -496,9 +481,7 @@ func (r *Ridge) WeightsTo(dst []float64, col int) (intercept float64) {
 		}
 		return math.NaN()
 	}
-	c, pe := r.interceptCorrection()
-	w := r.wt[col*r.ld : col*r.ld+r.n]
-	f := c * w[r.dim]
+	w, pe, f := r.weightsRow(col)
 	for i := range dst {
 		dst[i] = w[i] + f*pe[i]
 	}

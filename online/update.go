@@ -91,7 +91,6 @@ func (m *Mapper) Update() *Snapshot {
 	if refreshed != nil {
 		refreshed()
 	}
-
 	m.updateSTC(details)
 	m.popPeak = medianPeak(details, m.popPeak)
 	m.livePrior(details)

@@ -76,7 +76,7 @@ func spdCholesky(n int, a []float64, lda int, s *SPDScratch) bool {
 		// Panel: L21 = A21·L11⁻ᵀ, through the explicit inverse of L11.
 		li, lit := s.blk[:kb*kb], s.blkT[:kb*kb]
 		invLowerBlock(a[k0*lda+k0:], lda, kb, li)
-		transpose(kb, kb, li, kb, lit, kb)
+		Transpose(kb, kb, li, kb, lit, kb)
 		pan := s.panel[:rest*kb]
 		clear(pan)
 		MulAdd(rest, kb, kb, 1, a[r0*lda+k0:], lda, lit, kb, pan, kb)
@@ -84,7 +84,7 @@ func spdCholesky(n int, a []float64, lda int, s *SPDScratch) bool {
 			copy(a[(r0+i)*lda+k0:(r0+i)*lda+r0], pan[i*kb:(i+1)*kb])
 		}
 		panT := s.panelT[:kb*rest]
-		transpose(rest, kb, pan, kb, panT, rest)
+		Transpose(rest, kb, pan, kb, panT, rest)
 		// Trailing update of the lower triangle: A22 −= L21·L21ᵀ.
 		t := &s.trail
 		*t = trailingJob{rows: rest, k: kb, x: pan, y: panT, c: a[r0*lda+r0:], ldc: lda}
@@ -159,7 +159,7 @@ func spdGramLower(n int, a []float64, lda int, s *SPDScratch) {
 		r0, rest := k0+kb, n-k0-kb
 		// Row block I ← Z_IIᵀ · Z[I, 0:r0].
 		zt := s.blkT[:kb*kb]
-		transpose(kb, kb, a[k0*lda+k0:], lda, zt, kb)
+		Transpose(kb, kb, a[k0*lda+k0:], lda, zt, kb)
 		c := s.panelT[:kb*r0]
 		clear(c)
 		MulAdd(kb, r0, kb, 1, zt, kb, a[k0*lda:], lda, c, r0)
@@ -171,7 +171,7 @@ func spdGramLower(n int, a []float64, lda int, s *SPDScratch) {
 		}
 		// Row block I += Z[rest, I]ᵀ · Z[rest, 0:r0].
 		zrt := s.panel[:kb*rest]
-		transpose(rest, kb, a[r0*lda+k0:], lda, zrt, rest)
+		Transpose(rest, kb, a[r0*lda+k0:], lda, zrt, rest)
 		MulAdd(kb, r0, rest, 1, zrt, rest, a[r0*lda:], lda, a[k0*lda:], lda)
 	}
 }
@@ -224,21 +224,6 @@ func invLowerBlock(l []float64, ldl, kb int, li []float64) {
 			row[j] *= -inv
 		}
 		row[i] = inv
-	}
-}
-
-// transpose writes the rows×cols block x (stride ldx) as cols×rows into y
-// (stride ldy).
-func transpose(rows, cols int, x []float64, ldx int, y []float64, ldy int) {
-	const b = 32
-	for i0 := 0; i0 < rows; i0 += b {
-		for j0 := 0; j0 < cols; j0 += b {
-			for i := i0; i < min(i0+b, rows); i++ {
-				for j := j0; j < min(j0+b, cols); j++ {
-					y[j*ldy+i] = x[i*ldx+j]
-				}
-			}
-		}
 	}
 }
 

@@ -19,7 +19,7 @@ func randSPD(rng *rand.Rand, n, lda int, lambda float64) []float64 {
 	a := make([]float64, n*lda)
 	var buf Buf
 	gt := make([]float64, n*m)
-	transpose(m, n, g, n, gt, m)
+	Transpose(m, n, g, n, gt, m)
 	buf.MulAdd(n, n, m, 1/float64(m), gt, m, g, n, a, lda)
 	for i := range n {
 		a[i*lda+i] += lambda
