@@ -25,10 +25,10 @@ import (
 // in cache. The work is proportional to the spikes (spikes·D additions), not
 // to units·bins as a dense product of counts and rows would be: at the
 // reference workload (10 spikes/s in 60 Hz bins) about one count in six is
-// non-zero. A batch of two-level frames (binary noise) is folded by bit
-// counts instead: per unit, each bit plane of its counts against the
-// batch's lagged pixel bit strings, into integer sums that reads drain into
-// the float sums (sta_bits.go); the sums are the same, exactly so for ±1 or
+// non-zero. A batch of two-level frames (binary noise) is folded by integer
+// counts instead: per unit, 16-bit additions of the 0/1 rows of its spike
+// bins at every lag, into integer sums that reads drain into the float
+// sums (sta_levels.go); the sums are the same, exactly so for ±1 or
 // 0/1 levels and integer counts. Units are spread
 // over the cores by fastmat.Each, and the fold of a full batch runs on a
 // goroutine of its own while AddBin fills the next batch: one fold at a
@@ -74,7 +74,7 @@ type STA struct {
 	folding  sync.WaitGroup
 	foldNext func() // folds the other batch; made once, so that starting a fold does not allocate
 	fold     staFold
-	bitSums  staBitSums // the bit route's integer part of the cross sums
+	intSums  staIntSums // the two-level route's integer part of the cross sums
 }
 
 // staBatch is a batch of bins: their frames, the first lags−1 rows being
@@ -195,19 +195,20 @@ func (s *STA) shareCounts(c *countAutocov) {
 	s.counts, s.countsShared = c, true
 }
 
-// Flush folds the batched bins into the cross sums and drains the bit
-// route's integer sums into them. Reads call it themselves; CacheMeans too, so that reads from several goroutines after it
-// find nothing to fold.
+// Flush folds the batched bins into the cross sums and drains the
+// two-level route's integer sums into them. Reads call it themselves;
+// CacheMeans too, so that reads from several goroutines after it find
+// nothing to fold.
 func (s *STA) Flush() {
 	s.foldBatch()
 	s.folding.Wait()
-	s.bitSums.drain(s)
+	s.intSums.drain(s)
 }
 
 // foldBatch starts the fold of the batched bins into the cross sums (the
-// bit route's part into its integer sums, see sta_bits.go) on a goroutine
-// of its own, once the previous fold is done, and gives AddBin the other
-// batch. The fold runs while AddBin fills that batch: everything it writes
+// two-level route's part into its integer sums, see sta_levels.go) on a
+// goroutine of its own, once the previous fold is done, and gives AddBin
+// the other batch. The fold runs while AddBin fills that batch: everything it writes
 // (the sums, the integer sums, its scratch) is read or grown only after
 // s.folding.Wait (Flush, Grow, Reset and the next foldBatch).
 func (s *STA) foldBatch() {
@@ -228,7 +229,7 @@ func (s *STA) foldBatch() {
 // staFold adds a batch's spikes to the cross sums, the units spread over
 // the cores (fastmat.Each): the spikes are grouped by unit (a counting
 // sort), and a piece of work is one unit. A batch of two-level frames goes
-// by bit counts (sta_bits.go), others by multiply-adds (addFloat).
+// by integer counts (sta_levels.go), others by multiply-adds (addFloat).
 type staFold struct {
 	s     *STA
 	first []int32 // per unit, its first spike in order; len units+1
@@ -236,11 +237,11 @@ type staFold struct {
 	busy  []int32 // units with spikes in this batch, in unit order
 
 	batch     *staBatch // the batch being folded
-	bits      staBits
+	levels    staLevels
 	work      []staWorker // per fastmat worker
-	minBins   int         // fewest bins with spikes of a unit's half counted by bits (0: staMinBins)
+	minBins   int         // fewest bins with spikes of a unit's half counted as integers (0: every half)
 	floatOnly bool        // every batch by multiply-adds (tests compare the routes)
-	batches   [2]int64    // batches folded by multiply-adds [0] and by bits [1]
+	batches   [2]int64    // batches folded by multiply-adds [0] and by integer counts [1]
 }
 
 func (f *staFold) run(s *STA, b *staBatch) {
@@ -270,20 +271,20 @@ func (f *staFold) run(s *STA, b *staBatch) {
 		f.first[u] = f.first[u-1]
 	}
 	f.first[0] = 0
-	f.bits.ok = false
+	f.levels.ok = false
 	if !f.floatOnly {
-		f.bits.prepare(s, &b.rows, b.n)
+		f.levels.prepare(s, &b.rows)
 	}
 	if f.work == nil {
 		f.work = make([]staWorker, fastmat.Workers())
 	}
-	if f.bits.ok {
+	if f.levels.ok {
 		f.batches[1]++
 		for w := range f.work {
 			f.work[w].grow(s)
 		}
-		s.bitSums.grow(s)
-		s.bitSums.pending = true // before the workers: they only add to the sums
+		s.intSums.grow(s)
+		s.intSums.pending = true // before the workers: they only add to the sums
 	} else {
 		f.batches[0]++
 	}
@@ -293,7 +294,7 @@ func (f *staFold) run(s *STA, b *staBatch) {
 }
 
 // Do adds the batch's spikes of the i-th busy unit to its sums, on
-// worker w: by bit counts when the batch is two-level, the spikes left
+// worker w: by integer counts when the batch is two-level, the spikes left
 // over (and all of a batch with more levels) by multiply-adds.
 func (f *staFold) Do(i, w int) {
 	s := f.s
@@ -301,8 +302,8 @@ func (f *staFold) Do(i, w int) {
 	spikes := f.order[f.first[u]:f.first[u+1]]
 	wk := &f.work[w]
 	terms := wk.terms[:0]
-	if f.bits.ok {
-		terms = f.addBits(u, spikes, wk, terms)
+	if f.levels.ok {
+		terms = f.addLevels(u, spikes, wk, terms)
 	} else {
 		for _, k := range spikes {
 			terms = append(terms, f.batch.spikes[k])
@@ -582,7 +583,7 @@ func (s *STA) Reset() {
 		s.counts.reset()
 	}
 	clear(s.sy)
-	s.bitSums.reset()
+	s.intSums.reset()
 	for i := range s.batches {
 		s.batches[i].spikes, s.batches[i].n = s.batches[i].spikes[:0], 0
 	}

@@ -12,7 +12,9 @@ import (
 // fold: two-level frames after a grey start, a bin whose lagged row is not
 // the shift of the one before (a restarted history), one frame with a third
 // level, halves alternating every 37 bins, counts of 1–5, a unit with
-// counts of 20–40, one count of 300 (beyond the bit planes), a unit whose
+// counts of 20–40, a unit with counts of 200–255 in every bin (its integer
+// sums pass 2¹⁶ − 1 several times), one count of 300 (beyond the integer
+// route), a unit whose
 // counts come split in two entries per bin, and optionally non-integer
 // counts.
 type staRouteStream struct {
@@ -23,7 +25,7 @@ type staRouteStream struct {
 }
 
 func newSTARouteStream(lo, hi float64, fractional bool) *staRouteStream {
-	const pixels, lags, units, frames = 20, 4, 6, 900
+	const pixels, lags, units, frames = 20, 4, 7, 2000
 	rng := rand.New(rand.NewPCG(31, uint64(math.Float64bits(lo))))
 	f := make([][]float64, frames)
 	for m := range f {
@@ -52,11 +54,13 @@ func newSTARouteStream(lo, hi float64, fractional bool) *staRouteStream {
 		st.halfA = append(st.halfA, (k/37)%2 == 0)
 		var c []Count
 		for u := range units {
-			if rng.Float64() > 0.3 {
+			if rng.Float64() > 0.3 && u != 6 {
 				continue
 			}
 			n := 1.0
 			switch {
+			case u == 6: // in every bin: its sums pass 2¹⁶ and are drained on the way
+				n = float64(200 + rng.IntN(56))
 			case u == 5:
 				n = float64(20 + rng.IntN(21))
 			case rng.Float64() < 0.25:
@@ -80,7 +84,7 @@ func newSTARouteStream(lo, hi float64, fractional bool) *staRouteStream {
 }
 
 // feed adds the stream's bins to s, reading unit 0 before bin readAt (a
-// drain of the bit route's integer sums mid-stream).
+// drain of the two-level route's integer sums mid-stream).
 func (st *staRouteStream) feed(s *STA, readAt int) {
 	for k, x := range st.x {
 		if k == readAt {
@@ -134,8 +138,8 @@ func (st *staRouteStream) exact() (sum, size [][2][]float64, entries [][2]int) {
 	return sum, size, entries
 }
 
-// TestSTABitRoute feeds the same bins through the bit route (every spike
-// counted by bits; a unit's half with spikes in fewer than 5 bins of a
+// TestSTALevelsRoute feeds the same bins through the two-level route (every
+// spike by integer counts; a unit's half with spikes in fewer than 5 bins of a
 // batch by multiply-adds; the default choice) and through the float route,
 // and compares the cross sums with each other and with their exact values. For ±1 and 0/1 levels and integer counts every sum is
 // an integer below 2⁵³ and both routes must give it exactly, bit for bit.
@@ -143,9 +147,9 @@ func (st *staRouteStream) exact() (sum, size [][2][]float64, entries [][2]int) {
 // differently; each must lie within (n + 16)·u·Σ|c_k·x_k| of the exact sum,
 // u = 2⁻⁵³, n the number of count entries: the bound of recursive summation
 // (Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed., §4.2,
-// |E| ≤ (n−1)·u·Σ|x_i| + O(u²)), with 16 spare roundings for the bit route's
+// |E| ≤ (n−1)·u·Σ|x_i| + O(u²)), with 16 spare roundings for the two-level route's
 // drains (three roundings and an addition each, at most four drains here).
-func TestSTABitRoute(t *testing.T) {
+func TestSTALevelsRoute(t *testing.T) {
 	for _, tc := range []struct {
 		name       string
 		lo, hi     float64
@@ -164,15 +168,15 @@ func TestSTABitRoute(t *testing.T) {
 		for _, batch := range []int{staBatchBins, 100} {
 			t.Run(fmt.Sprintf("%s/batch %d", tc.name, batch), func(t *testing.T) {
 				routes := map[string]*STA{}
-				for _, r := range []string{"float", "bits, every spike", "bits, halves with spikes in 5 bins or more", "bits, default choice"} {
+				for _, r := range []string{"float", "integer, every spike", "integer, halves with spikes in 5 bins or more", "integer, default choice"} {
 					s := NewSTA(st.pixels, st.lags)
 					s.batchCap = batch
 					switch r {
 					case "float":
 						s.fold.floatOnly = true
-					case "bits, every spike":
+					case "integer, every spike":
 						s.fold.minBins = 1
-					case "bits, halves with spikes in 5 bins or more":
+					case "integer, halves with spikes in 5 bins or more":
 						s.fold.minBins = 5
 					}
 					st.feed(s, 500)
@@ -181,7 +185,7 @@ func TestSTABitRoute(t *testing.T) {
 				float := routes["float"]
 				for r, s := range routes {
 					if b := s.fold.batches; r != "float" && (b[0] == 0 || b[1] == 0) {
-						t.Fatalf("%s: %d batches by multiply-adds and %d by bits, want some of both", r, b[0], b[1])
+						t.Fatalf("%s: %d batches by multiply-adds and %d by integer counts, want some of both", r, b[0], b[1])
 					}
 				}
 				for r, s := range routes {
@@ -205,15 +209,17 @@ func TestSTABitRoute(t *testing.T) {
 	}
 }
 
-// TestSTABitRouteShapes compares the bit route (every spike by bits) with
-// the float route on ±1 frames and integer counts, where both must be
-// exact, for shapes at the edges of the lagged strings: one pixel, one lag
-// (no history rows), and 65 or 70 lags (the history alone fills more than
-// a 64-bit word, so a lag's string starts words into the pixel's bits),
-// with batches of 256 bins and of 70 (two words, the second part-filled).
-func TestSTABitRouteShapes(t *testing.T) {
+// TestSTALevelsRouteShapes compares the two-level route (every spike by
+// integer counts) with the float route on ±1 frames and integer counts,
+// where both must be exact, for shapes at the edges of the row sums: one
+// pixel, one lag (no history rows), 64–70 lags (a history longer than the
+// batch of 70), and rows of 17, 80 and 275 pixels (the AVX2 kernel's blocks
+// of 256, 64 and 16 values and the rest in Go), with batches of 256 bins
+// and of 70.
+func TestSTALevelsRouteShapes(t *testing.T) {
 	for _, sh := range []struct{ pixels, lags, batch int }{
 		{1, 1, 256}, {3, 1, 70}, {1, 70, 256}, {5, 65, 70}, {2, 64, 256},
+		{17, 3, 70}, {80, 12, 256}, {275, 2, 100},
 	} {
 		t.Run(fmt.Sprintf("pixels %d lags %d batch %d", sh.pixels, sh.lags, sh.batch), func(t *testing.T) {
 			rng := rand.New(rand.NewPCG(uint64(sh.pixels), uint64(sh.lags)))
@@ -224,9 +230,9 @@ func TestSTABitRouteShapes(t *testing.T) {
 					frames[m][p] = float64(2*rng.IntN(2) - 1)
 				}
 			}
-			bits, float := NewSTA(sh.pixels, sh.lags), NewSTA(sh.pixels, sh.lags)
-			bits.batchCap, float.batchCap = sh.batch, sh.batch
-			bits.fold.minBins = 1
+			ints, float := NewSTA(sh.pixels, sh.lags), NewSTA(sh.pixels, sh.lags)
+			ints.batchCap, float.batchCap = sh.batch, sh.batch
+			ints.fold.minBins = 1
 			float.fold.floatOnly = true
 			x := make([]float64, sh.pixels*sh.lags)
 			for k := sh.lags - 1; k < len(frames); k++ {
@@ -238,20 +244,20 @@ func TestSTABitRouteShapes(t *testing.T) {
 					}
 				}
 				half := (k/50)%2 == 0
-				bits.AddBin(x, half, c)
+				ints.AddBin(x, half, c)
 				float.AddBin(x, half, c)
 			}
-			bits.Flush()
+			ints.Flush()
 			float.Flush()
-			if bits.fold.batches[1] == 0 {
-				t.Fatal("no batch went by bits")
+			if ints.fold.batches[1] == 0 {
+				t.Fatal("no batch went by integer counts")
 			}
 			for u := range 3 {
 				for h := range 2 {
-					got, want := bits.block(u, staA+h), float.block(u, staA+h)
+					got, want := ints.block(u, staA+h), float.block(u, staA+h)
 					for i := range got {
 						if got[i] != want[i] {
-							t.Fatalf("unit %d half %d sum %d: bits %v, float %v", u, h, i, got[i], want[i])
+							t.Fatalf("unit %d half %d sum %d: integer %v, float %v", u, h, i, got[i], want[i])
 						}
 					}
 				}
@@ -323,7 +329,7 @@ func TestSTAFoldBesideAddBin(t *testing.T) {
 			}
 			s.Flush()
 			if b := s.fold.batches; !floatOnly && b[1] == 0 {
-				t.Fatalf("%d batches by multiply-adds and %d by bits, want some by bits", b[0], b[1])
+				t.Fatalf("%d batches by multiply-adds and %d by integer counts, want some by integer counts", b[0], b[1])
 			}
 			for u := range units {
 				for h := range 2 {

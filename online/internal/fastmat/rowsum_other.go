@@ -1,0 +1,18 @@
+//go:build !amd64
+
+package fastmat
+
+// hasLaggedRows is false: AddLaggedRows runs in Go.
+const hasLaggedRows = false
+
+func laggedRows256(dst, rows *uint16, starts *int32, nk, shift int) {
+	panic("fastmat: laggedRows256 without assembly")
+}
+
+func laggedRows64(dst, rows *uint16, starts *int32, nk, shift int) {
+	panic("fastmat: laggedRows64 without assembly")
+}
+
+func laggedRows16(dst, rows *uint16, starts *int32, nk, shift int) {
+	panic("fastmat: laggedRows16 without assembly")
+}
