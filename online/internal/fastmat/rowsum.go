@@ -12,9 +12,11 @@ import "fmt"
 // at every lag: the rows are the frames of a batch, one after the other,
 // and a spike with count c lists its bin's start c times. Sums wrap
 // modulo 2¹⁶: the caller keeps them smaller. A start whose rows would fall
-// outside rows, or len(dst) not a multiple of lags, panics. With AVX2 the
-// rows are added 256, 64 and 16 values at a time in registers, each read
-// once per start; the rest in Go.
+// outside rows, or len(dst) not a multiple of lags, panics. In assembly
+// a lag's sums of a block of values stay in registers while the block of
+// every start's row is added from memory: blocks of 256 values (eight AVX-512
+// registers with AVX-512 BW, sixteen AVX2 ones otherwise), then of 64 and
+// 16 (AVX2); the rest in Go.
 func AddLaggedRows(dst, rows []uint16, starts []int32, lags int) {
 	if lags <= 0 || len(dst)%lags != 0 {
 		panic(fmt.Sprintf("fastmat: AddLaggedRows: %d sums in %d lags", len(dst), lags))
@@ -28,23 +30,30 @@ func AddLaggedRows(dst, rows []uint16, starts []int32, lags int) {
 			panic(fmt.Sprintf("fastmat: AddLaggedRows: start %d of rows of %d at %d lags outside %d values", s, n, lags, len(rows)))
 		}
 	}
+	i := 0
+	if hasLaggedRows256z {
+		for ; n-i >= 256; i += 256 {
+			laggedRows256z(&dst[i], &rows[0], &starts[0], len(starts), i, lags, n)
+		}
+	}
+	if hasLaggedRows {
+		for ; n-i >= 256; i += 256 {
+			laggedRows256(&dst[i], &rows[0], &starts[0], len(starts), i, lags, n)
+		}
+		for ; n-i >= 64; i += 64 {
+			laggedRows64(&dst[i], &rows[0], &starts[0], len(starts), i, lags, n)
+		}
+		for ; n-i >= 16; i += 16 {
+			laggedRows16(&dst[i], &rows[0], &starts[0], len(starts), i, lags, n)
+		}
+	}
+	if i == n {
+		return
+	}
 	for l := range lags {
 		out := dst[l*n : (l+1)*n]
-		shift := -l * n
-		i := 0
-		if hasLaggedRows {
-			for ; n-i >= 256; i += 256 {
-				laggedRows256(&out[i], &rows[0], &starts[0], len(starts), shift+i)
-			}
-			for ; n-i >= 64; i += 64 {
-				laggedRows64(&out[i], &rows[0], &starts[0], len(starts), shift+i)
-			}
-			for ; n-i >= 16; i += 16 {
-				laggedRows16(&out[i], &rows[0], &starts[0], len(starts), shift+i)
-			}
-		}
 		for _, s := range starts {
-			row := rows[int(s)+shift+i : int(s)+shift+n]
+			row := rows[int(s)-l*n+i : int(s)-l*n+n]
 			for j, v := range row {
 				out[i+j] += v
 			}

@@ -11,8 +11,8 @@ import (
 // value by value, for row lengths around the assembly's blocks of 256, 64
 // and 16 values, one and 12 lags, starts repeated (a count above one) and
 // sums that wrap modulo 2¹⁶ (16-bit lanes add modulo 2¹⁶: common practice,
-// no source). On CPUs without AVX2, and with GODEBUG=cpu.avx2=off, it
-// checks the Go path.
+// no source). It checks the kernels this CPU runs: with
+// GODEBUG=cpu.avx512f=off the AVX2 ones, with cpu.avx2=off too the Go path.
 func TestAddLaggedRows(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 6))
 	for _, n := range []int{1, 15, 16, 17, 64, 80, 255, 256, 273, 336} {
