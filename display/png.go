@@ -121,12 +121,19 @@ func drawMap(img *image.RGBA, x0, y0, sc, width, height int, m online.Floats, li
 	}
 }
 
+// fillRect paints the rectangle at (x, y), w×h, in c (clipped to the
+// image): its first row pixel by pixel, the other rows copied from it.
 func fillRect(img *image.RGBA, x, y, w, h int, c color.RGBA) {
 	r := image.Rect(x, y, x+w, y+h).Intersect(img.Rect)
-	for yy := r.Min.Y; yy < r.Max.Y; yy++ {
-		for xx := r.Min.X; xx < r.Max.X; xx++ {
-			img.SetRGBA(xx, yy, c)
-		}
+	if r.Empty() {
+		return
+	}
+	first := img.Pix[img.PixOffset(r.Min.X, r.Min.Y) : img.PixOffset(r.Max.X-1, r.Min.Y)+4]
+	for i := 0; i < len(first); i += 4 {
+		first[i], first[i+1], first[i+2], first[i+3] = c.R, c.G, c.B, c.A
+	}
+	for yy := r.Min.Y + 1; yy < r.Max.Y; yy++ {
+		copy(img.Pix[img.PixOffset(r.Min.X, yy):], first)
 	}
 }
 

@@ -36,6 +36,15 @@ type Buf struct {
 	cedge []float64
 }
 
+// grow sizes the buffer at first use.
+func (b *Buf) grow() {
+	if len(b.pack) < kc*nc {
+		b.pack = make([]float64, kc*nc)
+		b.xedge = make([]float64, 16*kc)
+		b.cedge = make([]float64, 16*nc)
+	}
+}
+
 // MulAdd computes C += alpha·X·Y on the calling goroutine, where X is m×k,
 // Y is k×n and C is m×n, all row-major with strides ldx, ldy and ldc.
 func (b *Buf) MulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy int, c []float64, ldc int) {
@@ -78,53 +87,69 @@ func (b *Buf) mulAdd(m, n, k int, alpha float64, x []float64, ldx int, transpose
 		goMulAdd(m, n, k, alpha, x, rs, ks, y, ldy, c, ldc)
 		return
 	}
-	mr, nr := kn.mr, kn.nr
-	if len(b.pack) < kc*nc {
-		b.pack = make([]float64, kc*nc)
-		b.xedge = make([]float64, 16*kc)
-		b.cedge = make([]float64, 16*nc)
-	}
+	nr := kn.nr
+	b.grow()
 	for j0 := 0; j0 < n; j0 += nc {
 		nb := min(nc, n-j0)
 		for p0 := 0; p0 < k; p0 += kc {
 			kb := min(kc, k-p0)
 			packY(b.pack, kb, nb, nr, y[p0*ldy+j0:], ldy)
-			for i0 := 0; i0 < m; i0 += mr {
-				rows := min(mr, m-i0)
-				xp, rsp, ksp := x[i0*rs+p0*ks:], rs, ks
-				if rows < mr {
-					// Copy the last rows of op(X) into a zero-padded block.
-					xp, rsp, ksp = b.xedge[:mr*kb], kb, 1
-					clear(xp)
-					for i := range rows {
-						row := xp[i*kb : i*kb+kb]
-						if transposed {
-							for p := range row {
-								row[p] = x[(p0+p)*ldx+i0+i]
-							}
-						} else {
-							copy(row, x[(i0+i)*ldx+p0:])
-						}
+			b.slab(kn, m, nb, kb, alpha, x[p0*ks:], rs, ks, transposed, ldx, b.pack, c[j0:], ldc)
+		}
+	}
+}
+
+// mulAddPacked is C += alpha·X·Y for Y packed whole by packY (k ≤ kc rows,
+// ⌈n/nr⌉ panels of nr columns for the active kernel): the pieces of a
+// product that share Y pack it once between them.
+func (b *Buf) mulAddPacked(m, n, k int, alpha float64, x []float64, ldx int, packed []float64, c []float64, ldc int) {
+	kn := active
+	b.grow()
+	for j0 := 0; j0 < n; j0 += nc {
+		nb := min(nc, n-j0)
+		b.slab(kn, m, nb, k, alpha, x, ldx, 1, false, ldx, packed[j0*k:], c[j0:], ldc)
+	}
+}
+
+// slab adds alpha·op(X)·Y for one packed slab of Y (kb×nb, panels of nr at
+// pack) to the nb columns of C at c: op(X)'s element (i, p) at
+// x[i·rs + p·ks], its rows taken mr at a time.
+func (b *Buf) slab(kn microKernel, m, nb, kb int, alpha float64, x []float64, rs, ks int, transposed bool, ldx int, pack []float64, c []float64, ldc int) {
+	mr, nr := kn.mr, kn.nr
+	for i0 := 0; i0 < m; i0 += mr {
+		rows := min(mr, m-i0)
+		xp, rsp, ksp := x[i0*rs:], rs, ks
+		if rows < mr {
+			// Copy the last rows of op(X) into a zero-padded block.
+			xp, rsp, ksp = b.xedge[:mr*kb], kb, 1
+			clear(xp)
+			for i := range rows {
+				row := xp[i*kb : i*kb+kb]
+				if transposed {
+					for p := range row {
+						row[p] = x[p*ldx+i0+i]
 					}
+				} else {
+					copy(row, x[(i0+i)*ldx:])
 				}
-				ci := c[i0*ldc+j0:]
-				for jp := 0; jp < nb; jp += nr {
-					cols := min(nr, nb-jp)
-					panel := &b.pack[jp*kb]
-					if rows == mr && cols == nr {
-						kn.fn(kb, &xp[0], rsp, ksp, panel, &ci[jp], ldc, alpha)
-						continue
-					}
-					// Edge block: compute into scratch, add the part that exists.
-					ce := b.cedge[:mr*nr]
-					clear(ce)
-					kn.fn(kb, &xp[0], rsp, ksp, panel, &ce[0], nr, alpha)
-					for i := range rows {
-						dst := ci[i*ldc+jp : i*ldc+jp+cols]
-						for j, v := range ce[i*nr : i*nr+cols] {
-							dst[j] += v
-						}
-					}
+			}
+		}
+		ci := c[i0*ldc:]
+		for jp := 0; jp < nb; jp += nr {
+			cols := min(nr, nb-jp)
+			panel := &pack[jp*kb]
+			if rows == mr && cols == nr {
+				kn.fn(kb, &xp[0], rsp, ksp, panel, &ci[jp], ldc, alpha)
+				continue
+			}
+			// Edge block: compute into scratch, add the part that exists.
+			ce := b.cedge[:mr*nr]
+			clear(ce)
+			kn.fn(kb, &xp[0], rsp, ksp, panel, &ce[0], nr, alpha)
+			for i := range rows {
+				dst := ci[i*ldc+jp : i*ldc+jp+cols]
+				for j, v := range ce[i*nr : i*nr+cols] {
+					dst[j] += v
 				}
 			}
 		}

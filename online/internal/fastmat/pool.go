@@ -24,6 +24,9 @@ var pool struct {
 	bufs  []Buf
 	mul   mulJob
 	nwork int
+	// packed holds Y packed once for all the row strips of a MulAdd
+	// (packedY).
+	packed []float64
 }
 
 // Workers is the number of goroutines (the caller's included) that share a
@@ -96,10 +99,16 @@ type mulJob struct {
 	ldx, ldy, ldc int
 	step, pieces  int
 	byCols        bool
+	packed        []float64 // Y packed whole, for row strips (nil: each strip packs)
 }
 
 func (j *mulJob) Do(i, w int) {
 	lo := i * j.step
+	if j.packed != nil {
+		hi := min(j.m, lo+j.step)
+		pool.bufs[w].mulAddPacked(hi-lo, j.n, j.k, j.alpha, j.x[lo*j.ldx:], j.ldx, j.packed, j.c[lo*j.ldc:], j.ldc)
+		return
+	}
 	if j.byCols {
 		hi := min(j.n, lo+j.step)
 		pool.bufs[w].mulAdd(j.m, hi-lo, j.k, j.alpha, j.x, j.ldx, false, j.y[lo:], j.ldy, j.c[lo:], j.ldc)
@@ -131,6 +140,7 @@ func MulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy i
 	if m >= n {
 		j.step = roundUp(max(active.mr, (m+want-1)/want), max(active.mr, 1))
 		j.pieces = (m + j.step - 1) / j.step
+		j.packed = packedY(j.pieces, k, n, y, ldy)
 	} else {
 		j.byCols = true
 		j.step = roundUp(max(active.nr, (n+want-1)/want), max(active.nr, 1))
@@ -138,6 +148,22 @@ func MulAdd(m, n, k int, alpha float64, x []float64, ldx int, y []float64, ldy i
 	}
 	each(j.pieces, j)
 	*j = mulJob{}
+}
+
+// packedY packs Y (k×n) whole into pool.packed for a product of the given
+// number of row strips, when the strips would otherwise each pack all of
+// it: with more than one strip, Y no deeper than one cache slab (k ≤ kc)
+// and a kernel to read the panels. Otherwise it returns nil.
+func packedY(pieces, k, n int, y []float64, ldy int) []float64 {
+	if pieces < 2 || k > kc || active.fn == nil {
+		return nil
+	}
+	need := k * roundUp(n, active.nr)
+	if len(pool.packed) < need {
+		pool.packed = make([]float64, need)
+	}
+	packY(pool.packed, k, n, active.nr, y, ldy)
+	return pool.packed[:need]
 }
 
 func roundUp(v, q int) int { return (v + q - 1) / q * q }

@@ -10,11 +10,12 @@ import (
 // each product packs Y in one slab).
 const spdBlock = 96
 
-// SPDScratch is the scratch space of InvertSPD: two panels of n×96 and two
-// 96×96 blocks. The zero value is ready to use; it grows to the largest n
-// seen and is reused.
+// SPDScratch is the scratch space of InvertSPD: two panels of n×96, the
+// second one packed for the kernel, and two 96×96 blocks. The zero value is
+// ready to use; it grows to the largest n seen and is reused.
 type SPDScratch struct {
 	panel, panelT []float64 // n×nb and nb×n
+	packed        []float64 // panelT packed (packY)
 	blk, blkT     []float64 // nb×nb
 	trail         trailingJob
 }
@@ -88,6 +89,16 @@ func spdCholesky(n int, a []float64, lda int, s *SPDScratch) bool {
 		// Trailing update of the lower triangle: A22 −= L21·L21ᵀ.
 		t := &s.trail
 		*t = trailingJob{rows: rest, k: kb, x: pan, y: panT, c: a[r0*lda+r0:], ldc: lda}
+		if active.fn != nil {
+			// Every strip reads the panel's columns from the first on:
+			// packed once here rather than once per strip.
+			need := kb * roundUp(rest, active.nr)
+			if len(s.packed) < need {
+				s.packed = make([]float64, need)
+			}
+			packY(s.packed, kb, rest, active.nr, panT, rest)
+			t.packed = s.packed[:need]
+		}
 		Each(t.pieces(), t)
 		*t = trailingJob{}
 	}
@@ -100,6 +111,7 @@ type trailingJob struct {
 	rows, k int
 	x, y, c []float64 // x rows×k (stride k), y k×rows (stride rows)
 	ldc     int
+	packed  []float64 // y packed whole (nil: each strip packs its part)
 }
 
 const trailingStrip = 48
@@ -110,6 +122,10 @@ func (t *trailingJob) Do(i, w int) {
 	strip := t.pieces() - 1 - i
 	lo := strip * trailingStrip
 	hi := min(t.rows, lo+trailingStrip)
+	if t.packed != nil {
+		pool.bufs[w].mulAddPacked(hi-lo, hi, t.k, -1, t.x[lo*t.k:], t.k, t.packed, t.c[lo*t.ldc:], t.ldc)
+		return
+	}
 	pool.bufs[w].mulAdd(hi-lo, hi, t.k, -1, t.x[lo*t.k:], t.k, false, t.y, t.rows, t.c[lo*t.ldc:], t.ldc)
 }
 
