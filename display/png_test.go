@@ -3,10 +3,12 @@ package display
 import (
 	"bytes"
 	"errors"
+	"fmt"
 	"image"
 	"image/color"
 	"image/png"
 	"math"
+	"math/rand/v2"
 	"os"
 	"regexp"
 	"strconv"
@@ -337,4 +339,27 @@ func TestDivergingDoesNotAllocate(t *testing.T) {
 	if n := testing.AllocsPerRun(100, func() { Diverging(0.3, 1) }); n != 0 {
 		t.Fatalf("Diverging allocates %v times per call", n)
 	}
+}
+
+// BenchmarkRenderOverviewReference is the contact sheet of an export at
+// the reference workload: 384 units of 16×16 maps (random values), a
+// picture of 2928×3248 pixels.
+func BenchmarkRenderOverviewReference(b *testing.B) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	s := &online.Snapshot{Shape: [3]int{12, 16, 16}}
+	for u := range 384 {
+		m := make(online.Floats, 256)
+		for i := range m {
+			m[i] = online.Float(rng.NormFloat64())
+		}
+		s.Units = append(s.Units, online.UnitSummary{ID: fmt.Sprintf("u%d", u), Map: m})
+	}
+	var buf bytes.Buffer
+	for b.Loop() {
+		buf.Reset()
+		if err := RenderOverview(&buf, s); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(buf.Len()), "png-bytes")
 }
