@@ -130,6 +130,7 @@ func (m *Mapper) checkDrift(d *UnitDetail, u int, significant bool, lo, hi int, 
 
 // sumXTo writes Σ x over all bins (both halves) into dst.
 func (s *STA) sumXTo(dst []float64) {
+	s.Flush() // the folds add the stimulus sums
 	for i := range dst {
 		dst[i] = s.sumX[0][i] + s.sumX[1][i]
 	}

@@ -352,9 +352,20 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 	if m.added < int64(m.cfg.Lags) {
 		return nil // not yet a full history: the bin is not used
 	}
-	for lag := range m.cfg.Lags {
-		src := m.ring[(m.head-lag+len(m.ring))%len(m.ring)]
-		copy(m.x[lag*m.pixels:(lag+1)*m.pixels], src)
+	// x is the shift of the previous bin's row unless this is the first
+	// bin with a full history since the lags (re)started. The STA then
+	// takes the newest frame alone; the whole lagged row x is built only
+	// for a new batch of the STA and for units with an STC.
+	shifted := m.added > int64(m.cfg.Lags)
+	frameOnly := shifted && m.sta.canShift()
+	for i := 0; frameOnly && len(m.stc) > 0 && i < len(counts); i++ {
+		frameOnly = m.stc[counts[i].Unit] == nil
+	}
+	if !frameOnly {
+		for lag := range m.cfg.Lags {
+			src := m.ring[(m.head-lag+len(m.ring))%len(m.ring)]
+			copy(m.x[lag*m.pixels:(lag+1)*m.pixels], src)
+		}
 	}
 	chunk := int64(float64(m.used) * m.cfg.FramePeriod / m.cfg.ChunkSeconds)
 	halfA := chunk%2 == 0
@@ -363,9 +374,11 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 		m.usedA++
 	}
 	m.growColumns()
-	// x is the shift of the previous bin's row unless this is the first
-	// bin with a full history since the lags (re)started.
-	m.sta.addBin(m.x, halfA, counts, m.added > int64(m.cfg.Lags))
+	if frameOnly {
+		m.sta.addShifted(frame, halfA, counts)
+	} else {
+		m.sta.addBin(m.x, halfA, counts, shifted)
+	}
 	m.log.addBin(halfA, counts)
 	m.cal.addCounts(m.used-1, halfA, counts)
 	for _, c := range counts {

@@ -29,24 +29,25 @@ import (
 // counts instead: per unit, 16-bit additions of the 0/1 rows of its spike
 // bins at every lag, into integer sums that reads drain into the float
 // sums (sta_levels.go); the sums are the same, exactly so for ±1 or
-// 0/1 levels and integer counts. Units are spread
-// over the cores by fastmat.Each, and the fold of a full batch runs on a
-// goroutine of its own while AddBin fills the next batch: one fold at a
-// time, in batch order, so the sums are those of folding in line; reads,
-// Grow and Reset wait for it. A bin whose lagged row is not the shift of
-// the previous bin's (a restarted lag history) starts a new batch. Per bin
-// AddBin costs a copy of one frame, D comparisons to find out whether the
-// row is a shift (skipped for the Mapper, which knows), D additions for the
-// stimulus sums and P comparisons for the two-level check. Units are
-// indices 0…Units()−1 and grow when a larger index arrives (a new unit's
-// earlier counts are zero). An STA is not safe for
-// concurrent use, except for reads from several goroutines after
-// CacheMeans.
+// 0/1 levels and integer counts. The fold also adds the batch's lagged
+// rows to the stimulus sums Σx of their halves (as integers, too, for a
+// two-level batch). Units are spread over the cores by fastmat.Each, and
+// the fold of a full batch runs on a goroutine of its own while AddBin
+// fills the next batch: one fold at a time, in batch order, so the sums
+// are those of folding in line; reads, Grow and Reset wait for it. A bin
+// whose lagged row is not the shift of the previous bin's (a restarted lag
+// history) starts a new batch. Per bin AddBin costs a copy of one frame, D
+// comparisons to find out whether the row is a shift (skipped for the
+// Mapper, which knows, and which then hands over the newest frame alone)
+// and P comparisons for the two-level check. Units are indices
+// 0…Units()−1 and grow when a larger index arrives (a new unit's earlier
+// counts are zero). An STA is not safe for concurrent use, except for
+// reads from several goroutines after CacheMeans.
 type STA struct {
 	pixels, lags, dim int
 
 	n    [2]int64     // bins per half: [0] = half A, [1] = half B
-	sumX [2][]float64 // Σx per half, D each
+	sumX [2][]float64 // Σx per half, D each, added by the folds (read after Flush)
 
 	units  int
 	stride int           // floats per unit in data
@@ -83,6 +84,7 @@ type STA struct {
 type staBatch struct {
 	frames []float64 // (lags−1+batchCap) × pixels
 	n      int
+	halves []uint8 // per bin, its half (0 = A, 1 = B)
 	spikes []batchSpike
 	rows   staRows
 }
@@ -218,7 +220,7 @@ func (s *STA) foldBatch() {
 	}
 	s.folding.Wait()
 	s.fill = 1 - s.fill
-	if len(b.spikes) > 0 && s.dim > 0 {
+	if s.dim > 0 {
 		s.folding.Add(1)
 		go s.foldNext()
 		return
@@ -236,12 +238,14 @@ type staFold struct {
 	order []int32 // spike indices grouped by unit, in bin order within a unit
 	busy  []int32 // units with spikes in this batch, in unit order
 
-	batch     *staBatch // the batch being folded
-	levels    staLevels
-	work      []staWorker // per fastmat worker
-	minBins   int         // fewest bins with spikes of a unit's half counted as integers (0: every half)
-	floatOnly bool        // every batch by multiply-adds (tests compare the routes)
-	batches   [2]int64    // batches folded by multiply-adds [0] and by integer counts [1]
+	batch      *staBatch // the batch being folded
+	levels     staLevels
+	work       []staWorker // per fastmat worker
+	minBins    int         // fewest bins with spikes of a unit's half counted as integers (0: every half)
+	floatOnly  bool        // every batch by multiply-adds (tests compare the routes)
+	stimT      []uint16    // a half's integer stimulus sums of a two-level batch
+	stimStarts []int32     // the rows of a half's bins
+	batches    [2]int64    // batches folded by multiply-adds [0] and by integer counts [1]
 }
 
 func (f *staFold) run(s *STA, b *staBatch) {
@@ -289,8 +293,52 @@ func (f *staFold) run(s *STA, b *staBatch) {
 		f.batches[0]++
 	}
 	fastmat.Each(len(f.busy), f)
+	f.addStimulusSums(s, b)
 	b.spikes, b.n = b.spikes[:0], 0
 	f.s, f.batch = nil, nil
+}
+
+// addStimulusSums adds the batch's lagged rows to the stimulus sums Σx of
+// their halves. A two-level batch counts them as integers, as a unit that
+// fires once in every bin of its half (16-bit sums: at most staBatchBins
+// per value), and adds hi·T + lo·(n − T) per value; other batches add the
+// rows as they are.
+func (f *staFold) addStimulusSums(s *STA, b *staBatch) {
+	P, L, D := s.pixels, s.lags, s.dim
+	if f.levels.ok {
+		if len(f.stimT) < D {
+			f.stimT = make([]uint16, D)
+		}
+		t := f.stimT[:D]
+		for h := range 2 {
+			f.stimStarts = f.stimStarts[:0]
+			for j, hj := range b.halves[:b.n] {
+				if int(hj) == h {
+					f.stimStarts = append(f.stimStarts, int32((L-1+j)*P))
+				}
+			}
+			n := len(f.stimStarts)
+			if n == 0 {
+				continue
+			}
+			clear(t)
+			fastmat.AddLaggedRows(t, f.levels.rows, f.stimStarts, L)
+			lo, hi, sum := f.levels.lo, f.levels.hi, s.sumX[h]
+			for i, v := range t {
+				// Each product rounded on its own, as in the drain of the
+				// cross sums (staIntSums.drainUnit).
+				sum[i] += float64(hi*float64(v)) + float64(lo*float64(n-int(v)))
+			}
+		}
+		return
+	}
+	for j, h := range b.halves[:b.n] {
+		sum := s.sumX[h]
+		for l := range L {
+			row := (L - 1 + j - l) * P
+			gfloats.Add(sum[l*P:(l+1)*P], b.frames[row:row+P])
+		}
+	}
 }
 
 // Do adds the batch's spikes of the i-th busy unit to its sums, on
@@ -400,26 +448,50 @@ func (s *STA) addBin(x []float64, halfA bool, counts []Count, shifted bool) {
 	if len(x) != s.dim {
 		panic(fmt.Sprintf("online: STA.AddBin: len(x) = %d, want %d", len(x), s.dim))
 	}
-	h := 1
-	if halfA {
-		h = 0
-	}
-	k := s.n[0] + s.n[1]               // index of this bin
-	gfloats.Add(s.sumX[h][:len(x)], x) // gonum's vector kernels: this is the message path
 	if s.dim > 0 {
 		if s.batches[s.fill].n > 0 && !shifted && !s.continues(x) {
 			s.foldBatch()
 		}
-		b := &s.batches[s.fill]
-		if b.n == 0 {
+		if s.batches[s.fill].n == 0 {
 			s.startBatch(x)
 		}
-		row := (s.lags - 1 + b.n) * s.pixels
-		copy(b.frames[row:row+s.pixels], x[:s.pixels])
-		b.rows.addRow(s.lags-1+b.n, x[:s.pixels])
 	}
+	s.addFrame(x[:s.pixels], halfA, counts)
+}
+
+// canShift reports whether the batch in hand holds the earlier lags of a
+// bin that follows its last one, so that addShifted can take the bin.
+func (s *STA) canShift() bool { return s.dim > 0 && s.batches[s.fill].n > 0 }
+
+// addShifted adds a bin whose lagged row is the shift of the previous
+// bin's, given its newest frame only (P values): the batch holds the rest.
+// Only when canShift.
+func (s *STA) addShifted(frame []float64, halfA bool, counts []Count) {
+	if len(frame) != s.pixels || !s.canShift() {
+		panic("online: STA.addShifted without the previous bin's lags")
+	}
+	s.addFrame(frame, halfA, counts)
+}
+
+// addFrame adds a bin to the batch in hand, which holds its earlier lags:
+// its newest frame, its half and its counts.
+func (s *STA) addFrame(frame []float64, halfA bool, counts []Count) {
+	h := 1
+	if halfA {
+		h = 0
+	}
+	k := s.n[0] + s.n[1] // index of this bin
 	b := &s.batches[s.fill]
 	j := b.n // row of this bin in the batch
+	if s.dim > 0 {
+		row := (s.lags - 1 + j) * s.pixels
+		copy(b.frames[row:row+s.pixels], frame)
+		b.rows.addRow(s.lags-1+j, frame)
+		if b.halves == nil {
+			b.halves = make([]uint8, s.batchCap)
+		}
+		b.halves[j] = uint8(h)
+	}
 	for _, c := range counts {
 		y := c.N
 		if c.Unit < 0 || y < 0 || math.IsNaN(y) || math.IsInf(y, 0) {
@@ -455,6 +527,7 @@ func (s *STA) meanTo(dst []float64, halves ...int) bool {
 		copy(dst, s.mean[which])
 		return s.n[0]+s.n[1] > 0
 	}
+	s.Flush() // the folds add the stimulus sums
 	return s.computeMeanTo(dst, halves...)
 }
 
