@@ -216,9 +216,10 @@ func sortedUnits(units []online.UnitSummary) []online.UnitSummary {
 
 // Layout of the overview picture.
 const (
-	tileMapPixels = 128 // image pixels across a tile's map
-	tileBorder    = 5   // status-coloured frame
-	tileLabel     = 16  // label strip above a tile's map
+	tileMapPixels = 128  // image pixels across a tile's map, at most
+	sheetPixels   = 2048 // the picture's width that many tiles shrink their maps to fit
+	tileBorder    = 5    // status-coloured frame
+	tileLabel     = 16   // label strip above a tile's map
 	tileGap       = 8
 	labelScale    = 2 // image pixels per font pixel
 )
@@ -235,9 +236,9 @@ func RenderOverview(w io.Writer, s *online.Snapshot) error {
 		return fmt.Errorf("display: snapshot has no stimulus shape")
 	}
 	units := sortedUnits(s.Units)
-	sc := tileScale(width, height, tileMapPixels)
+	sc := OverviewScale(len(units), width, height)
 	tw, th := width*sc+2*tileBorder, height*sc+2*tileBorder+tileLabel
-	cols := max(1, int(math.Ceil(math.Sqrt(float64(len(units))))))
+	cols := overviewColumns(len(units))
 	rows := max(1, (len(units)+cols-1)/cols)
 	img := image.NewRGBA(image.Rect(0, 0, tileGap+cols*(tw+tileGap), tileGap+rows*(th+tileGap)))
 	fillRect(img, 0, 0, img.Rect.Dx(), img.Rect.Dy(), backColour)
@@ -255,14 +256,26 @@ func RenderOverview(w io.Writer, s *online.Snapshot) error {
 // of tile i (in natural id order) of an overview of n units; one stimulus
 // pixel spans OverviewScale image pixels.
 func OverviewTileOrigin(i, n, width, height int) (x, y int) {
-	sc := tileScale(width, height, tileMapPixels)
+	sc := OverviewScale(n, width, height)
 	tw, th := width*sc+2*tileBorder, height*sc+2*tileBorder+tileLabel
-	cols := max(1, int(math.Ceil(math.Sqrt(float64(n)))))
+	cols := overviewColumns(n)
 	return tileGap + (i%cols)*(tw+tileGap) + tileBorder, tileGap + (i/cols)*(th+tileGap) + tileLabel + tileBorder
 }
 
-// OverviewScale is the image pixels per stimulus pixel in the overview.
-func OverviewScale(width, height int) int { return tileScale(width, height, tileMapPixels) }
+// overviewColumns is the number of tile columns of an overview of n units:
+// a square-ish grid.
+func overviewColumns(n int) int { return max(1, int(math.Ceil(math.Sqrt(float64(n))))) }
+
+// OverviewScale is the image pixels per stimulus pixel in an overview of
+// n units: maps of up to tileMapPixels across, smaller when the tiles
+// would make the picture wider than sheetPixels (hundreds of units: the
+// export's contact sheet of 384 units of 16×16 gets 80-pixel maps and is
+// 1968×2288, where 128-pixel maps made it 2928×3248, twice the pixels to
+// draw, compress and page in).
+func OverviewScale(n, width, height int) int {
+	room := sheetPixels/overviewColumns(n) - tileGap - 2*tileBorder
+	return tileScale(width, height, min(tileMapPixels, room))
+}
 
 // Layout of the unit picture.
 const (

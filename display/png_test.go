@@ -181,7 +181,7 @@ func TestRenderOverviewShowsFields(t *testing.T) {
 	}
 	img := decodePNG(t, b.Bytes())
 	order := sortedUnits(snap.Units)
-	sc := OverviewScale(simWidth, simHeight)
+	sc := OverviewScale(len(order), simWidth, simHeight)
 	for _, c := range simCells {
 		if c.fieldless {
 			continue
@@ -343,7 +343,7 @@ func TestDivergingDoesNotAllocate(t *testing.T) {
 
 // BenchmarkRenderOverviewReference is the contact sheet of an export at
 // the reference workload: 384 units of 16×16 maps (random values), a
-// picture of 2928×3248 pixels.
+// picture of 1968×2288 pixels.
 func BenchmarkRenderOverviewReference(b *testing.B) {
 	rng := rand.New(rand.NewPCG(1, 2))
 	s := &online.Snapshot{Shape: [3]int{12, 16, 16}}
@@ -362,4 +362,21 @@ func BenchmarkRenderOverviewReference(b *testing.B) {
 		}
 	}
 	b.ReportMetric(float64(buf.Len()), "png-bytes")
+}
+
+// TestOverviewScale: maps of 128 pixels across while the tiles fit in
+// about 2048 pixels, smaller for hundreds of units, never below one pixel
+// per stimulus pixel (the numbers follow the layout constants).
+func TestOverviewScale(t *testing.T) {
+	for _, tc := range []struct{ n, width, height, want int }{
+		{1, 16, 16, 8},
+		{64, 16, 16, 8},    // 8 columns of 128 + 18: 1168 pixels
+		{384, 16, 16, 5},   // 20 columns: room for 84 pixels, 80 drawn
+		{384, 32, 24, 2},   // 84 / 32
+		{10000, 16, 16, 1}, // 100 columns: 2 pixels of room, still 1
+	} {
+		if got := OverviewScale(tc.n, tc.width, tc.height); got != tc.want {
+			t.Errorf("OverviewScale(%d, %d, %d) = %d, want %d", tc.n, tc.width, tc.height, got, tc.want)
+		}
+	}
 }

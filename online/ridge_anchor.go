@@ -89,13 +89,11 @@ func (r *Ridge) Anchor(rows int64, gram func(dst *mat.SymDense) error, sumX, cro
 	clear(r.wt)
 	copy(r.obj, yy[:r.cols])
 	if live > 0 {
-		bt := make([]float64, live*ld)
+		// cross holds the columns' AᵀY as rows of n values: it is X of
+		// the product, read in place, against the first n rows of P.
+		fastmat.MulAdd(live, ld, n, 1, cross, n, r.p, ld, r.wt, ld)
 		for c := range live {
-			copy(bt[c*ld:c*ld+n], cross[c*n:(c+1)*n])
-		}
-		fastmat.MulAdd(live, ld, ld, 1, bt, ld, r.p, ld, r.wt, ld)
-		for c := range live {
-			r.obj[c] = yy[c] - dot(bt[c*ld:c*ld+n], r.wt[c*ld:c*ld+n])
+			r.obj[c] = yy[c] - dot(cross[c*n:(c+1)*n], r.wt[c*ld:c*ld+n])
 		}
 	}
 	r.rows = rows
