@@ -387,6 +387,9 @@ func (m *Mapper) AddBin(frame []float64, counts []Count) error {
 		if halfA {
 			m.spikesA[c.Unit] += c.N
 		}
+		if len(m.stc) == 0 {
+			continue // no map look-up per spike when no unit has an STC
+		}
 		if s := m.stc[c.Unit]; s != nil {
 			s.AddBin(m.x, c.N)
 		}

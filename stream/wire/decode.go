@@ -30,12 +30,17 @@ func (d *Decoder) start(data []byte) *Error {
 	return nil
 }
 
-// id returns a unit id string, shared with earlier messages when seen before.
+// id returns an id string, shared with earlier messages when seen before.
+// Only valid ids (checkID) are remembered, so that an id found among them
+// needs no check again.
 func (d *Decoder) id(b []byte) string {
 	if s, ok := d.intern[string(b)]; ok {
 		return s
 	}
 	s := string(b)
+	if checkID("", "", -1, s) != nil {
+		return s // the message's check reports it
+	}
 	if d.intern == nil {
 		d.intern = make(map[string]string)
 	}
@@ -121,7 +126,16 @@ func (d *Decoder) spikes(dst *Spikes, data []byte) *Error {
 				if err != nil {
 					return err
 				}
-				dst.Unit = append(dst.Unit, d.id(b))
+				id, known := d.intern[string(b)]
+				if !known {
+					// New to this decoder: checked here, once.
+					id = string(b)
+					if err := checkID(ReasonBadUnit, "unit", len(dst.Unit), id); err != nil {
+						return err
+					}
+					id = d.id(b)
+				}
+				dst.Unit = append(dst.Unit, id)
 				return nil
 			})
 		case 1:
@@ -141,7 +155,7 @@ func (d *Decoder) spikes(dst *Spikes, data []byte) *Error {
 	if err != nil {
 		return err
 	}
-	return dst.check()
+	return dst.checkDecoded()
 }
 
 var frameKeys = []string{"block", "index", "t"}

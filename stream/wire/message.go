@@ -220,6 +220,17 @@ func (f *Frames) check() *Error {
 }
 
 func (s *Spikes) check() *Error {
+	for i, u := range s.Unit {
+		if err := checkID(ReasonBadUnit, "unit", i, u); err != nil {
+			return err
+		}
+	}
+	return s.checkDecoded()
+}
+
+// checkDecoded is check for a message whose unit ids the Decoder checked
+// as it read them (each id once per decoder, not once per spike).
+func (s *Spikes) checkDecoded() *Error {
 	if s.Block != "" {
 		if err := checkID(ReasonBadBlock, "block", -1, s.Block); err != nil {
 			return err
@@ -227,11 +238,6 @@ func (s *Spikes) check() *Error {
 	}
 	if len(s.Unit) != len(s.T) {
 		return &Error{Reason: ReasonLengthMismatch, Detail: "unit has " + strconv.Itoa(len(s.Unit)) + " entries, t has " + strconv.Itoa(len(s.T))}
-	}
-	for i, u := range s.Unit {
-		if err := checkID(ReasonBadUnit, "unit", i, u); err != nil {
-			return err
-		}
 	}
 	return checkTimes(s.T, false)
 }

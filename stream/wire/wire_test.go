@@ -81,6 +81,31 @@ func TestDecodeSpikesRejects(t *testing.T) {
 	}
 }
 
+// TestDecoderChecksIDsOnce: a Decoder checks a unit id the first time it
+// reads it and remembers only valid ones, so a bad id is refused each time
+// it comes, after valid messages and after a block id of the same text.
+func TestDecoderChecksIDsOnce(t *testing.T) {
+	var d Decoder
+	var s Spikes
+	for i, tc := range []struct{ in, reason string }{
+		{`{"unit":["a","b","a"],"t":[1,2,3]}`, ""},
+		{`{"unit":["a",""],"t":[1,2]}`, ReasonBadUnit},
+		{`{"unit":["a",""],"t":[1,2]}`, ReasonBadUnit},
+		{`{"unit":["b","` + long + `"],"t":[1,2]}`, ReasonBadUnit},
+		{`{"unit":["a"],"t":[1],"block":"` + long + `"}`, ReasonBadBlock},
+		{`{"unit":["` + long + `"],"t":[1]}`, ReasonBadUnit},
+		{`{"unit":["b","a"],"t":[1,2]}`, ""},
+	} {
+		err := d.SpikesTo(&s, []byte(tc.in))
+		if got := reasonOf(t, err); got != tc.reason {
+			t.Fatalf("message %d: reason %q (%v), want %q", i, got, err, tc.reason)
+		}
+	}
+	if s.Unit[0] != "b" || s.Unit[1] != "a" {
+		t.Fatalf("last message's units %q", s.Unit)
+	}
+}
+
 func TestDecodeSpikesTooLarge(t *testing.T) {
 	d := Decoder{MaxSize: 32}
 	var s Spikes
