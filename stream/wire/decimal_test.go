@@ -134,3 +134,40 @@ func TestExactDecimalTies(t *testing.T) {
 		t.Error("no tie took the fast path")
 	}
 }
+
+// TestEightDigits checks the eight-digit step against strconv.ParseUint
+// (the reference) on random digit strings, and its digit test on strings
+// with one byte just outside '0'…'9' at each place.
+func TestEightDigits(t *testing.T) {
+	r := rand.New(rand.NewPCG(7, 8))
+	word := func(s string) uint64 {
+		var w uint64
+		for i := range 8 {
+			w |= uint64(s[i]) << (8 * i)
+		}
+		return w
+	}
+	for range 100000 {
+		b := make([]byte, 8)
+		for i := range b {
+			b[i] = byte('0' + r.IntN(10))
+		}
+		want, err := strconv.ParseUint(string(b), 10, 64)
+		if err != nil {
+			t.Fatal(err)
+		}
+		w := word(string(b))
+		if !eightDigits(w) || eightDigitsValue(w) != want {
+			t.Fatalf("%s: digits %v, value %d, want %d", b, eightDigits(w), eightDigitsValue(w), want)
+		}
+	}
+	for i := range 8 {
+		for _, c := range []byte{'/', ':', 'e', '.', '-', 0xff, 0x00} {
+			b := []byte("12345678")
+			b[i] = c
+			if eightDigits(word(string(b))) {
+				t.Errorf("%q taken for eight digits", b)
+			}
+		}
+	}
+}

@@ -1,6 +1,7 @@
 package wire
 
 import (
+	"encoding/binary"
 	"math"
 	"math/bits"
 	"strconv"
@@ -313,26 +314,44 @@ func exactDecimal(b []byte) (float64, bool) {
 		i, neg = 1, true
 	}
 	var m uint64
-	nd, frac, dot := 0, 0, false // nd: significant digits (leading zeros not counted)
-	for ; i < len(b); i++ {
-		c := b[i]
-		switch {
-		case '0' <= c && c <= '9':
-			if nd == 19 {
-				return 0, false // m would pass 2⁶⁴
-			}
-			m = m*10 + uint64(c-'0')
-			if m != 0 {
-				nd++
-			}
-			if dot {
+	nd, frac := 0, 0 // nd: significant digits (leading zeros not counted)
+	for ; i < len(b) && '0' <= b[i] && b[i] <= '9'; i++ {
+		m = m*10 + uint64(b[i]-'0') // JSON: at most "0" before other digits
+		if m != 0 {
+			nd++
+		}
+	}
+	if i < len(b) && b[i] == '.' {
+		i++
+		if m == 0 {
+			// Zeros before the first significant digit add nothing to m.
+			for ; i < len(b) && b[i] == '0'; i++ {
 				frac++
 			}
-		case c == '.' && !dot:
-			dot = true
-		default:
-			return 0, false // an exponent
 		}
+		// Eight digits at a time while they last, then one at a time.
+		for ; len(b)-i >= 8; i += 8 {
+			w := binary.LittleEndian.Uint64(b[i:])
+			if !eightDigits(w) {
+				break
+			}
+			if nd += 8; nd > 19 {
+				return 0, false // m would pass 2⁶⁴
+			}
+			m = m*1e8 + eightDigitsValue(w)
+			frac += 8
+		}
+		for ; i < len(b) && '0' <= b[i] && b[i] <= '9'; i++ {
+			if nd == 19 {
+				return 0, false
+			}
+			m = m*10 + uint64(b[i]-'0')
+			nd++
+			frac++
+		}
+	}
+	if i != len(b) {
+		return 0, false // an exponent
 	}
 	var v float64
 	switch {
@@ -350,6 +369,26 @@ func exactDecimal(b []byte) (float64, bool) {
 		v = -v
 	}
 	return v, true
+}
+
+// eightDigits reports whether the eight bytes of w (little-endian) are
+// ASCII digits: each byte's high nibble is 3, and adding 6 leaves it 3
+// (common practice, no source: the bytewise range check of SWAR parsing).
+func eightDigits(w uint64) bool {
+	return w&0xF0F0F0F0F0F0F0F0|(w+0x0606060606060606)&0xF0F0F0F0F0F0F0F0>>4 == 0x3333333333333333
+}
+
+// eightDigitsValue is the number written by the eight ASCII digits of w,
+// the first digit in the lowest byte: adjacent digits combine into pairs
+// (10·d₀ + d₁ in every other byte), the pairs into one value by two
+// multiplications whose upper halves carry the place values (the SWAR
+// method of D. Lemire's "Fast number parsing", common practice; from
+// memory).
+func eightDigitsValue(w uint64) uint64 {
+	w -= 0x3030303030303030
+	w = w*10 + w>>8
+	const mask = 0x000000FF000000FF
+	return ((w&mask)*(100+1000000<<32) + (w>>16&mask)*(1+10000<<32)) >> 32
 }
 
 // exactPow10Int holds the powers of ten below 2⁶⁴.
