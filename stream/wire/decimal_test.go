@@ -23,6 +23,8 @@ func TestExactDecimal(t *testing.T) {
 		{"900719925474099.3", true}, {"0.0012765484253542056", true}, {"0.00069499315752312091", false}, // 20 fraction digits
 		{"1234567890123456789", false}, {"123456789.0123456789", true}, {"123456789.01234567891", false}, {"1234567890.123456789", true}, // 19 digits, x < 2⁵³
 		{"1e3", false}, {"2.5E-7", false}, {"-1.5e+2", false},
+		// 20 significant digits, the last eight read at once: m would pass 2⁶⁴.
+		{"999999999999.99999999", false}, {"123456789012.12345678", false}, {"0.12345678901234567890", false},
 	}
 	for _, c := range cases {
 		got, ok := exactDecimal([]byte(c.in))
