@@ -305,7 +305,7 @@ func (f *staFold) run(s *STA, b *staBatch) {
 // rows as they are.
 func (f *staFold) addStimulusSums(s *STA, b *staBatch) {
 	P, L, D := s.pixels, s.lags, s.dim
-	if f.levels.ok {
+	if f.levels.ok && (f.minBins != 0 || fastmat.LaggedRowsInAssembly()) {
 		if len(f.stimT) < D {
 			f.stimT = make([]uint16, D)
 		}

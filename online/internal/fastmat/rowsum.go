@@ -60,3 +60,8 @@ func AddLaggedRows(dst, rows []uint16, starts []int32, lags int) {
 		}
 	}
 }
+
+// LaggedRowsInAssembly reports whether AddLaggedRows runs in assembly on
+// this CPU. In Go it is several times slower than the float multiply-adds
+// it replaces (BenchmarkSTAFold), so callers then keep to those.
+func LaggedRowsInAssembly() bool { return hasLaggedRows || hasLaggedRows256z }
