@@ -176,7 +176,7 @@ func (s *STA) Grow(units int) {
 	}
 	s.folding.Wait() // the fold writes the sums being grown
 	add := units - s.units
-	s.data = append(s.data, make([]float64, add*s.stride)...)
+	s.data = growZeroed(s.data, add*s.stride)
 	if s.lags > 0 {
 		if s.counts == nil {
 			s.counts = newCountAutocov(s.lags - 1)
@@ -185,6 +185,21 @@ func (s *STA) Grow(units int) {
 	}
 	s.sy = append(s.sy, make([][2]float64, add)...)
 	s.units = units
+}
+
+// growZeroed extends v by n zeros, doubling its capacity when it must
+// grow. Units arrive one by one; append's growth of large slices by a
+// quarter at a time copied the STA's sums (19 MB at 384 units) about 25
+// times and touched 95 MB of fresh memory, 0.14 s of an export's CPU.
+func growZeroed[T any](v []T, n int) []T {
+	if len(v)+n > cap(v) {
+		w := make([]T, len(v), max(2*cap(v), len(v)+n))
+		copy(w, v)
+		v = w
+	}
+	v = v[:len(v)+n]
+	clear(v[len(v)-n:])
+	return v
 }
 
 // shareCounts makes the STA read its count lag products from c, which

@@ -264,7 +264,7 @@ func (b *staIntSums) agree(s *STA, lo, hi float64) {
 // grow sizes the sums for the STA's units.
 func (b *staIntSums) grow(s *STA) {
 	if len(b.c) < s.units {
-		b.t = append(b.t, make([]uint16, (s.units-len(b.c))*2*s.dim)...)
+		b.t = growZeroed(b.t, (s.units-len(b.c))*2*s.dim)
 		b.c = append(b.c, make([][2]int64, s.units-len(b.c))...)
 	}
 }
