@@ -523,34 +523,46 @@ func (g *LagGram) segmentGramTo(dst *mat.SymDense) error {
 	}
 	q := g.scratch
 	g.crossTo(q)
-	raw := dst.RawSymmetric()
-	n := g.n
-	for i := range L {
-		for j := i; j < L; j++ {
-			tau := j - i
-			for p := range P {
-				out := raw.Data[(i*P+p)*raw.Stride+j*P : (i*P+p)*raw.Stride+(j+1)*P]
-				copy(out, q[p*d+tau*P:p*d+(tau+1)*P])
-				// Minus Σ_{m=n−i}^{n−1} s_m s_{m−τ}ᵀ.
-				for m := n - i; m < n; m++ {
-					sp := g.frame(m)[p]
-					if sp == 0 {
-						continue
-					}
-					axpy(out, -sp, g.frame(m-tau))
+	// Block row i of the lags on its own core: rows i·P…(i+1)·P−1, the
+	// first (longest) rows first.
+	fastmat.Each(L, gramRows{g: g, raw: dst.RawSymmetric(), q: q})
+	return nil
+}
+
+// gramRows writes block row i of the segment's Gram (segmentGramTo) per
+// piece.
+type gramRows struct {
+	g   *LagGram
+	raw blas64.Symmetric
+	q   []float64
+}
+
+func (t gramRows) Do(i, _ int) {
+	g, raw, q := t.g, t.raw, t.q
+	d, P, L, n := g.dim, g.pixels, g.lags, g.n
+	for j := i; j < L; j++ {
+		tau := j - i
+		for p := range P {
+			out := raw.Data[(i*P+p)*raw.Stride+j*P : (i*P+p)*raw.Stride+(j+1)*P]
+			copy(out, q[p*d+tau*P:p*d+(tau+1)*P])
+			// Minus Σ_{m=n−i}^{n−1} s_m s_{m−τ}ᵀ.
+			for m := n - i; m < n; m++ {
+				sp := g.frame(m)[p]
+				if sp == 0 {
+					continue
 				}
-				// Minus Q_τ(L−1−i) = Σ_{m=τ}^{L−2−i} s_m s_{m−τ}ᵀ.
-				for m := tau; m <= L-2-i; m++ {
-					sp := g.frame(m)[p]
-					if sp == 0 {
-						continue
-					}
-					axpy(out, -sp, g.frame(m-tau))
+				axpy(out, -sp, g.frame(m-tau))
+			}
+			// Minus Q_τ(L−1−i) = Σ_{m=τ}^{L−2−i} s_m s_{m−τ}ᵀ.
+			for m := tau; m <= L-2-i; m++ {
+				sp := g.frame(m)[p]
+				if sp == 0 {
+					continue
 				}
+				axpy(out, -sp, g.frame(m-tau))
 			}
 		}
 	}
-	return nil
 }
 
 func axpy(dst []float64, a float64, x []float64) {
