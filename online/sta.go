@@ -315,12 +315,13 @@ func (f *staFold) run(s *STA, b *staBatch) {
 
 // addStimulusSums adds the batch's lagged rows to the stimulus sums Σx of
 // their halves. A two-level batch counts them as integers, as a unit that
-// fires once in every bin of its half (16-bit sums: at most staBatchBins
-// per value), and adds hi·T + lo·(n − T) per value; other batches add the
-// rows as they are.
+// fires once in every bin of its half would be (16-bit sums: at most
+// staBatchBins per value), and adds hi·T + lo·(n − T) per value; other
+// batches, and those the units' rule would fold by multiply-adds
+// (integerMinBins), add the rows as they are.
 func (f *staFold) addStimulusSums(s *STA, b *staBatch) {
 	P, L, D := s.pixels, s.lags, s.dim
-	if f.levels.ok && (f.minBins != 0 || fastmat.LaggedRowsInAssembly()) {
+	if f.levels.ok && b.n >= f.integerMinBins() {
 		if len(f.stimT) < D {
 			f.stimT = make([]uint16, D)
 		}
@@ -418,6 +419,7 @@ func (s *STA) startBatch(x []float64) {
 	b := &s.batches[s.fill]
 	if b.frames == nil {
 		b.frames = make([]float64, (L-1+s.batchCap)*P)
+		b.halves = make([]uint8, s.batchCap)
 	}
 	b.rows.startRows(s)
 	for r := range L - 1 {
@@ -502,9 +504,6 @@ func (s *STA) addFrame(frame []float64, halfA bool, counts []Count) {
 		row := (s.lags - 1 + j) * s.pixels
 		copy(b.frames[row:row+s.pixels], frame)
 		b.rows.addRow(s.lags-1+j, frame)
-		if b.halves == nil {
-			b.halves = make([]uint8, s.batchCap)
-		}
 		b.halves[j] = uint8(h)
 	}
 	for _, c := range counts {

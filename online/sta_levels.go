@@ -18,12 +18,12 @@ import (
 // T an integer count. AddBin keeps each row's β as 16-bit values (0 or 1,
 // one row after the other); the fold then adds, per unit and half, the β
 // rows of its spike bins at every lag, a bin with count c listed c times
-// (fastmat.AddLaggedRows: 16-bit sums, a row of 16×16 pixels in sixteen
-// AVX2 registers), into the unit's 16-bit T. The work is 16-bit additions
-// per spike and lag, a sixteenth of the bytes of the float route's
-// multiply-adds: at the reference workload (21 spikes of a unit's half per
-// batch of 256 bins, 12 lags, 256 pixels) about 1.7 µs per unit and half
-// with AVX2 (BenchmarkAddLaggedRows).
+// (fastmat.AddLaggedRows: 16-bit sums, a row of 16×16 pixels in eight
+// AVX-512 BW or sixteen AVX2 registers), into the unit's 16-bit T. The
+// work is 16-bit additions per spike and lag, a quarter of the bytes of
+// the float route's multiply-adds: at the reference workload (21 spikes of
+// a unit's half per batch of 256 bins, 12 lags, 256 pixels) about 1 µs per
+// unit and half (BenchmarkAddLaggedRows).
 //
 // T and C are integers and are kept as such from batch to batch
 // (staIntSums: 16 bits per T, a quarter of the memory traffic of the float
@@ -40,10 +40,11 @@ import (
 // the float route, as do the spikes of a unit's half with spikes in fewer
 // than minBins bins and whole batches with a third level or a non-finite
 // value; so does every spike on CPUs where the row sums run in Go (three
-// times slower than the multiply-adds there, BenchmarkSTAFold). The levels are found per batch; a batch with other levels than
-// those of the integer sums first drains them, so a stimulus that changes
-// its levels (a grey pause before the noise) costs one drain and the float
-// route for the batch that holds the change.
+// times slower than the multiply-adds there, BenchmarkSTAFold). The levels
+// are found per batch; a batch with other levels than those of the integer
+// sums first drains them, so a stimulus that changes its levels (a grey
+// pause before the noise) costs one drain and the float route for the
+// batch that holds the change.
 
 // staMaxCount is the largest count of a bin that the integer route takes:
 // a batch of staBatchBins bins then adds at most 255·256 < 2¹⁶ to a T.
@@ -169,6 +170,19 @@ func (wk *staWorker) grow(s *STA) {
 	}
 }
 
+// integerMinBins is the fewest bins with spikes of a unit's half that the
+// integer route takes: minBins when set (tests), otherwise 1 where the row
+// sums run in assembly and none in Go, where the multiply-adds are faster.
+func (f *staFold) integerMinBins() int {
+	switch {
+	case f.minBins > 0:
+		return f.minBins
+	case fastmat.LaggedRowsInAssembly():
+		return 1
+	}
+	return math.MaxInt
+}
+
 // addLevels adds unit u's spikes of the batch to its integer sums and
 // returns terms with the spikes left for the float route appended.
 func (f *staFold) addLevels(u int, spikes []int32, wk *staWorker, terms []batchSpike) []batchSpike {
@@ -202,10 +216,7 @@ func (f *staFold) addLevels(u int, spikes []int32, wk *staWorker, terms []batchS
 	}
 	wk.bins = byHalf
 	sums := &s.intSums
-	minBins := max(f.minBins, 1)
-	if f.minBins == 0 && !fastmat.LaggedRowsInAssembly() {
-		minBins = math.MaxInt // in Go the multiply-adds are the faster route
-	}
+	minBins := f.integerMinBins()
 	for h, bins := range byHalf {
 		if len(bins) == 0 {
 			continue
@@ -232,7 +243,7 @@ func (f *staFold) addLevels(u int, spikes []int32, wk *staWorker, terms []batchS
 	return terms
 }
 
-// staIntSums is the bit route's part of the cross sums, kept as integers
+// staIntSums is the two-level route's part of the cross sums, kept as integers
 // until Flush drains it: per unit and half, C = Σ c_k and, per lagged pixel,
 // T = Σ c_k·β, for the levels lo and hi.
 type staIntSums struct {

@@ -158,12 +158,18 @@ func packedY(pieces, k, n int, y []float64, ldy int) []float64 {
 	if pieces < 2 || k > kc || active.fn == nil {
 		return nil
 	}
+	return packWhole(&pool.packed, k, n, y, ldy)
+}
+
+// packWhole packs Y (k×n, k ≤ kc) whole for the active kernel into *buf,
+// grown if needed, and returns the packed panels (for Buf.mulAddPacked).
+func packWhole(buf *[]float64, k, n int, y []float64, ldy int) []float64 {
 	need := k * roundUp(n, active.nr)
-	if len(pool.packed) < need {
-		pool.packed = make([]float64, need)
+	if len(*buf) < need {
+		*buf = make([]float64, need)
 	}
-	packY(pool.packed, k, n, active.nr, y, ldy)
-	return pool.packed[:need]
+	packY(*buf, k, n, active.nr, y, ldy)
+	return (*buf)[:need]
 }
 
 func roundUp(v, q int) int { return (v + q - 1) / q * q }

@@ -92,12 +92,7 @@ func spdCholesky(n int, a []float64, lda int, s *SPDScratch) bool {
 		if active.fn != nil {
 			// Every strip reads the panel's columns from the first on:
 			// packed once here rather than once per strip.
-			need := kb * roundUp(rest, active.nr)
-			if len(s.packed) < need {
-				s.packed = make([]float64, need)
-			}
-			packY(s.packed, kb, rest, active.nr, panT, rest)
-			t.packed = s.packed[:need]
+			t.packed = packWhole(&s.packed, kb, rest, panT, rest)
 		}
 		Each(t.pieces(), t)
 		*t = trailingJob{}
